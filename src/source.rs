@@ -1,0 +1,316 @@
+//! Source files and located errors: every problem in a TOML input names its file, line, column
+//! and key.
+//!
+//! Parsing is two-stage (a serde mirror, then a checked model). The serde stage reports byte
+//! spans; the checking stage reports key paths. [`SourceText`] turns either into a
+//! [`Location`] by walking the spanned TOML document, so checked-model code never carries spans.
+
+use std::fmt;
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+
+use toml::de::{DeTable, DeValue};
+
+/// One segment of a key path: a table key or a 0-based array index.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Seg {
+    /// A table key.
+    Key(String),
+    /// An array element (0-based; displayed 1-based).
+    Index(usize),
+}
+
+/// A path of keys into a TOML document, e.g. `feed[2].composition.water`.
+///
+/// Array indices display 1-based (`feed[1]` is the first `[[feed]]` table), because the people
+/// reading these messages count tables from one.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct KeyPath(pub Vec<Seg>);
+
+impl KeyPath {
+    /// The empty path (the whole document).
+    pub fn root() -> Self {
+        KeyPath(Vec::new())
+    }
+
+    /// Parse a dotted path whose segments are plain keys (`"model.enthalpy"`).
+    pub fn keys(dotted: &str) -> Self {
+        KeyPath(
+            dotted
+                .split('.')
+                .filter(|s| !s.is_empty())
+                .map(|s| Seg::Key(s.to_string()))
+                .collect(),
+        )
+    }
+
+    /// This path extended by a key.
+    pub fn key(&self, key: &str) -> Self {
+        let mut next = self.clone();
+        next.0.push(Seg::Key(key.to_string()));
+        next
+    }
+
+    /// This path extended by a 0-based array index.
+    pub fn index(&self, index: usize) -> Self {
+        let mut next = self.clone();
+        next.0.push(Seg::Index(index));
+        next
+    }
+}
+
+impl fmt::Display for KeyPath {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let mut first = true;
+        for seg in &self.0 {
+            match seg {
+                Seg::Key(k) => {
+                    if !first {
+                        f.write_str(".")?;
+                    }
+                    f.write_str(k)?;
+                }
+                Seg::Index(i) => write!(f, "[{}]", i + 1)?,
+            }
+            first = false;
+        }
+        if first {
+            f.write_str("(document)")?;
+        }
+        Ok(())
+    }
+}
+
+/// Where a problem is: file, 1-based line and column (when known) and key path.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Location {
+    /// The file as given on the command line or in an include.
+    pub file: PathBuf,
+    /// 1-based line and column, when the position could be found.
+    pub line_col: Option<(usize, usize)>,
+    /// The key path, when known.
+    pub key: Option<KeyPath>,
+}
+
+impl fmt::Display for Location {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.file.display())?;
+        if let Some((line, col)) = self.line_col {
+            write!(f, ":{line}:{col}")?;
+        }
+        if let Some(key) = &self.key {
+            write!(f, ": `{key}`")?;
+        }
+        Ok(())
+    }
+}
+
+/// An error located in a source file. Display: `case.toml:12:9: `feed[1].flow`: message`.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{location}: {message}")]
+pub struct LocatedError {
+    /// Where the problem is.
+    pub location: Location,
+    /// What is wrong, in one sentence, with the offending value where useful.
+    pub message: String,
+}
+
+/// A list of located errors (a check reports every problem, not only the first).
+#[derive(Debug, Clone, Default, PartialEq, Eq, thiserror::Error)]
+pub struct LocatedErrors(pub Vec<LocatedError>);
+
+impl fmt::Display for LocatedErrors {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        for (i, e) in self.0.iter().enumerate() {
+            if i > 0 {
+                f.write_str("\n")?;
+            }
+            write!(f, "{e}")?;
+        }
+        Ok(())
+    }
+}
+
+impl From<LocatedError> for LocatedErrors {
+    fn from(e: LocatedError) -> Self {
+        LocatedErrors(vec![e])
+    }
+}
+
+/// The text of one input file, kept so that errors can be located after parsing.
+#[derive(Debug, Clone)]
+pub struct SourceText {
+    /// Path as given (used verbatim in messages).
+    pub path: PathBuf,
+    /// Full text.
+    pub text: String,
+}
+
+impl SourceText {
+    /// Wrap text read from `path`.
+    pub fn new(path: impl Into<PathBuf>, text: impl Into<String>) -> Self {
+        SourceText {
+            path: path.into(),
+            text: text.into(),
+        }
+    }
+
+    /// Read a file; the error is located at the file itself.
+    pub fn read(path: &Path) -> Result<Self, LocatedError> {
+        match std::fs::read_to_string(path) {
+            Ok(text) => Ok(SourceText::new(path, text)),
+            Err(e) => Err(LocatedError {
+                location: Location {
+                    file: path.to_path_buf(),
+                    line_col: None,
+                    key: None,
+                },
+                message: format!("cannot read the file: {e}"),
+            }),
+        }
+    }
+
+    /// 1-based line and column of a byte offset.
+    pub fn line_col(&self, offset: usize) -> (usize, usize) {
+        let offset = offset.min(self.text.len());
+        let before = &self.text[..offset];
+        let line = before.matches('\n').count() + 1;
+        let line_start = before.rfind('\n').map_or(0, |i| i + 1);
+        let col = before[line_start..].chars().count() + 1;
+        (line, col)
+    }
+
+    /// The byte span of the value at `key`, or of the deepest existing parent when the key is
+    /// missing (so "missing key" errors point at the table that should contain it).
+    pub fn span_of(&self, key: &KeyPath) -> Option<Range<usize>> {
+        let doc = DeTable::parse(&self.text).ok()?;
+        let root = DeValue::Table(doc.into_inner());
+        let mut node = &root;
+        let mut span = None;
+        for seg in &key.0 {
+            let next = match seg {
+                Seg::Key(k) => node.get(k.as_str()),
+                Seg::Index(i) => node.get(*i),
+            };
+            match next {
+                Some(spanned) => {
+                    span = Some(spanned.span());
+                    node = spanned.get_ref();
+                }
+                None => break,
+            }
+        }
+        span
+    }
+
+    /// Locate a key path.
+    pub fn locate(&self, key: &KeyPath) -> Location {
+        Location {
+            file: self.path.clone(),
+            line_col: self.span_of(key).map(|s| self.line_col(s.start)),
+            key: Some(key.clone()),
+        }
+    }
+
+    /// A located error at a key path.
+    pub fn error_at(&self, key: &KeyPath, message: impl Into<String>) -> LocatedError {
+        LocatedError {
+            location: self.locate(key),
+            message: message.into(),
+        }
+    }
+
+    /// The deepest key path whose value span contains `offset` (for serde errors, which carry a
+    /// span but no path).
+    pub fn key_at(&self, offset: usize) -> Option<KeyPath> {
+        let doc = DeTable::parse(&self.text).ok()?;
+        let root = DeValue::Table(doc.into_inner());
+        let mut path = KeyPath::root();
+        let mut node = &root;
+        'descend: loop {
+            match node {
+                DeValue::Table(table) => {
+                    for (k, v) in table.iter() {
+                        let span = v.span();
+                        let kspan = k.span();
+                        if span.contains(&offset) || kspan.contains(&offset) {
+                            path.0.push(Seg::Key(k.get_ref().to_string()));
+                            node = v.get_ref();
+                            continue 'descend;
+                        }
+                    }
+                    break;
+                }
+                DeValue::Array(items) => {
+                    for (i, v) in items.iter().enumerate() {
+                        if v.span().contains(&offset) {
+                            path.0.push(Seg::Index(i));
+                            node = v.get_ref();
+                            continue 'descend;
+                        }
+                    }
+                    break;
+                }
+                _ => break,
+            }
+        }
+        if path.0.is_empty() { None } else { Some(path) }
+    }
+
+    /// Deserialize the whole document (stage one), turning serde errors into located errors.
+    pub fn deserialize<T: serde::de::DeserializeOwned>(&self) -> Result<T, LocatedError> {
+        toml::from_str::<T>(&self.text).map_err(|e| {
+            let span = e.span();
+            LocatedError {
+                location: Location {
+                    file: self.path.clone(),
+                    line_col: span.as_ref().map(|s| self.line_col(s.start)),
+                    key: span.and_then(|s| self.key_at(s.start)),
+                },
+                message: e.message().trim().to_string(),
+            }
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const DOC: &str = "[model]\nenthalpy = \"auto\"\n\n[[feed]]\nflow = 1.0\n\n[[feed]]\nflow = 2.0\ncomposition = { water = 1.0 }\n";
+
+    #[test]
+    fn locates_keys_and_array_elements() {
+        let src = SourceText::new("case.toml", DOC);
+        let loc = src.locate(&KeyPath::keys("model.enthalpy"));
+        assert_eq!(loc.line_col, Some((2, 12)));
+        let loc = src.locate(
+            &KeyPath::keys("feed")
+                .index(1)
+                .key("composition")
+                .key("water"),
+        );
+        assert_eq!(loc.line_col.map(|(l, _)| l), Some(9));
+        assert_eq!(
+            loc.to_string(),
+            "case.toml:9:25: `feed[2].composition.water`"
+        );
+    }
+
+    #[test]
+    fn missing_key_points_at_parent() {
+        let src = SourceText::new("case.toml", DOC);
+        let loc = src.locate(&KeyPath::keys("feed").index(0).key("temperature"));
+        assert_eq!(loc.line_col.map(|(l, _)| l), Some(4));
+    }
+
+    #[test]
+    fn key_at_offset() {
+        let src = SourceText::new("case.toml", DOC);
+        let offset = DOC.find("2.0").unwrap_or_default();
+        assert_eq!(
+            src.key_at(offset).map(|k| k.to_string()).as_deref(),
+            Some("feed[2].flow")
+        );
+    }
+}
