@@ -5,6 +5,7 @@
 //! [`System`] plus [`Inputs`], reporting every problem with file, line and key. [`Case::run`]
 //! solves and returns a [`Report`], which renders as JSON or as a short human summary.
 
+use std::fmt::Write as _;
 use std::path::Path;
 use std::sync::Arc;
 
@@ -13,8 +14,8 @@ use serde::{Deserialize, Serialize};
 
 use crate::source::{KeyPath, LocatedError, LocatedErrors, SourceText};
 use crate::thermo::balance::{
-    Basis, DEFAULT_BOUNDS, Effluent, FeedInput, FlowValue, Inputs, Outcome, PathChoice, Reaction,
-    SolveError, System, SystemError, Unknown,
+    Basis, DEFAULT_BOUNDS, Effluent, FeedInput, FlowValue, Inputs, Outcome, PathChoice, Reaction, SolveError,
+    System, SystemError, Unknown,
 };
 use crate::thermo::component::{ComponentSpec, Library, Origin, normalize_id};
 use crate::thermo::uncertainty::{InputRef, Uncertain, UncertaintyReport, propagate};
@@ -231,23 +232,14 @@ impl Checker<'_> {
     fn temperature(&mut self, key: &KeyPath, v: &Number) -> Option<f64> {
         let t = self.number(key, v, Quantity::Temperature)?;
         if t <= 0.0 {
-            self.err(
-                key,
-                format!("temperature must be above absolute zero, got {t} K"),
-            );
+            self.err(key, format!("temperature must be above absolute zero, got {t} K"));
             return None;
         }
         Some(t)
     }
 
     /// An uncertainty: `"x %"` of `value`, or an absolute value of quantity `q`.
-    fn uncertainty(
-        &mut self,
-        key: &KeyPath,
-        v: &Number,
-        value: f64,
-        q: &[Quantity],
-    ) -> Option<f64> {
+    fn uncertainty(&mut self, key: &KeyPath, v: &Number, value: f64, q: &[Quantity]) -> Option<f64> {
         let u = match v {
             Number::Text(t) if t.trim().ends_with('%') => {
                 match Number::Text(t.clone()).si(Quantity::Dimensionless) {
@@ -267,24 +259,18 @@ impl Checker<'_> {
             },
         }?;
         if u < 0.0 {
-            self.err(
-                key,
-                format!("a standard uncertainty cannot be negative, got {u}"),
-            );
+            self.err(key, format!("a standard uncertainty cannot be negative, got {u}"));
             return None;
         }
         Some(u)
     }
 
-    fn basis(&mut self, key: &KeyPath, v: &Option<String>) -> Basis {
-        match v.as_deref().map(str::trim) {
+    fn basis(&mut self, key: &KeyPath, v: Option<&String>) -> Basis {
+        match v.map(String::as_str).map(str::trim) {
             None | Some("mole") | Some("mol") => Basis::Mole,
             Some("mass") => Basis::Mass,
             Some(other) => {
-                self.err(
-                    key,
-                    format!("unknown basis `{other}`; use \"mole\" or \"mass\""),
-                );
+                self.err(key, format!("unknown basis `{other}`; use \"mole\" or \"mass\""));
                 Basis::Mole
             }
         }
@@ -308,10 +294,7 @@ impl Case {
     /// Check a parsed case file (stage two).
     pub fn check(src: Arc<SourceText>) -> Result<Case, LocatedErrors> {
         let raw: RawCase = src.deserialize()?;
-        let mut ck = Checker {
-            src: &src,
-            errors: Vec::new(),
-        };
+        let mut ck = Checker { src: &src, errors: Vec::new() };
         let mut warnings = Vec::new();
 
         // --- component library: built-in, user files, inline definitions.
@@ -320,10 +303,7 @@ impl Case {
         for (i, lib) in raw.model.libraries.iter().enumerate() {
             let p = base_dir.join(lib);
             if let Err(e) = library.load(&p) {
-                if e.0
-                    .iter()
-                    .any(|le| le.location.line_col.is_none() && le.location.file == p)
-                {
+                if e.0.iter().any(|le| le.location.line_col.is_none() && le.location.file == p) {
                     ck.err(
                         &KeyPath::keys("model.libraries").index(i),
                         format!("cannot load library `{lib}`: {e}"),
@@ -335,14 +315,7 @@ impl Case {
         }
         for (id, spec) in &raw.components {
             let key = KeyPath::keys("components").key(id);
-            library.add(
-                id,
-                spec.clone(),
-                Origin {
-                    source: src.clone(),
-                    key,
-                },
-            );
+            library.add(id, spec.clone(), Origin { source: src.clone(), key });
         }
 
         // --- the system's components, in order of first use.
@@ -356,23 +329,12 @@ impl Case {
         };
         for (j, f) in raw.feed.iter().enumerate() {
             for id in f.composition.keys() {
-                note(
-                    id,
-                    KeyPath::keys("feed").index(j).key("composition").key(id),
-                    &mut ids,
-                );
+                note(id, KeyPath::keys("feed").index(j).key("composition").key(id), &mut ids);
             }
         }
         for (r, re) in raw.reaction.iter().enumerate() {
             for id in re.stoichiometry.keys() {
-                note(
-                    id,
-                    KeyPath::keys("reaction")
-                        .index(r)
-                        .key("stoichiometry")
-                        .key(id),
-                    &mut ids,
-                );
+                note(id, KeyPath::keys("reaction").index(r).key("stoichiometry").key(id), &mut ids);
             }
         }
         if let Some(comp) = raw.effluent.as_ref().and_then(|e| e.composition.as_ref()) {
@@ -394,14 +356,15 @@ impl Case {
         }
         for id in raw.components.keys() {
             if index_of(id).is_none() {
-                warnings.push(format!("component `{id}` is defined but not used"));
+                // Check it anyway: a bad definition is an error even before it is used.
+                match library.resolve(id) {
+                    Ok(_) => warnings.push(format!("component `{id}` is defined but not used")),
+                    Err(e) => ck.errors.extend(e.0),
+                }
             }
         }
         if raw.feed.is_empty() {
-            ck.err(
-                &KeyPath::root(),
-                "the case has no [[feed]] table: at least one feed is required",
-            );
+            ck.err(&KeyPath::root(), "the case has no [[feed]] table: at least one feed is required");
         }
 
         // --- model settings.
@@ -410,7 +373,9 @@ impl Case {
             Some(s) => PathChoice::parse(s).unwrap_or_else(|| {
                 ck.err(
                     &KeyPath::keys("model.enthalpy"),
-                    format!("unknown enthalpy path `{s}`; use \"auto\", \"ideal-gas-watson\" or \"liquid-cp\""),
+                    format!(
+                        "unknown enthalpy path `{s}`; use \"auto\", \"ideal-gas-watson\" or \"liquid-cp\""
+                    ),
                 );
                 PathChoice::Auto
             }),
@@ -423,26 +388,22 @@ impl Case {
                 (None, _) => ck.err(&key, format!("component `{id}` is not used in this case")),
                 (_, None) => ck.err(
                     &key,
-                    format!("unknown enthalpy path `{s}`; use \"auto\", \"ideal-gas-watson\" or \"liquid-cp\""),
+                    format!(
+                        "unknown enthalpy path `{s}`; use \"auto\", \"ideal-gas-watson\" or \"liquid-cp\""
+                    ),
                 ),
             }
         }
-        if let Some(n) = raw.model.watson_n {
-            if !(n > 0.0 && n <= 1.0) {
-                ck.err(
-                    &KeyPath::keys("model.watson_n"),
-                    format!("Watson exponent must be in (0, 1], got {n}"),
-                );
-            }
+        if let Some(n) = raw.model.watson_n
+            && !(n > 0.0 && n <= 1.0)
+        {
+            ck.err(&KeyPath::keys("model.watson_n"), format!("Watson exponent must be in (0, 1], got {n}"));
         }
         let pressure = raw.model.pressure.as_ref().and_then(|p| {
             let key = KeyPath::keys("model.pressure");
             let v = ck.number(&key, p, Quantity::Pressure)?;
             if v <= 0.0 {
-                ck.err(
-                    &key,
-                    format!("absolute pressure must be positive, got {v} Pa"),
-                );
+                ck.err(&key, format!("absolute pressure must be positive, got {v} Pa"));
                 return None;
             }
             Some(v)
@@ -452,27 +413,17 @@ impl Case {
             .bubble_margin
             .as_ref()
             .and_then(|m| {
-                ck.number(
-                    &KeyPath::keys("model.bubble_margin"),
-                    m,
-                    Quantity::TemperatureDifference,
-                )
+                ck.number(&KeyPath::keys("model.bubble_margin"), m, Quantity::TemperatureDifference)
             })
             .unwrap_or(DEFAULT_BUBBLE_MARGIN);
         let bounds = match &raw.model.temperature_range {
             None => DEFAULT_BOUNDS,
             Some([lo, hi]) => {
                 let key = KeyPath::keys("model.temperature_range");
-                match (
-                    ck.temperature(&key.index(0), lo),
-                    ck.temperature(&key.index(1), hi),
-                ) {
+                match (ck.temperature(&key.index(0), lo), ck.temperature(&key.index(1), hi)) {
                     (Some(lo), Some(hi)) if hi > lo => (lo, hi),
                     (Some(lo), Some(hi)) => {
-                        ck.err(
-                            &key,
-                            format!("range must be [low, high] with low < high, got [{lo}, {hi}]"),
-                        );
+                        ck.err(&key, format!("range must be [low, high] with low < high, got [{lo}, {hi}]"));
                         DEFAULT_BOUNDS
                     }
                     _ => DEFAULT_BOUNDS,
@@ -494,11 +445,9 @@ impl Case {
                     None
                 }
                 Some(v) => match v.si_any(&[Quantity::MolarFlow, Quantity::MassFlow]) {
-                    Ok((x, q)) if x > 0.0 => Some(if q == Quantity::MassFlow {
-                        FlowValue::Mass(x)
-                    } else {
-                        FlowValue::Molar(x)
-                    }),
+                    Ok((x, q)) if x > 0.0 => {
+                        Some(if q == Quantity::MassFlow { FlowValue::Mass(x) } else { FlowValue::Molar(x) })
+                    }
                     Ok((x, _)) => {
                         ck.err(&key.key("flow"), format!("flow must be positive, got {x}"));
                         None
@@ -516,7 +465,7 @@ impl Case {
                 }
                 Some(v) => ck.temperature(&key.key("temperature"), v),
             };
-            let basis = ck.basis(&key.key("basis"), &f.basis);
+            let basis = ck.basis(&key.key("basis"), f.basis.as_ref());
             let fractions = composition(
                 &mut ck,
                 &key.key("composition"),
@@ -527,16 +476,13 @@ impl Case {
                 &mut warnings,
                 &label,
             );
-            if let (Some(flow), Some(temperature), Some(fractions)) = (flow, temperature, fractions)
-            {
+            if let (Some(flow), Some(temperature), Some(fractions)) = (flow, temperature, fractions) {
                 if let Some(u) = &f.flow_uncertainty {
                     let q = match flow {
                         FlowValue::Molar(_) => Quantity::MolarFlow,
                         FlowValue::Mass(_) => Quantity::MassFlow,
                     };
-                    if let Some(u) =
-                        ck.uncertainty(&key.key("flow_uncertainty"), u, flow.value(), &[q])
-                    {
+                    if let Some(u) = ck.uncertainty(&key.key("flow_uncertainty"), u, flow.value(), &[q]) {
                         uncertain.push(Uncertain {
                             input: InputRef::FeedFlow(j),
                             u,
@@ -544,28 +490,24 @@ impl Case {
                         });
                     }
                 }
-                if let Some(u) = &f.temperature_uncertainty {
-                    if let Some(u) = ck.uncertainty(
+                if let Some(u) = &f.temperature_uncertainty
+                    && let Some(u) = ck.uncertainty(
                         &key.key("temperature_uncertainty"),
                         u,
                         temperature,
                         &[Quantity::TemperatureDifference],
-                    ) {
-                        uncertain.push(Uncertain {
-                            input: InputRef::FeedTemperature(j),
-                            u,
-                            label: format!("{label} temperature"),
-                        });
-                    }
+                    )
+                {
+                    uncertain.push(Uncertain {
+                        input: InputRef::FeedTemperature(j),
+                        u,
+                        label: format!("{label} temperature"),
+                    });
                 }
                 if let Some(cu) = &f.composition_uncertainty {
-                    for (i, u) in composition_u(
-                        &mut ck,
-                        &key.key("composition_uncertainty"),
-                        cu,
-                        &fractions,
-                        &index_of,
-                    ) {
+                    for (i, u) in
+                        composition_u(&mut ck, &key.key("composition_uncertainty"), cu, &fractions, &index_of)
+                    {
                         uncertain.push(Uncertain {
                             input: InputRef::FeedFraction(j, i),
                             u,
@@ -573,18 +515,10 @@ impl Case {
                         });
                     }
                 }
-                feeds.push(FeedInput {
-                    flow,
-                    temperature,
-                    fractions,
-                    basis,
-                });
+                feeds.push(FeedInput { flow, temperature, fractions, basis });
                 echo.feeds.push((
                     f.flow.as_ref().map(Number::as_written).unwrap_or_default(),
-                    f.temperature
-                        .as_ref()
-                        .map(Number::as_written)
-                        .unwrap_or_default(),
+                    f.temperature.as_ref().map(Number::as_written).unwrap_or_default(),
                 ));
                 echo.feed_names.push(label);
             }
@@ -602,10 +536,7 @@ impl Case {
             let mut nu = vec![0.0; n];
             for (id, coef) in &re.stoichiometry {
                 if !coef.is_finite() {
-                    ck.err(
-                        &key.key("stoichiometry").key(id),
-                        "coefficient is not finite",
-                    );
+                    ck.err(&key.key("stoichiometry").key(id), "coefficient is not finite");
                 }
                 if let Some(i) = index_of(id) {
                     nu[i] += coef;
@@ -613,61 +544,48 @@ impl Case {
             }
             let key_idx = match &re.key {
                 None => {
-                    ck.err(
-                        &key,
-                        "key is required: the reactant whose conversion is given or solved for",
-                    );
+                    ck.err(&key, "key is required: the reactant whose conversion is given or solved for");
                     None
                 }
-                Some(k) => match (
-                    index_of(k),
-                    re.stoichiometry
-                        .keys()
-                        .any(|s| normalize_id(s) == normalize_id(k)),
-                ) {
-                    (Some(i), true) => Some(i),
-                    _ => {
-                        ck.err(
-                            &key.key("key"),
-                            format!("key `{k}` is not in this reaction's stoichiometry"),
-                        );
-                        None
+                Some(k) => {
+                    match (index_of(k), re.stoichiometry.keys().any(|s| normalize_id(s) == normalize_id(k))) {
+                        (Some(i), true) => Some(i),
+                        _ => {
+                            ck.err(
+                                &key.key("key"),
+                                format!("key `{k}` is not in this reaction's stoichiometry"),
+                            );
+                            None
+                        }
                     }
-                },
+                }
             };
             let conversion = re
                 .conversion
                 .as_ref()
                 .and_then(|c| ck.number(&key.key("conversion"), c, Quantity::Dimensionless));
-            if let Some(u) = &re.conversion_uncertainty {
-                if let Some(u) = ck.uncertainty(
+            if let Some(u) = &re.conversion_uncertainty
+                && let Some(u) = ck.uncertainty(
                     &key.key("conversion_uncertainty"),
                     u,
                     conversion.unwrap_or(0.0),
                     &[Quantity::Dimensionless],
-                ) {
-                    uncertain.push(Uncertain {
-                        input: InputRef::Conversion(r),
-                        u,
-                        label: format!("reaction {} conversion", r + 1),
-                    });
-                }
+                )
+            {
+                uncertain.push(Uncertain {
+                    input: InputRef::Conversion(r),
+                    u,
+                    label: format!("reaction {} conversion", r + 1),
+                });
             }
-            let reactants: Vec<String> = re
-                .stoichiometry
-                .iter()
-                .filter(|(_, c)| **c < 0.0)
-                .map(|(id, c)| term(-c, id))
-                .collect();
-            let products: Vec<String> = re
-                .stoichiometry
-                .iter()
-                .filter(|(_, c)| **c > 0.0)
-                .map(|(id, c)| term(*c, id))
-                .collect();
-            let label = re.name.clone().unwrap_or_else(|| {
-                format!("{} -> {}", reactants.join(" + "), products.join(" + "))
-            });
+            let reactants: Vec<String> =
+                re.stoichiometry.iter().filter(|(_, c)| **c < 0.0).map(|(id, c)| term(-c, id)).collect();
+            let products: Vec<String> =
+                re.stoichiometry.iter().filter(|(_, c)| **c > 0.0).map(|(id, c)| term(*c, id)).collect();
+            let label = re
+                .name
+                .clone()
+                .unwrap_or_else(|| format!("{} -> {}", reactants.join(" + "), products.join(" + ")));
             if let Some(k) = key_idx {
                 reactions.push(Reaction { label, nu, key: k });
                 conversions.push(conversion);
@@ -676,38 +594,26 @@ impl Case {
 
         // --- effluent, heater, unknown.
         let eff = raw.effluent.clone().unwrap_or_default();
-        let effluent_temperature = eff
-            .temperature
-            .as_ref()
-            .and_then(|t| ck.temperature(&KeyPath::keys("effluent.temperature"), t));
+        let effluent_temperature =
+            eff.temperature.as_ref().and_then(|t| ck.temperature(&KeyPath::keys("effluent.temperature"), t));
         let heater = raw.heater.clone().unwrap_or_default();
-        let duty = heater
-            .duty
-            .as_ref()
-            .and_then(|d| ck.number(&KeyPath::keys("heater.duty"), d, Quantity::Power));
+        let duty =
+            heater.duty.as_ref().and_then(|d| ck.number(&KeyPath::keys("heater.duty"), d, Quantity::Power));
         let heat_loss = heater
             .heat_loss
             .as_ref()
             .and_then(|d| ck.number(&KeyPath::keys("heater.heat_loss"), d, Quantity::Power))
             .unwrap_or(0.0);
-        let unknown_text = raw
-            .solve
-            .unknown
-            .clone()
-            .unwrap_or_else(|| "temperature".into());
+        let unknown_text = raw.solve.unknown.clone().unwrap_or_else(|| "temperature".into());
         let solve_key = KeyPath::keys("solve.unknown");
-        let missing_conv: Vec<usize> = conversions
-            .iter()
-            .enumerate()
-            .filter(|(_, c)| c.is_none())
-            .map(|(r, _)| r)
-            .collect();
+        let missing_conv: Vec<usize> =
+            conversions.iter().enumerate().filter(|(_, c)| c.is_none()).map(|(r, _)| r).collect();
         let unknown = match unknown_text.trim() {
             "temperature" => {
                 if heater.duty.is_none() {
                     ck.err(
                         &KeyPath::keys("heater"),
-                        "duty is required when solving for the temperature",
+                        "[heater] duty is required when solving for the temperature",
                     );
                 }
                 for &r in &missing_conv {
@@ -720,15 +626,12 @@ impl Case {
             }
             "duty" => {
                 if heater.duty.is_some() {
-                    ck.err(
-                        &KeyPath::keys("heater.duty"),
-                        "remove the duty when solving for it",
-                    );
+                    ck.err(&KeyPath::keys("heater.duty"), "remove the duty when solving for it");
                 }
                 if eff.temperature.is_none() {
                     ck.err(
                         &KeyPath::keys("effluent"),
-                        "temperature is required when solving for the duty",
+                        "[effluent] temperature is required when solving for the duty",
                     );
                 }
                 for &r in &missing_conv {
@@ -743,20 +646,17 @@ impl Case {
                 if eff.temperature.is_none() {
                     ck.err(
                         &KeyPath::keys("effluent"),
-                        "temperature is required when solving for the conversion",
+                        "[effluent] temperature is required when solving for the conversion",
                     );
                 }
                 if heater.duty.is_none() {
                     ck.err(
                         &KeyPath::keys("heater"),
-                        "duty is required when solving for the conversion",
+                        "[heater] duty is required when solving for the conversion",
                     );
                 }
                 if raw.reaction.is_empty() {
-                    ck.err(
-                        &solve_key,
-                        "solving for the conversion needs a [[reaction]]",
-                    );
+                    ck.err(&solve_key, "solving for the conversion needs a [[reaction]]");
                 }
                 match missing_conv.as_slice() {
                     [r] => Unknown::Conversion(*r),
@@ -770,10 +670,7 @@ impl Case {
                         Unknown::Conversion(0)
                     }
                     _ => {
-                        ck.err(
-                            &solve_key,
-                            "more than one reaction lacks a conversion: give all but one",
-                        );
+                        ck.err(&solve_key, "more than one reaction lacks a conversion: give all but one");
                         Unknown::Conversion(0)
                     }
                 }
@@ -798,64 +695,47 @@ impl Case {
                 duty.unwrap_or(0.0),
                 &[Quantity::Power],
             ) {
-                uncertain.push(Uncertain {
-                    input: InputRef::Duty,
-                    u,
-                    label: "heater duty".into(),
-                });
+                uncertain.push(Uncertain { input: InputRef::Duty, u, label: "heater duty".into() });
             }
         }
-        if let Some(u) = &heater.heat_loss_uncertainty {
-            if let Some(u) = ck.uncertainty(
+        if let Some(u) = &heater.heat_loss_uncertainty
+            && let Some(u) = ck.uncertainty(
                 &KeyPath::keys("heater.heat_loss_uncertainty"),
                 u,
                 heat_loss,
                 &[Quantity::Power],
-            ) {
-                uncertain.push(Uncertain {
-                    input: InputRef::HeatLoss,
-                    u,
-                    label: "heat loss".into(),
-                });
-            }
+            )
+        {
+            uncertain.push(Uncertain { input: InputRef::HeatLoss, u, label: "heat loss".into() });
         }
-        if let Some(u) = &eff.temperature_uncertainty {
-            if let Some(u) = ck.uncertainty(
+        if let Some(u) = &eff.temperature_uncertainty
+            && let Some(u) = ck.uncertainty(
                 &KeyPath::keys("effluent.temperature_uncertainty"),
                 u,
                 effluent_temperature.unwrap_or(0.0),
                 &[Quantity::TemperatureDifference],
-            ) {
-                if unknown != Unknown::Temperature {
-                    uncertain.push(Uncertain {
-                        input: InputRef::EffluentTemperature,
-                        u,
-                        label: "effluent temperature".into(),
-                    });
-                }
-            }
+            )
+            && unknown != Unknown::Temperature
+        {
+            uncertain.push(Uncertain {
+                input: InputRef::EffluentTemperature,
+                u,
+                label: "effluent temperature".into(),
+            });
         }
-        let effluent = match (
-            &eff.composition,
-            reactions.is_empty() && raw.reaction.is_empty(),
-        ) {
+        let effluent = match (&eff.composition, reactions.is_empty() && raw.reaction.is_empty()) {
             (Some(_), false) => {
-                ck.err(&KeyPath::keys("effluent.composition"), "give either reactions with conversions or a measured effluent composition, not both");
+                ck.err(
+                    &KeyPath::keys("effluent.composition"),
+                    "give either reactions with conversions or a measured effluent composition, not both",
+                );
                 Effluent::Mixed
             }
             (Some(comp), true) => {
                 let key = KeyPath::keys("effluent.composition");
-                let basis = ck.basis(&KeyPath::keys("effluent.basis"), &eff.basis);
-                match composition(
-                    &mut ck,
-                    &key,
-                    comp,
-                    eff.normalize,
-                    n,
-                    &index_of,
-                    &mut warnings,
-                    "effluent",
-                ) {
+                let basis = ck.basis(&KeyPath::keys("effluent.basis"), eff.basis.as_ref());
+                match composition(&mut ck, &key, comp, eff.normalize, n, &index_of, &mut warnings, "effluent")
+                {
                     Some(fractions) => {
                         if let Some(cu) = &eff.composition_uncertainty {
                             for (i, u) in composition_u(
@@ -880,13 +760,8 @@ impl Case {
             (None, false) => Effluent::Reacted { conversions },
             (None, true) => Effluent::Mixed,
         };
-        if matches!(effluent, Effluent::Measured { .. })
-            && matches!(unknown, Unknown::Conversion(_))
-        {
-            ck.err(
-                &solve_key,
-                "a measured effluent composition leaves no conversion to solve for",
-            );
+        if matches!(effluent, Effluent::Measured { .. }) && matches!(unknown, Unknown::Conversion(_)) {
+            ck.err(&solve_key, "a measured effluent composition leaves no conversion to solve for");
         }
 
         echo.duty = heater.duty.as_ref().map(Number::as_written);
@@ -897,15 +772,11 @@ impl Case {
         if !ck.errors.is_empty() {
             return Err(LocatedErrors(ck.errors));
         }
-        let system = System::new(components, &choices, raw.model.watson_n, reactions, bounds)
-            .map_err(|e| {
+        let system =
+            System::new(components, &choices, raw.model.watson_n, reactions, bounds).map_err(|e| {
                 let key = match &e {
-                    SystemError::MissingPathData {
-                        index, component, ..
-                    }
-                    | SystemError::NoPath {
-                        index, component, ..
-                    } => {
+                    SystemError::MissingPathData { index, component, .. }
+                    | SystemError::NoPath { index, component, .. } => {
                         if raw
                             .model
                             .component_enthalpy
@@ -913,11 +784,7 @@ impl Case {
                             .any(|k| normalize_id(k) == normalize_id(component))
                         {
                             KeyPath::keys("model.component_enthalpy").key(component)
-                        } else if raw
-                            .components
-                            .keys()
-                            .any(|k| normalize_id(k) == normalize_id(component))
-                        {
+                        } else if raw.components.keys().any(|k| normalize_id(k) == normalize_id(component)) {
                             KeyPath::keys("components").key(component)
                         } else if raw.model.enthalpy.is_some() {
                             KeyPath::keys("model.enthalpy")
@@ -928,9 +795,9 @@ impl Case {
                     SystemError::KeyNotReactant { reaction, .. } => {
                         KeyPath::keys("reaction").index(*reaction).key("key")
                     }
-                    SystemError::Unbalanced { reaction, .. } => KeyPath::keys("reaction")
-                        .index(*reaction)
-                        .key("stoichiometry"),
+                    SystemError::Unbalanced { reaction, .. } => {
+                        KeyPath::keys("reaction").index(*reaction).key("stoichiometry")
+                    }
                 };
                 let note = match (&e, global) {
                     (SystemError::MissingPathData { .. }, PathChoice::Force(_)) => {
@@ -940,25 +807,9 @@ impl Case {
                 };
                 LocatedErrors::from(src.error_at(&key, format!("{e}{note}")))
             })?;
-        let inputs = Inputs {
-            feeds,
-            effluent,
-            duty,
-            heat_loss,
-            effluent_temperature,
-            pressure,
-            bubble_margin,
-        };
-        Ok(Case {
-            source: src,
-            system,
-            inputs,
-            unknown,
-            uncertain,
-            echo,
-            warnings,
-            first_use,
-        })
+        let inputs =
+            Inputs { feeds, effluent, duty, heat_loss, effluent_temperature, pressure, bubble_margin };
+        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings, first_use })
     }
 
     /// Solve the case; a failure is located at the input most likely responsible.
@@ -974,11 +825,19 @@ impl Case {
                         .iter()
                         .enumerate()
                         .find(|(_, r)| {
-                            self.system.components.iter().position(|c| c.id == *component).is_some_and(|i| r.nu[i] < 0.0)
+                            self.system
+                                .components
+                                .iter()
+                                .position(|c| c.id == *component)
+                                .is_some_and(|i| r.nu[i] < 0.0)
                         })
-                        .map_or(KeyPath::keys("reaction"), |(r, _)| KeyPath::keys("reaction").index(r).key("conversion")),
+                        .map_or(KeyPath::keys("reaction"), |(r, _)| {
+                            KeyPath::keys("reaction").index(r).key("conversion")
+                        }),
                 },
-                SolveError::NoKeyFeed { reaction, .. } => KeyPath::keys("reaction").index(*reaction).key("key"),
+                SolveError::NoKeyFeed { reaction, .. } => {
+                    KeyPath::keys("reaction").index(*reaction).key("key")
+                }
                 SolveError::ThermallyNeutral { reaction, .. } => KeyPath::keys("reaction").index(*reaction),
                 SolveError::MissingInput(_) => KeyPath::keys("solve"),
                 SolveError::NoFlow | SolveError::NotFinite(_) => KeyPath::keys("feed"),
@@ -995,12 +854,7 @@ impl Case {
         let uncertainty = if self.uncertain.is_empty() {
             None
         } else {
-            Some(propagate(
-                &self.system,
-                &self.inputs,
-                &outcome,
-                &self.uncertain,
-            ))
+            Some(propagate(&self.system, &self.inputs, &outcome, &self.uncertain))
         };
         let _ = &self.first_use;
         Ok(Report::new(self, &outcome, uncertainty.as_ref()))
@@ -1008,11 +862,7 @@ impl Case {
 }
 
 fn term(c: f64, id: &str) -> String {
-    if (c - 1.0).abs() < 1e-12 {
-        id.to_string()
-    } else {
-        format!("{c} {id}")
-    }
+    if (c - 1.0).abs() < 1e-12 { id.to_string() } else { format!("{c} {id}") }
 }
 
 /// Check a composition table; returns fractions per system component.
@@ -1028,10 +878,7 @@ fn composition(
     label: &str,
 ) -> Option<Vec<f64>> {
     if comp.is_empty() {
-        ck.err(
-            key,
-            "composition is required, e.g. { water = 0.7, methanol = 0.3 }",
-        );
+        ck.err(key, "composition is required, e.g. { water = 0.7, methanol = 0.3 }");
         return None;
     }
     let mut fractions = vec![0.0; n];
@@ -1061,9 +908,8 @@ fn composition(
     }
     if (sum - 1.0).abs() > SUM_TOLERANCE {
         if normalize {
-            warnings.push(format!(
-                "{label} composition summed to {sum:.6}; rescaled to 1 (normalize = true)"
-            ));
+            warnings
+                .push(format!("{label} composition summed to {sum:.6}; rescaled to 1 (normalize = true)"));
         } else {
             ck.err(key, format!("fractions sum to {sum:.6}, not 1 within {SUM_TOLERANCE}; fix them or set normalize = true"));
             return None;
@@ -1310,11 +1156,7 @@ impl Report {
             effluent_flow_mol_s: o.out_total,
             effluent_mass_flow_kg_s: o.out_mass,
             effluent_composition: ids.iter().cloned().zip(x.iter().copied()).collect(),
-            enthalpy_path: ids
-                .iter()
-                .cloned()
-                .zip(sys.paths.iter().map(|p| p.as_str()))
-                .collect(),
+            enthalpy_path: ids.iter().cloned().zip(sys.paths.iter().map(|p| p.as_str())).collect(),
             feed_enthalpy_w: o.h_in,
             effluent_enthalpy_w: o.h_out,
             effluent_heat_capacity_w_k: o.cp_out,
@@ -1345,13 +1187,7 @@ impl Report {
                 .feeds
                 .iter()
                 .zip(&o.feed_flows)
-                .map(|(f, flows)| {
-                    (
-                        flows.iter().sum(),
-                        f.temperature,
-                        sys.mole_fractions(flows, Basis::Mole),
-                    )
-                })
+                .map(|(f, flows)| (flows.iter().sum(), f.temperature, sys.mole_fractions(flows, Basis::Mole)))
                 .collect(),
         }
     }
@@ -1366,11 +1202,7 @@ impl Report {
         let mut s = String::new();
         let k = |t: f64| format!("{t:.3} K ({:.2} degC)", t - 273.15);
         let given = |g: &str, si: String| {
-            if g.is_empty() || g == si {
-                si
-            } else {
-                format!("{si} (given \"{g}\")")
-            }
+            if g.is_empty() || g == si { si } else { format!("{si} (given \"{g}\")") }
         };
         let frac = |m: &[(String, f64)]| {
             m.iter()
@@ -1380,124 +1212,90 @@ impl Report {
                 .join(", ")
         };
         let ids: Vec<String> = self.enthalpy_path.keys().cloned().collect();
-        s.push_str(&format!("efftemp calc: {}\n\n", self.case));
+        let _ = write!(s, "efftemp calc: {}\n\n", self.case);
         s.push_str("Inputs\n");
-        s.push_str(&format!(
-            "  components (enthalpy path): {}\n",
-            self.enthalpy_path
-                .iter()
-                .map(|(id, p)| format!("{id} ({p})"))
-                .collect::<Vec<_>>()
-                .join(", ")
-        ));
+        let _ = writeln!(
+            s,
+            "  components (enthalpy path): {}",
+            self.enthalpy_path.iter().map(|(id, p)| format!("{id} ({p})")).collect::<Vec<_>>().join(", ")
+        );
         for (j, (flow, t, x)) in self.feeds.iter().enumerate() {
             let (gf, gt) = self.echo.feeds.get(j).cloned().unwrap_or_default();
-            let name = self
-                .echo
-                .feed_names
-                .get(j)
-                .cloned()
-                .unwrap_or_else(|| format!("feed {}", j + 1));
+            let name = self.echo.feed_names.get(j).cloned().unwrap_or_else(|| format!("feed {}", j + 1));
             let pairs: Vec<(String, f64)> = ids.iter().cloned().zip(x.iter().copied()).collect();
-            s.push_str(&format!(
-                "  {name}: {} at {}; mole fractions {}\n",
+            let _ = writeln!(
+                s,
+                "  {name}: {} at {}; mole fractions {}",
                 given(&gf, format!("{flow:.6} mol/s")),
                 given(&gt, k(*t)),
                 frac(&pairs)
-            ));
+            );
         }
         let duty_line = match self.solved_for {
             "duty" => "solved for".to_string(),
-            _ => given(
-                self.echo.duty.as_deref().unwrap_or(""),
-                format!("{:.3} W", self.duty_w),
-            ),
+            _ => given(self.echo.duty.as_deref().unwrap_or(""), format!("{:.3} W", self.duty_w)),
         };
-        s.push_str(&format!(
-            "  heater duty: {duty_line}; heat loss: {}\n",
-            given(
-                self.echo.heat_loss.as_deref().unwrap_or(""),
-                format!("{:.3} W", self.heat_loss_w)
-            )
-        ));
+        let _ = writeln!(
+            s,
+            "  heater duty: {duty_line}; heat loss: {}",
+            given(self.echo.heat_loss.as_deref().unwrap_or(""), format!("{:.3} W", self.heat_loss_w))
+        );
         for r in &self.reactions {
             let conv = if self.solved_for == "conversion" && Some(r.conversion) == self.conversion {
                 "solved for".to_string()
             } else {
                 format!("{:.4}", r.conversion)
             };
-            s.push_str(&format!(
-                "  reaction {}: key {}, conversion {conv}\n",
-                r.reaction, r.key
-            ));
+            let _ = writeln!(s, "  reaction {}: key {}, conversion {conv}", r.reaction, r.key);
         }
         if let Some(t) = self.echo.effluent_temperature.as_deref() {
-            s.push_str(&format!("  measured effluent temperature: \"{t}\"\n"));
+            let _ = writeln!(s, "  measured effluent temperature: \"{t}\"");
         }
         if let Some(p) = self.pressure_pa {
-            s.push_str(&format!(
-                "  pressure: {}\n",
-                given(
-                    self.echo.pressure.as_deref().unwrap_or(""),
-                    format!("{p:.1} Pa")
-                )
-            ));
+            let _ = writeln!(
+                s,
+                "  pressure: {}",
+                given(self.echo.pressure.as_deref().unwrap_or(""), format!("{p:.1} Pa"))
+            );
         }
         s.push_str("\nResult\n");
-        s.push_str(&format!("  solved for: {}\n", self.solved_for));
-        s.push_str(&format!(
-            "  effluent temperature: {}\n",
-            k(self.effluent_temperature_k)
-        ));
+        let _ = writeln!(s, "  solved for: {}", self.solved_for);
+        let _ = writeln!(s, "  effluent temperature: {}", k(self.effluent_temperature_k));
         if let (Some(m), Some(r)) = (self.measured_temperature_k, self.residual_k) {
-            s.push_str(&format!(
-                "  measured: {}; predicted - measured: {r:+.3} K\n",
-                k(m)
-            ));
+            let _ = writeln!(s, "  measured: {}; predicted - measured: {r:+.3} K", k(m));
         }
-        s.push_str(&format!(
-            "  heater duty: {:.3} W ({:.4} MW)\n",
-            self.duty_w,
-            self.duty_w / 1e6
-        ));
+        let _ = writeln!(s, "  heater duty: {:.3} W ({:.4} MW)", self.duty_w, self.duty_w / 1e6);
         for r in &self.reactions {
-            s.push_str(&format!(
-                "  reaction {}: conversion {:.6}, extent {:.6} mol/s, heat of reaction {:.3} kJ/mol at 298.15 K, {:.3} kJ/mol at outlet ({})\n",
+            let _ = writeln!(
+                s,
+                "  reaction {}: conversion {:.6}, extent {:.6} mol/s, heat of reaction {:.3} kJ/mol at 298.15 K, {:.3} kJ/mol at outlet ({})",
                 r.reaction,
                 r.conversion,
                 r.extent_mol_s,
                 r.heat_of_reaction_298_j_mol / 1e3,
                 r.heat_of_reaction_outlet_j_mol / 1e3,
                 if r.heat_of_reaction_outlet_j_mol > 0.0 { "endothermic" } else { "exothermic" }
-            ));
+            );
         }
-        let pairs: Vec<(String, f64)> = self
-            .effluent_composition
-            .iter()
-            .map(|(k, v)| (k.clone(), *v))
-            .collect();
-        s.push_str(&format!(
-            "  effluent: {:.6} mol/s ({:.6} kg/s); mole fractions {}\n",
+        let pairs: Vec<(String, f64)> =
+            self.effluent_composition.iter().map(|(k, v)| (k.clone(), *v)).collect();
+        let _ = writeln!(
+            s,
+            "  effluent: {:.6} mol/s ({:.6} kg/s); mole fractions {}",
             self.effluent_flow_mol_s,
             self.effluent_mass_flow_kg_s,
             frac(&pairs)
-        ));
-        if let (Some(b), Some(p), Some(m)) =
-            (self.bubble_point_k, self.pressure_pa, self.bubble_margin_k)
-        {
-            s.push_str(&format!(
-                "  bubble point (ideal solution, Raoult's law) at {p:.0} Pa: {}; margin {m:+.2} K\n",
+        );
+        if let (Some(b), Some(p), Some(m)) = (self.bubble_point_k, self.pressure_pa, self.bubble_margin_k) {
+            let _ = writeln!(
+                s,
+                "  bubble point (ideal solution, Raoult's law) at {p:.0} Pa: {}; margin {m:+.2} K",
                 k(b)
-            ));
+            );
         }
         if let Some(eb) = &self.element_balance {
-            let worst = eb
-                .values()
-                .map(|e| e.relative_closure.abs())
-                .fold(0.0, f64::max);
-            s.push_str(&format!(
-                "  element balance closure: max |out - in|/in = {worst:.2e}\n"
-            ));
+            let worst = eb.values().map(|e| e.relative_closure.abs()).fold(0.0, f64::max);
+            let _ = writeln!(s, "  element balance closure: max |out - in|/in = {worst:.2e}");
         }
         if let Some(u) = &self.uncertainty {
             let unit = match u.quantity {
@@ -1505,37 +1303,39 @@ impl Report {
                 "duty_w" => "W",
                 _ => "",
             };
-            s.push_str(&format!(
+            let _ = write!(
+                s,
                 "\nUncertainty (first order, inputs uncorrelated)\n  u = {:.4} {unit}",
                 u.standard_uncertainty
-            ));
+            );
             if let Some(d) = &u.dominant_input {
-                s.push_str(&format!("; dominated by {d}"));
+                let _ = write!(s, "; dominated by {d}");
             }
             s.push('\n');
             for c in &u.contributions {
-                s.push_str(&format!(
-                    "  {:<32} u(x) = {:<12.5e} contributes {:.4} {unit} ({:.1} %)\n",
+                let _ = writeln!(
+                    s,
+                    "  {:<32} u(x) = {:<12.5e} contributes {:.4} {unit} ({:.1} %)",
                     c.input,
                     c.standard_uncertainty,
                     c.contribution,
                     c.share * 100.0
-                ));
+                );
             }
         }
         if !self.warnings.is_empty() {
             s.push_str("\nWarnings\n");
             for w in &self.warnings {
-                s.push_str(&format!("  - {w}\n"));
+                let _ = writeln!(s, "  - {w}");
             }
         }
         if !self.component_notes.is_empty() {
             s.push_str("\nComponent notes\n");
             for (id, n) in &self.component_notes {
-                s.push_str(&format!("  - {id}: {n}\n"));
+                let _ = writeln!(s, "  - {id}: {n}");
             }
         }
-        s.push_str(&format!("\nCaution: {}\n", self.caution));
+        let _ = write!(s, "\nCaution: {}\n", self.caution);
         let _ = T_REF;
         s
     }

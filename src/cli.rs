@@ -72,11 +72,7 @@ fn calc(path: &std::path::Path, json: bool) -> ExitCode {
             return ExitCode::from(EXIT_CONFIG);
         }
     };
-    let text = if json {
-        report.to_json()
-    } else {
-        report.to_text()
-    };
+    let text = if json { report.to_json() } else { report.to_text() };
     let mut out = std::io::stdout().lock();
     match writeln!(out, "{text}") {
         Ok(()) => ExitCode::SUCCESS,
@@ -89,6 +85,7 @@ fn calc(path: &std::path::Path, json: bool) -> ExitCode {
 }
 
 #[cfg(test)]
+#[allow(clippy::unwrap_used)]
 mod tests {
     use clap::CommandFactory;
 

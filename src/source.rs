@@ -35,13 +35,7 @@ impl KeyPath {
 
     /// Parse a dotted path whose segments are plain keys (`"model.enthalpy"`).
     pub fn keys(dotted: &str) -> Self {
-        KeyPath(
-            dotted
-                .split('.')
-                .filter(|s| !s.is_empty())
-                .map(|s| Seg::Key(s.to_string()))
-                .collect(),
-        )
+        KeyPath(dotted.split('.').filter(|s| !s.is_empty()).map(|s| Seg::Key(s.to_string())).collect())
     }
 
     /// This path extended by a key.
@@ -149,10 +143,7 @@ pub struct SourceText {
 impl SourceText {
     /// Wrap text read from `path`.
     pub fn new(path: impl Into<PathBuf>, text: impl Into<String>) -> Self {
-        SourceText {
-            path: path.into(),
-            text: text.into(),
-        }
+        SourceText { path: path.into(), text: text.into() }
     }
 
     /// Read a file; the error is located at the file itself.
@@ -160,11 +151,7 @@ impl SourceText {
         match std::fs::read_to_string(path) {
             Ok(text) => Ok(SourceText::new(path, text)),
             Err(e) => Err(LocatedError {
-                location: Location {
-                    file: path.to_path_buf(),
-                    line_col: None,
-                    key: None,
-                },
+                location: Location { file: path.to_path_buf(), line_col: None, key: None },
                 message: format!("cannot read the file: {e}"),
             }),
         }
@@ -207,54 +194,53 @@ impl SourceText {
     pub fn locate(&self, key: &KeyPath) -> Location {
         Location {
             file: self.path.clone(),
-            line_col: self.span_of(key).map(|s| self.line_col(s.start)),
+            // A key whose tables are all missing is reported at the top of the file.
+            line_col: Some(self.span_of(key).map_or((1, 1), |s| self.line_col(s.start))),
             key: Some(key.clone()),
         }
     }
 
     /// A located error at a key path.
     pub fn error_at(&self, key: &KeyPath, message: impl Into<String>) -> LocatedError {
-        LocatedError {
-            location: self.locate(key),
-            message: message.into(),
-        }
+        LocatedError { location: self.locate(key), message: message.into() }
     }
 
-    /// The deepest key path whose value span contains `offset` (for serde errors, which carry a
-    /// span but no path).
+    /// The deepest key path whose value (or key) span contains `offset` (for serde errors,
+    /// which carry a span but no path). Every node is searched: the span of a table opened by
+    /// a `[header]` does not cover its body.
     pub fn key_at(&self, offset: usize) -> Option<KeyPath> {
-        let doc = DeTable::parse(&self.text).ok()?;
-        let root = DeValue::Table(doc.into_inner());
-        let mut path = KeyPath::root();
-        let mut node = &root;
-        'descend: loop {
+        fn search(node: &DeValue<'_>, offset: usize, path: &mut KeyPath) -> bool {
             match node {
                 DeValue::Table(table) => {
                     for (k, v) in table.iter() {
-                        let span = v.span();
-                        let kspan = k.span();
-                        if span.contains(&offset) || kspan.contains(&offset) {
-                            path.0.push(Seg::Key(k.get_ref().to_string()));
-                            node = v.get_ref();
-                            continue 'descend;
+                        path.0.push(Seg::Key(k.get_ref().to_string()));
+                        if search(v.get_ref(), offset, path)
+                            || v.span().contains(&offset)
+                            || k.span().contains(&offset)
+                        {
+                            return true;
                         }
+                        path.0.pop();
                     }
-                    break;
+                    false
                 }
                 DeValue::Array(items) => {
                     for (i, v) in items.iter().enumerate() {
-                        if v.span().contains(&offset) {
-                            path.0.push(Seg::Index(i));
-                            node = v.get_ref();
-                            continue 'descend;
+                        path.0.push(Seg::Index(i));
+                        if search(v.get_ref(), offset, path) || v.span().contains(&offset) {
+                            return true;
                         }
+                        path.0.pop();
                     }
-                    break;
+                    false
                 }
-                _ => break,
+                _ => false,
             }
         }
-        if path.0.is_empty() { None } else { Some(path) }
+        let doc = DeTable::parse(&self.text).ok()?;
+        let root = DeValue::Table(doc.into_inner());
+        let mut path = KeyPath::root();
+        if search(&root, offset, &mut path) { Some(path) } else { None }
     }
 
     /// Deserialize the whole document (stage one), turning serde errors into located errors.
@@ -274,6 +260,7 @@ impl SourceText {
 }
 
 #[cfg(test)]
+#[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
 
@@ -284,17 +271,9 @@ mod tests {
         let src = SourceText::new("case.toml", DOC);
         let loc = src.locate(&KeyPath::keys("model.enthalpy"));
         assert_eq!(loc.line_col, Some((2, 12)));
-        let loc = src.locate(
-            &KeyPath::keys("feed")
-                .index(1)
-                .key("composition")
-                .key("water"),
-        );
+        let loc = src.locate(&KeyPath::keys("feed").index(1).key("composition").key("water"));
         assert_eq!(loc.line_col.map(|(l, _)| l), Some(9));
-        assert_eq!(
-            loc.to_string(),
-            "case.toml:9:25: `feed[2].composition.water`"
-        );
+        assert_eq!(loc.to_string(), "case.toml:9:25: `feed[2].composition.water`");
     }
 
     #[test]
@@ -308,9 +287,6 @@ mod tests {
     fn key_at_offset() {
         let src = SourceText::new("case.toml", DOC);
         let offset = DOC.find("2.0").unwrap_or_default();
-        assert_eq!(
-            src.key_at(offset).map(|k| k.to_string()).as_deref(),
-            Some("feed[2].flow")
-        );
+        assert_eq!(src.key_at(offset).map(|k| k.to_string()).as_deref(), Some("feed[2].flow"));
     }
 }

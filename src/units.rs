@@ -97,19 +97,14 @@ impl fmt::Display for Unit {
     }
 }
 
-const LB: f64 = 0.453_592_37;
+const LB: f64 = 0.45359237;
 const CAL_IT: f64 = 4.1868;
-const BTU_IT: f64 = 1055.055_852_62;
+const BTU_IT: f64 = 1055.05585262;
 const H: f64 = 3600.0;
 const MIN: f64 = 60.0;
 
 const fn u(symbol: &'static str, quantity: Quantity, scale: f64, offset: f64) -> Unit {
-    Unit {
-        symbol,
-        quantity,
-        scale,
-        offset,
-    }
+    Unit { symbol, quantity, scale, offset }
 }
 
 /// Every accepted unit, canonical symbols first within each quantity.
@@ -162,12 +157,7 @@ const UNITS: &[Unit] = &[
     u("bar", Quantity::Pressure, 1e5, 0.0),
     u("mbar", Quantity::Pressure, 1e2, 0.0),
     u("atm", Quantity::Pressure, 101_325.0, 0.0),
-    u(
-        "psi",
-        Quantity::Pressure,
-        LB * 9.806_65 / (0.0254 * 0.0254),
-        0.0,
-    ),
+    u("psi", Quantity::Pressure, LB * 9.80665 / (0.0254 * 0.0254), 0.0),
     u("mmHg", Quantity::Pressure, 101_325.0 / 760.0, 0.0),
     // molar energy
     u("J/mol", Quantity::MolarEnergy, 1.0, 0.0),
@@ -202,22 +192,14 @@ const GAUGE: &[&str] = &["barg", "psig", "kPag", "kPa(g)", "bar(g)", "psi(g)"];
 
 /// Look up a unit by symbol (or alias) for a quantity.
 pub fn lookup(quantity: Quantity, symbol: &str) -> Option<&'static Unit> {
-    let canonical = ALIASES
-        .iter()
-        .find(|(alias, _)| *alias == symbol)
-        .map_or(symbol, |(_, canonical)| canonical);
-    UNITS
-        .iter()
-        .find(|unit| unit.quantity == quantity && unit.symbol == canonical)
+    let canonical =
+        ALIASES.iter().find(|(alias, _)| *alias == symbol).map_or(symbol, |(_, canonical)| canonical);
+    UNITS.iter().find(|unit| unit.quantity == quantity && unit.symbol == canonical)
 }
 
 /// The canonical symbols accepted for a quantity, in table order.
 pub fn accepted(quantity: Quantity) -> Vec<&'static str> {
-    UNITS
-        .iter()
-        .filter(|unit| unit.quantity == quantity)
-        .map(|unit| unit.symbol)
-        .collect()
+    UNITS.iter().filter(|unit| unit.quantity == quantity).map(|unit| unit.symbol).collect()
 }
 
 /// Why a value with a unit could not be read.
@@ -269,11 +251,7 @@ fn split_number(text: &str) -> Option<(f64, &str)> {
     // Longest prefix that parses as a float; scanning at char boundaries keeps this simple and
     // correct for exponents ("1e5 Pa") and for units that begin with 'e' (none do today).
     let mut best = None;
-    for (i, _) in text
-        .char_indices()
-        .skip(1)
-        .chain(std::iter::once((text.len(), ' ')))
-    {
+    for (i, _) in text.char_indices().skip(1).chain(std::iter::once((text.len(), ' '))) {
         let head = &text[..i];
         if let Ok(v) = head.trim_end().parse::<f64>() {
             best = Some((v, text[i..].trim()));
@@ -286,22 +264,12 @@ fn split_number(text: &str) -> Option<(f64, &str)> {
 /// quantity matched (the first in `quantities` whose unit table contains the unit).
 pub fn parse_any(text: &str, quantities: &[Quantity]) -> Result<(f64, Quantity), UnitError> {
     let Some((value, unit_text)) = split_number(text) else {
-        return Err(UnitError::NotANumber {
-            text: text.trim().to_string(),
-        });
+        return Err(UnitError::NotANumber { text: text.trim().to_string() });
     };
     if !value.is_finite() {
-        return Err(UnitError::NotFinite {
-            text: text.trim().to_string(),
-        });
+        return Err(UnitError::NotFinite { text: text.trim().to_string() });
     }
-    let list = || {
-        quantities
-            .iter()
-            .flat_map(|q| accepted(*q))
-            .collect::<Vec<_>>()
-            .join(", ")
-    };
+    let list = || quantities.iter().flat_map(|q| accepted(*q)).collect::<Vec<_>>().join(", ");
     if unit_text.is_empty() {
         return Err(UnitError::MissingUnit {
             text: text.trim().to_string(),
@@ -310,9 +278,7 @@ pub fn parse_any(text: &str, quantities: &[Quantity]) -> Result<(f64, Quantity),
         });
     }
     if GAUGE.iter().any(|g| g.eq_ignore_ascii_case(unit_text)) {
-        return Err(UnitError::GaugePressure {
-            unit: unit_text.to_string(),
-        });
+        return Err(UnitError::GaugePressure { unit: unit_text.to_string() });
     }
     for &quantity in quantities {
         if let Some(unit) = lookup(quantity, unit_text) {
@@ -337,6 +303,7 @@ pub fn format_in(si: f64, unit: &Unit, decimals: usize) -> String {
 }
 
 #[cfg(test)]
+#[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
 
@@ -346,51 +313,24 @@ mod tests {
 
     #[test]
     fn temperatures() {
-        assert!(close(
-            parse("57 degC", Quantity::Temperature).unwrap(),
-            330.15
-        ));
-        assert!(close(
-            parse("57degC", Quantity::Temperature).unwrap(),
-            330.15
-        ));
-        assert!(close(
-            parse("57 °C", Quantity::Temperature).unwrap(),
-            330.15
-        ));
+        assert!(close(parse("57 degC", Quantity::Temperature).unwrap(), 330.15));
+        assert!(close(parse("57degC", Quantity::Temperature).unwrap(), 330.15));
+        assert!(close(parse("57 °C", Quantity::Temperature).unwrap(), 330.15));
         // Source: definition of the Fahrenheit scale (32 °F = 273.15 K, 212 °F = 373.15 K).
-        assert!(close(
-            parse("32 degF", Quantity::Temperature).unwrap(),
-            273.15
-        ));
-        assert!(close(
-            parse("212 degF", Quantity::Temperature).unwrap(),
-            373.15
-        ));
-        assert!(close(
-            parse("1.8 degF", Quantity::TemperatureDifference).unwrap(),
-            1.0
-        ));
+        assert!(close(parse("32 degF", Quantity::Temperature).unwrap(), 273.15));
+        assert!(close(parse("212 degF", Quantity::Temperature).unwrap(), 373.15));
+        assert!(close(parse("1.8 degF", Quantity::TemperatureDifference).unwrap(), 1.0));
     }
 
     #[test]
     fn flows_and_duties() {
-        assert!(close(
-            parse("3.6 kmol/h", Quantity::MolarFlow).unwrap(),
-            1.0
-        ));
+        assert!(close(parse("3.6 kmol/h", Quantity::MolarFlow).unwrap(), 1.0));
         assert!(close(parse("3.6 t/h", Quantity::MassFlow).unwrap(), 1.0));
         assert!(close(parse("3.2 MW", Quantity::Power).unwrap(), 3.2e6));
         // Source: 1 Btu(IT) = 1055.05585262 J (ISO 31-4 / NIST SP 811 appendix B).
-        assert!(close(
-            parse("1 MMBtu/h", Quantity::Power).unwrap(),
-            1.05505585262e9 / 3600.0
-        ));
+        assert!(close(parse("1 MMBtu/h", Quantity::Power).unwrap(), 1.05505585262e9 / 3600.0));
         // Source: 1 cal(IT) = 4.1868 J (NIST SP 811 appendix B).
-        assert!(close(
-            parse("1 Gcal/h", Quantity::Power).unwrap(),
-            4.1868e9 / 3600.0
-        ));
+        assert!(close(parse("1 Gcal/h", Quantity::Power).unwrap(), 4.1868e9 / 3600.0));
         // Source: NIST SP 811 appendix B: 1 psi = 6894.757 Pa; 1 bar = 1e5 Pa.
         assert!((parse("1 psi", Quantity::Pressure).unwrap() - 6894.757).abs() < 1e-3);
         assert!(close(parse("2.5 bar", Quantity::Pressure).unwrap(), 2.5e5));
@@ -403,37 +343,22 @@ mod tests {
         let msg = err.to_string();
         assert!(msg.contains("unknown unit `furlongs`"), "{msg}");
         assert!(msg.contains("MMBtu/h"), "{msg}");
-        assert!(matches!(
-            parse("3 barg", Quantity::Pressure),
-            Err(UnitError::GaugePressure { .. })
-        ));
-        assert!(matches!(
-            parse("abc", Quantity::Power),
-            Err(UnitError::NotANumber { .. })
-        ));
-        assert!(matches!(
-            parse("12", Quantity::Power),
-            Err(UnitError::MissingUnit { .. })
-        ));
-        assert!(matches!(
-            parse("inf W", Quantity::Power),
-            Err(UnitError::NotFinite { .. })
-        ));
+        assert!(matches!(parse("3 barg", Quantity::Pressure), Err(UnitError::GaugePressure { .. })));
+        assert!(matches!(parse("abc", Quantity::Power), Err(UnitError::NotANumber { .. })));
+        assert!(matches!(parse("12", Quantity::Power), Err(UnitError::MissingUnit { .. })));
+        assert!(matches!(parse("inf W", Quantity::Power), Err(UnitError::NotFinite { .. })));
     }
 
     #[test]
     fn flow_picks_molar_or_mass() {
         let both = [Quantity::MolarFlow, Quantity::MassFlow];
-        assert_eq!(
-            parse_any("850 kmol/h", &both).unwrap().1,
-            Quantity::MolarFlow
-        );
+        assert_eq!(parse_any("850 kmol/h", &both).unwrap().1, Quantity::MolarFlow);
         assert_eq!(parse_any("12.5 t/h", &both).unwrap().1, Quantity::MassFlow);
     }
 }
 
 /// A number as written in a TOML input: bare (SI) or a string with a unit.
-#[derive(Debug, Clone, PartialEq, serde::Deserialize, serde::Serialize)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 #[serde(untagged)]
 pub enum Number {
     /// A bare number, read in the quantity's SI unit.
@@ -451,26 +376,20 @@ impl Number {
     /// The SI value and the matching quantity, trying each quantity in turn.
     pub fn si_any(&self, quantities: &[Quantity]) -> Result<(f64, Quantity), UnitError> {
         match self {
-            Number::Plain(v) if v.is_finite() => Ok((
-                *v,
-                quantities
-                    .first()
-                    .copied()
-                    .unwrap_or(Quantity::Dimensionless),
-            )),
-            Number::Plain(v) => Err(UnitError::NotFinite {
-                text: v.to_string(),
-            }),
+            Number::Plain(v) if v.is_finite() => {
+                Ok((*v, quantities.first().copied().unwrap_or(Quantity::Dimensionless)))
+            }
+            Number::Plain(v) => Err(UnitError::NotFinite { text: v.to_string() }),
             Number::Text(t) => {
                 // A fraction may be written as a bare number inside a string ("0.3").
-                if quantities == [Quantity::Dimensionless] {
-                    if let Ok(v) = t.trim().parse::<f64>() {
-                        return if v.is_finite() {
-                            Ok((v, Quantity::Dimensionless))
-                        } else {
-                            Err(UnitError::NotFinite { text: t.clone() })
-                        };
-                    }
+                if quantities == [Quantity::Dimensionless]
+                    && let Ok(v) = t.trim().parse::<f64>()
+                {
+                    return if v.is_finite() {
+                        Ok((v, Quantity::Dimensionless))
+                    } else {
+                        Err(UnitError::NotFinite { text: t.clone() })
+                    };
                 }
                 parse_any(t, quantities)
             }
@@ -483,5 +402,30 @@ impl Number {
             Number::Plain(v) => v.to_string(),
             Number::Text(t) => t.trim().to_string(),
         }
+    }
+}
+
+impl<'de> serde::Deserialize<'de> for Number {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl serde::de::Visitor<'_> for V {
+            type Value = Number;
+            fn expecting(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+                f.write_str("a number (SI) or a string with a unit, e.g. \"57 degC\"")
+            }
+            fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<Number, E> {
+                Ok(Number::Plain(v))
+            }
+            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<Number, E> {
+                Ok(Number::Plain(v as f64))
+            }
+            fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<Number, E> {
+                Ok(Number::Plain(v as f64))
+            }
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<Number, E> {
+                Ok(Number::Text(v.to_string()))
+            }
+        }
+        d.deserialize_any(V)
     }
 }

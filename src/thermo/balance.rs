@@ -81,9 +81,7 @@ pub enum SystemError {
         liq: String,
     },
     /// A reaction's key component is not consumed.
-    #[error(
-        "reaction {reaction}: key component `{component}` must be a reactant (negative coefficient)"
-    )]
+    #[error("reaction {reaction}: key component `{component}` must be a reactant (negative coefficient)")]
     KeyNotReactant {
         /// Reaction index (0-based).
         reaction: usize,
@@ -173,20 +171,12 @@ impl System {
             if reaction.nu.get(reaction.key).copied().unwrap_or(0.0) >= 0.0 {
                 return Err(SystemError::KeyNotReactant {
                     reaction: r,
-                    component: components
-                        .get(reaction.key)
-                        .map(|c| c.id.clone())
-                        .unwrap_or_default(),
+                    component: components.get(reaction.key).map(|c| c.id.clone()).unwrap_or_default(),
                 });
             }
             // Element conservation, when every participant has a formula.
-            let participants: Vec<usize> = (0..components.len())
-                .filter(|&i| reaction.nu[i] != 0.0)
-                .collect();
-            if participants
-                .iter()
-                .all(|&i| components[i].formula.is_some())
-            {
+            let participants: Vec<usize> = (0..components.len()).filter(|&i| reaction.nu[i] != 0.0).collect();
+            if participants.iter().all(|&i| components[i].formula.is_some()) {
                 let mut net: Vec<(String, f64)> = Vec::new();
                 for &i in &participants {
                     if let Some(f) = &components[i].formula {
@@ -198,28 +188,15 @@ impl System {
                         }
                     }
                 }
-                let bad: Vec<String> = net
-                    .iter()
-                    .filter(|(_, n)| n.abs() > 1e-9)
-                    .map(|(e, n)| format!("{e} {n:+}"))
-                    .collect();
+                let bad: Vec<String> =
+                    net.iter().filter(|(_, n)| n.abs() > 1e-9).map(|(e, n)| format!("{e} {n:+}")).collect();
                 if !bad.is_empty() {
-                    return Err(SystemError::Unbalanced {
-                        reaction: r,
-                        detail: bad.join(", "),
-                    });
+                    return Err(SystemError::Unbalanced { reaction: r, detail: bad.join(", ") });
                 }
             }
         }
         let psat = components.iter().map(PsatModel::for_component).collect();
-        Ok(System {
-            components,
-            paths,
-            models,
-            psat,
-            reactions,
-            bounds,
-        })
+        Ok(System { components, paths, models, psat, reactions, bounds })
     }
 
     /// Number of components.
@@ -261,11 +238,7 @@ impl System {
     ) -> Result<(f64, Method), SolveError> {
         let (lo, hi) = self.bounds;
         // Residual tolerance: the enthalpy change of 1e-10 K, at least.
-        let tol = Tolerance {
-            xtol: 1e-10,
-            ftol: 0.0,
-            ..Tolerance::default()
-        };
+        let tol = Tolerance { xtol: 1e-10, ftol: 0.0, ..Tolerance::default() };
         let root = newton_brent(
             |t| {
                 let (h, c) = self.stream_h_cp(out_flows, t);
@@ -301,18 +274,10 @@ impl System {
     pub fn mole_fractions(&self, fractions: &[f64], basis: Basis) -> Vec<f64> {
         let raw: Vec<f64> = match basis {
             Basis::Mole => fractions.to_vec(),
-            Basis::Mass => fractions
-                .iter()
-                .zip(&self.components)
-                .map(|(w, c)| w / c.molar_mass)
-                .collect(),
+            Basis::Mass => fractions.iter().zip(&self.components).map(|(w, c)| w / c.molar_mass).collect(),
         };
         let total: f64 = raw.iter().sum();
-        if total == 0.0 {
-            raw
-        } else {
-            raw.iter().map(|v| v / total).collect()
-        }
+        if total == 0.0 { raw } else { raw.iter().map(|v| v / total).collect() }
     }
 
     /// Component molar flows (mol/s) of a feed.
@@ -321,11 +286,7 @@ impl System {
         let total = match feed.flow {
             FlowValue::Molar(n) => n,
             FlowValue::Mass(m) => {
-                let mw: f64 = x
-                    .iter()
-                    .zip(&self.components)
-                    .map(|(x, c)| x * c.molar_mass)
-                    .sum();
+                let mw: f64 = x.iter().zip(&self.components).map(|(x, c)| x * c.molar_mass).sum();
                 if mw > 0.0 { m * 1000.0 / mw } else { 0.0 }
             }
         };
@@ -583,11 +544,7 @@ impl Flag {
     pub fn code(&self) -> String {
         match self {
             Flag::AboveCritical { component, .. } => format!("beyond_tc:{component}"),
-            Flag::OutsideRange {
-                component,
-                correlation,
-                ..
-            } => {
+            Flag::OutsideRange { component, correlation, .. } => {
                 format!("range_{}:{component}", correlation.code())
             }
             Flag::TwoPhaseRisk { .. } => "two_phase_risk".into(),
@@ -606,12 +563,7 @@ impl fmt::Display for Flag {
                 f,
                 "{component} is at {t:.2} K, at or above its critical temperature {tc:.2} K: it cannot be a liquid, the liquid-phase balance does not apply"
             ),
-            Flag::OutsideRange {
-                component,
-                correlation,
-                t,
-                range,
-            } => write!(
+            Flag::OutsideRange { component, correlation, t, range } => write!(
                 f,
                 "{component}: {} correlation evaluated at {t:.2} K, outside its published range {:.2}-{:.2} K (extrapolated)",
                 correlation.name(),
@@ -622,11 +574,7 @@ impl fmt::Display for Flag {
                 f,
                 "two-phase risk: effluent at {t_out:.2} K is at or above its ideal bubble point {t_bubble:.2} K; the liquid-only balance overstates the temperature"
             ),
-            Flag::NearBubblePoint {
-                t_out,
-                t_bubble,
-                margin,
-            } => write!(
+            Flag::NearBubblePoint { t_out, t_bubble, margin } => write!(
                 f,
                 "effluent at {t_out:.2} K is within {margin:.1} K of its ideal (Raoult) bubble point {t_bubble:.2} K; real mixtures that deviate positively from Raoult's law boil lower"
             ),
@@ -704,16 +652,7 @@ pub struct Outcome {
 impl Outcome {
     /// Effluent mole fractions.
     pub fn out_fractions(&self) -> Vec<f64> {
-        self.out_flows
-            .iter()
-            .map(|n| {
-                if self.out_total > 0.0 {
-                    n / self.out_total
-                } else {
-                    0.0
-                }
-            })
-            .collect()
+        self.out_flows.iter().map(|n| if self.out_total > 0.0 { n / self.out_total } else { 0.0 }).collect()
     }
 }
 
@@ -769,16 +708,9 @@ impl System {
             }
             Effluent::Measured { fractions, basis } => {
                 let x = self.mole_fractions(fractions, *basis);
-                let mass_in: f64 = feed_total
-                    .iter()
-                    .zip(&self.components)
-                    .map(|(n, c)| n * c.molar_mass)
-                    .sum();
-                let mw_out: f64 = x
-                    .iter()
-                    .zip(&self.components)
-                    .map(|(x, c)| x * c.molar_mass)
-                    .sum();
+                let mass_in: f64 =
+                    feed_total.iter().zip(&self.components).map(|(n, c)| n * c.molar_mass).sum();
+                let mw_out: f64 = x.iter().zip(&self.components).map(|(x, c)| x * c.molar_mass).sum();
                 let total = if mw_out > 0.0 { mass_in / mw_out } else { 0.0 };
                 x.iter().map(|x| x * total).collect()
             }
@@ -797,13 +729,7 @@ impl System {
                 }
             }
         }
-        Ok(Streams {
-            feed_flows,
-            feed_total,
-            out_flows,
-            extents,
-            conversions,
-        })
+        Ok(Streams { feed_flows, feed_total, out_flows, extents, conversions })
     }
 
     /// Inlet enthalpy flow, W.
@@ -827,19 +753,17 @@ impl System {
         match unknown {
             Unknown::Duty => inputs.duty = Some(value),
             Unknown::Conversion(r) => {
-                if let Effluent::Reacted { conversions } = &mut inputs.effluent {
-                    if let Some(c) = conversions.get_mut(r) {
-                        *c = Some(value);
-                    }
+                if let Effluent::Reacted { conversions } = &mut inputs.effluent
+                    && let Some(c) = conversions.get_mut(r)
+                {
+                    *c = Some(value);
                 }
             }
             Unknown::Temperature => {}
         }
         match self.streams(&inputs, false) {
             Ok(s) => {
-                self.stream_h(&s.out_flows, t)
-                    - self.inlet_enthalpy(&inputs, &s)
-                    - inputs.duty.unwrap_or(0.0)
+                self.stream_h(&s.out_flows, t) - self.inlet_enthalpy(&inputs, &s) - inputs.duty.unwrap_or(0.0)
                     + inputs.heat_loss
             }
             Err(_) => f64::NAN,
@@ -873,17 +797,13 @@ impl System {
         let h_in = self.inlet_enthalpy(inputs, &streams);
         let need_t = |what: &str| {
             inputs.effluent_temperature.ok_or_else(|| {
-                SolveError::MissingInput(format!(
-                    "solving for the {what} needs the effluent temperature"
-                ))
+                SolveError::MissingInput(format!("solving for the {what} needs the effluent temperature"))
             })
         };
         let (t_out, duty, method) = match unknown {
             Unknown::Temperature => {
                 let duty = inputs.duty.ok_or_else(|| {
-                    SolveError::MissingInput(
-                        "solving for the temperature needs the heater duty".into(),
-                    )
+                    SolveError::MissingInput("solving for the temperature needs the heater duty".into())
                 })?;
                 let target = h_in + duty - inputs.heat_loss;
                 // Start from the flow-weighted feed temperature.
@@ -905,9 +825,7 @@ impl System {
             Unknown::Conversion(r) => {
                 let t = need_t("conversion")?;
                 let duty = inputs.duty.ok_or_else(|| {
-                    SolveError::MissingInput(
-                        "solving for the conversion needs the heater duty".into(),
-                    )
+                    SolveError::MissingInput("solving for the conversion needs the heater duty".into())
                 })?;
                 let reaction = &self.reactions[r];
                 let key_in = self.key_feed(&streams.feed_total, r);
@@ -922,11 +840,7 @@ impl System {
                 let dh = self.reaction_enthalpy(r, t);
                 let per_key = dh / -reaction.nu[reaction.key];
                 if per_key.abs() < 1.0 {
-                    return Err(SolveError::ThermallyNeutral {
-                        reaction: r,
-                        t,
-                        dh: per_key,
-                    });
+                    return Err(SolveError::ThermallyNeutral { reaction: r, t, dh: per_key });
                 }
                 let xi = -f0 / dh;
                 let x = xi * -reaction.nu[reaction.key] / key_in;
@@ -949,20 +863,11 @@ impl System {
         };
         let (h_out, cp_out) = self.stream_h_cp(&streams.out_flows, t_out);
         let out_total: f64 = streams.out_flows.iter().sum();
-        let out_mass = streams
-            .out_flows
-            .iter()
-            .zip(&self.components)
-            .map(|(n, c)| n * c.molar_mass)
-            .sum::<f64>()
-            / 1000.0;
+        let out_mass =
+            streams.out_flows.iter().zip(&self.components).map(|(n, c)| n * c.molar_mass).sum::<f64>()
+                / 1000.0;
         let heats_of_reaction = (0..self.reactions.len())
-            .map(|r| {
-                (
-                    self.heat_of_reaction(r, T_REF),
-                    self.heat_of_reaction(r, t_out),
-                )
-            })
+            .map(|r| (self.heat_of_reaction(r, T_REF), self.heat_of_reaction(r, t_out)))
             .collect();
 
         let mut outcome = Outcome {
@@ -992,21 +897,13 @@ impl System {
 
     fn element_balance(&self, outcome: &mut Outcome) {
         let used = |flows: &[f64]| {
-            flows
-                .iter()
-                .enumerate()
-                .filter(|(_, n)| **n != 0.0)
-                .map(|(i, _)| i)
-                .collect::<Vec<_>>()
+            flows.iter().enumerate().filter(|(_, n)| **n != 0.0).map(|(i, _)| i).collect::<Vec<_>>()
         };
         let mut involved: Vec<usize> = used(&outcome.out_flows);
         for f in &outcome.feed_flows {
             involved.extend(used(f));
         }
-        if involved
-            .iter()
-            .any(|&i| self.components[i].formula.is_none())
-        {
+        if involved.iter().any(|&i| self.components[i].formula.is_none()) {
             return;
         }
         let mut elements: Vec<(String, f64, f64)> = Vec::new();
@@ -1041,16 +938,9 @@ impl System {
             }
         }
         for (el, a_in, a_out) in &elements {
-            let rel = if *a_in != 0.0 {
-                (a_out - a_in) / a_in
-            } else {
-                0.0
-            };
+            let rel = if *a_in != 0.0 { (a_out - a_in) / a_in } else { 0.0 };
             if rel.abs() > 1e-3 {
-                outcome.flags.push(Flag::ElementImbalance {
-                    element: el.clone(),
-                    relative: rel,
-                });
+                outcome.flags.push(Flag::ElementImbalance { element: el.clone(), relative: rel });
             }
         }
         outcome.elements = elements;
@@ -1061,25 +951,17 @@ impl System {
         let check = |i: usize, t: f64, flags: &mut Vec<Flag>| {
             let c = &self.components[i];
             if t >= c.tc
-                && !flags.iter().any(
-                    |f| matches!(f, Flag::AboveCritical { component, .. } if *component == c.id),
-                )
+                && !flags
+                    .iter()
+                    .any(|f| matches!(f, Flag::AboveCritical { component, .. } if *component == c.id))
             {
-                flags.push(Flag::AboveCritical {
-                    component: c.id.clone(),
-                    t,
-                    tc: c.tc,
-                });
+                flags.push(Flag::AboveCritical { component: c.id.clone(), t, tc: c.tc });
             }
             let (corr, range) = match self.paths[i] {
-                EnthalpyPath::LiquidCp => (
-                    Correlation::CpLiquid,
-                    c.liquid.as_ref().and_then(|l| l.cp_range),
-                ),
-                EnthalpyPath::IdealGasWatson => (
-                    Correlation::CpIdealGas,
-                    c.ideal_gas.as_ref().and_then(|g| g.cp_range),
-                ),
+                EnthalpyPath::LiquidCp => (Correlation::CpLiquid, c.liquid.as_ref().and_then(|l| l.cp_range)),
+                EnthalpyPath::IdealGasWatson => {
+                    (Correlation::CpIdealGas, c.ideal_gas.as_ref().and_then(|g| g.cp_range))
+                }
             };
             if let Some((lo, hi)) = range {
                 // The integral runs from 298.15 K to T: both ends must be inside the range.
@@ -1111,10 +993,7 @@ impl System {
         }
         for (r, &x) in outcome.conversions.iter().enumerate() {
             if !(0.0..=1.0).contains(&x) {
-                flags.push(Flag::ConversionOutOfRange {
-                    reaction: r,
-                    value: x,
-                });
+                flags.push(Flag::ConversionOutOfRange { reaction: r, value: x });
             }
         }
         if let Some(p) = inputs.pressure {
@@ -1127,33 +1006,26 @@ impl System {
                 .map(|(_, c)| c.id.as_str())
                 .collect();
             if missing.is_empty() {
-                let models: Vec<PsatModel> = self
-                    .psat
-                    .iter()
-                    .map(|m| m.unwrap_or(PsatModel::Dippr101([0.0; 5])))
-                    .collect();
+                let models: Vec<PsatModel> =
+                    self.psat.iter().map(|m| m.unwrap_or(PsatModel::Dippr101([0.0; 5]))).collect();
                 match bubble_point(&models, &x, p) {
                     Ok((t_b, y)) => {
                         for (i, c) in self.components.iter().enumerate() {
-                            if x[i] > 0.0 {
-                                if let Some((lo, hi)) = c.psat.as_ref().and_then(|d| d.range) {
-                                    if t_b < lo || t_b > hi {
-                                        flags.push(Flag::OutsideRange {
-                                            component: c.id.clone(),
-                                            correlation: Correlation::VapourPressure,
-                                            t: t_b,
-                                            range: (lo, hi),
-                                        });
-                                    }
-                                }
+                            if x[i] > 0.0
+                                && let Some((lo, hi)) = c.psat.as_ref().and_then(|d| d.range)
+                                && (t_b < lo || t_b > hi)
+                            {
+                                flags.push(Flag::OutsideRange {
+                                    component: c.id.clone(),
+                                    correlation: Correlation::VapourPressure,
+                                    t: t_b,
+                                    range: (lo, hi),
+                                });
                             }
                         }
                         let margin = t_b - outcome.t_out;
                         if margin <= 0.0 {
-                            flags.push(Flag::TwoPhaseRisk {
-                                t_out: outcome.t_out,
-                                t_bubble: t_b,
-                            });
+                            flags.push(Flag::TwoPhaseRisk { t_out: outcome.t_out, t_bubble: t_b });
                         } else if margin < inputs.bubble_margin {
                             flags.push(Flag::NearBubblePoint {
                                 t_out: outcome.t_out,
@@ -1161,16 +1033,9 @@ impl System {
                                 margin: inputs.bubble_margin,
                             });
                         }
-                        outcome.bubble = Some(BubblePoint {
-                            t: t_b,
-                            pressure: p,
-                            y,
-                            margin,
-                        });
+                        outcome.bubble = Some(BubblePoint { t: t_b, pressure: p, y, margin });
                     }
-                    Err(e) => flags.push(Flag::BubblePointUnavailable {
-                        reason: e.to_string(),
-                    }),
+                    Err(e) => flags.push(Flag::BubblePointUnavailable { reason: e.to_string() }),
                 }
             } else {
                 flags.push(Flag::BubblePointUnavailable {

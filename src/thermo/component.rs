@@ -150,11 +150,7 @@ pub struct Formula(pub Vec<(String, f64)>);
 impl Formula {
     /// Parse a formula with optional parentheses and counts: `CH3(CH2)4CH3`, `C2H6O2`.
     pub fn parse(text: &str) -> Result<Formula, String> {
-        fn group(
-            chars: &[char],
-            pos: &mut usize,
-            depth: usize,
-        ) -> Result<BTreeMap<String, f64>, String> {
+        fn group(chars: &[char], pos: &mut usize, depth: usize) -> Result<BTreeMap<String, f64>, String> {
             let mut counts = BTreeMap::new();
             while *pos < chars.len() {
                 let c = chars[*pos];
@@ -197,11 +193,7 @@ impl Formula {
             if start == *pos {
                 1.0
             } else {
-                chars[start..*pos]
-                    .iter()
-                    .collect::<String>()
-                    .parse()
-                    .unwrap_or(1.0)
+                chars[start..*pos].iter().collect::<String>().parse().unwrap_or(1.0)
             }
         }
         let chars: Vec<char> = text.trim().chars().collect();
@@ -218,10 +210,7 @@ impl Formula {
 
     /// Count of one element (0 when absent).
     pub fn count(&self, element: &str) -> f64 {
-        self.0
-            .iter()
-            .find(|(e, _)| e == element)
-            .map_or(0.0, |(_, n)| *n)
+        self.0.iter().find(|(e, _)| e == element).map_or(0.0, |(_, n)| *n)
     }
 }
 
@@ -316,8 +305,7 @@ impl Component {
     /// Check a (merged) spec. Returns every problem found.
     pub fn from_spec(id: &str, spec: &ComponentSpec) -> Result<Component, Vec<FieldError>> {
         let mut errs: Vec<FieldError> = Vec::new();
-        let mut err =
-            |field: &'static str, message: String| errs.push(FieldError { field, message });
+        let mut err = |field: &'static str, message: String| errs.push(FieldError { field, message });
 
         let num = |field: &'static str,
                    v: &Option<Number>,
@@ -329,22 +317,14 @@ impl Component {
                 Some(n) => match n.si(q) {
                     Ok(x) => Some(x),
                     Err(e) => {
-                        errs.push(FieldError {
-                            field,
-                            message: e.to_string(),
-                        });
+                        errs.push(FieldError { field, message: e.to_string() });
                         None
                     }
                 },
             }
         };
         let mut local: Vec<FieldError> = Vec::new();
-        let molar_mass = num(
-            "molar_mass",
-            &spec.molar_mass,
-            Quantity::MolarMass,
-            &mut local,
-        );
+        let molar_mass = num("molar_mass", &spec.molar_mass, Quantity::MolarMass, &mut local);
         let tb = num("tb", &spec.tb, Quantity::Temperature, &mut local);
         let tc = num("tc", &spec.tc, Quantity::Temperature, &mut local);
         let pc = num("pc", &spec.pc, Quantity::Pressure, &mut local);
@@ -363,17 +343,12 @@ impl Component {
                 (Ok(lo), Ok(hi)) => {
                     errs.push(FieldError {
                         field,
-                        message: format!(
-                            "range must be [low, high] with 0 < low < high, got [{lo}, {hi}]"
-                        ),
+                        message: format!("range must be [low, high] with 0 < low < high, got [{lo}, {hi}]"),
                     });
                     None
                 }
                 (Err(e), _) | (_, Err(e)) => {
-                    errs.push(FieldError {
-                        field,
-                        message: e.to_string(),
-                    });
+                    errs.push(FieldError { field, message: e.to_string() });
                     None
                 }
             }
@@ -381,29 +356,24 @@ impl Component {
         let cp_ig_range = range("cp_ig_range", &spec.cp_ig_range, &mut local);
         let cp_liq_range = range("cp_liq_range", &spec.cp_liq_range, &mut local);
         let psat_range = range("psat_range", &spec.psat_range, &mut local);
-        let coeffs = |field: &'static str,
-                      v: &Option<Vec<f64>>,
-                      errs: &mut Vec<FieldError>|
-         -> Option<[f64; 5]> {
-            let v = v.as_ref()?;
-            if v.is_empty() || v.len() > 5 {
-                errs.push(FieldError {
-                    field,
-                    message: format!("expected 1 to 5 coefficients, got {}", v.len()),
-                });
-                return None;
-            }
-            if let Some(bad) = v.iter().find(|x| !x.is_finite()) {
-                errs.push(FieldError {
-                    field,
-                    message: format!("coefficient {bad} is not finite"),
-                });
-                return None;
-            }
-            let mut c = [0.0; 5];
-            c[..v.len()].copy_from_slice(v);
-            Some(c)
-        };
+        let coeffs =
+            |field: &'static str, v: &Option<Vec<f64>>, errs: &mut Vec<FieldError>| -> Option<[f64; 5]> {
+                let v = v.as_ref()?;
+                if v.is_empty() || v.len() > 5 {
+                    errs.push(FieldError {
+                        field,
+                        message: format!("expected 1 to 5 coefficients, got {}", v.len()),
+                    });
+                    return None;
+                }
+                if let Some(bad) = v.iter().find(|x| !x.is_finite()) {
+                    errs.push(FieldError { field, message: format!("coefficient {bad} is not finite") });
+                    return None;
+                }
+                let mut c = [0.0; 5];
+                c[..v.len()].copy_from_slice(v);
+                Some(c)
+            };
         let cp_ig = coeffs("cp_ig", &spec.cp_ig, &mut local);
         let cp_liq = coeffs("cp_liq", &spec.cp_liq, &mut local);
         let psat = coeffs("psat", &spec.psat, &mut local);
@@ -413,91 +383,68 @@ impl Component {
 
         match molar_mass {
             None => err("molar_mass", "molar mass is required".into()),
-            Some(m) if m <= 0.0 => err(
-                "molar_mass",
-                format!("molar mass must be positive, got {m} g/mol"),
-            ),
+            Some(m) if m <= 0.0 => err("molar_mass", format!("molar mass must be positive, got {m} g/mol")),
             _ => {}
         }
         match tc {
-            None => err(
-                "tc",
-                "critical temperature is required (validity check: no liquid above Tc)".into(),
-            ),
-            Some(t) if t <= 0.0 => err(
-                "tc",
-                format!("critical temperature must be positive, got {t} K"),
-            ),
+            None => err("tc", "critical temperature is required (validity check: no liquid above Tc)".into()),
+            Some(t) if t <= 0.0 => err("tc", format!("critical temperature must be positive, got {t} K")),
             _ => {}
         }
         if let Some(t) = tb {
             if t <= 0.0 {
                 err("tb", format!("boiling point must be positive, got {t} K"));
-            } else if let Some(c) = tc {
-                if c <= t {
-                    err(
-                        "tc",
-                        format!("critical temperature {c} K must be above the boiling point {t} K"),
-                    );
-                }
+            } else if let Some(c) = tc
+                && c <= t
+            {
+                err("tc", format!("critical temperature {c} K must be above the boiling point {t} K"));
             }
         }
-        if let Some(p) = pc {
-            if p <= 0.0 {
-                err(
-                    "pc",
-                    format!("critical pressure must be positive, got {p} Pa"),
-                );
-            }
+        if let Some(p) = pc
+            && p <= 0.0
+        {
+            err("pc", format!("critical pressure must be positive, got {p} Pa"));
         }
-        if let Some(h) = hvap_tb {
-            if h <= 0.0 {
-                err(
-                    "hvap_tb",
-                    format!("enthalpy of vaporization must be positive, got {h} J/mol"),
-                );
-            }
+        if let Some(h) = hvap_tb
+            && h <= 0.0
+        {
+            err("hvap_tb", format!("enthalpy of vaporization must be positive, got {h} J/mol"));
         }
-        if let Some(n) = spec.watson_n {
-            if !(n > 0.0 && n <= 1.0) {
-                err(
-                    "watson_n",
-                    format!("Watson exponent must be in (0, 1], got {n}"),
-                );
-            }
+        if let Some(n) = spec.watson_n
+            && !(n > 0.0 && n <= 1.0)
+        {
+            err("watson_n", format!("Watson exponent must be in (0, 1], got {n}"));
         }
-        if let Some(w) = spec.omega {
-            if !w.is_finite() || !(-1.0..=2.0).contains(&w) {
-                err("omega", format!("acentric factor {w} is outside -1..2"));
-            }
+        if let Some(w) = spec.omega
+            && (!w.is_finite() || !(-1.0..=2.0).contains(&w))
+        {
+            err("omega", format!("acentric factor {w} is outside -1..2"));
         }
         // Heat capacities must be positive where they are published to hold.
-        let check_cp = |field: &'static str,
-                        c: &Option<[f64; 5]>,
-                        r: Option<(f64, f64)>,
-                        errs: &mut Vec<FieldError>| {
-            if let Some(c) = c {
-                let mut points = vec![298.15];
-                if let Some((lo, hi)) = r {
-                    points = vec![lo, hi];
-                    if (lo..=hi).contains(&298.15) {
-                        points.push(298.15);
+        let check_cp =
+            |field: &'static str, c: &Option<[f64; 5]>, r: Option<(f64, f64)>, errs: &mut Vec<FieldError>| {
+                if let Some(c) = c {
+                    let mut points = vec![298.15];
+                    if let Some((lo, hi)) = r {
+                        points = vec![lo, hi];
+                        if (lo..=hi).contains(&298.15) {
+                            points.push(298.15);
+                        }
+                    }
+                    for t in points {
+                        let cp = poly5(c, t);
+                        if cp <= 0.0 {
+                            errs.push(FieldError {
+                                field,
+                                message: format!(
+                                    "heat capacity must be positive, but is {cp:.4} J/(mol K) at {t} K"
+                                ),
+                            });
+                            break;
+                        }
                     }
                 }
-                for t in points {
-                    let cp = poly5(c, t);
-                    if cp <= 0.0 {
-                        errs.push(FieldError {
-                            field,
-                            message: format!(
-                                "heat capacity must be positive, but is {cp:.4} J/(mol K) at {t} K"
-                            ),
-                        });
-                        break;
-                    }
-                }
-            }
-        };
+            };
         let mut local = Vec::new();
         check_cp("cp_ig", &cp_ig, cp_ig_range, &mut local);
         check_cp("cp_liq", &cp_liq, cp_liq_range, &mut local);
@@ -531,14 +478,9 @@ impl Component {
             }
         }
         let ideal_gas = match (hf_ig, cp_ig, tb, hvap_tb) {
-            (Some(hf_ig), Some(cp), Some(tb), Some(hvap_tb)) => Some(IdealGasData {
-                hf_ig,
-                cp,
-                cp_range: cp_ig_range,
-                tb,
-                hvap_tb,
-                watson_n: spec.watson_n,
-            }),
+            (Some(hf_ig), Some(cp), Some(tb), Some(hvap_tb)) => {
+                Some(IdealGasData { hf_ig, cp, cp_range: cp_ig_range, tb, hvap_tb, watson_n: spec.watson_n })
+            }
             _ => None,
         };
         let mut liquid_missing = Vec::new();
@@ -548,11 +490,7 @@ impl Component {
             }
         }
         let liquid = match (hf_liq, cp_liq) {
-            (Some(hf_liq), Some(cp)) => Some(LiquidData {
-                hf_liq,
-                cp,
-                cp_range: cp_liq_range,
-            }),
+            (Some(hf_liq), Some(cp)) => Some(LiquidData { hf_liq, cp, cp_range: cp_liq_range }),
             _ => None,
         };
         let sources = match &spec.source {
@@ -574,10 +512,7 @@ impl Component {
             ideal_gas_missing,
             liquid,
             liquid_missing,
-            psat: psat.map(|c| PsatData {
-                c,
-                range: psat_range,
-            }),
+            psat: psat.map(|c| PsatData { c, range: psat_range }),
             sources,
             note: spec.note.clone(),
         })
@@ -644,20 +579,13 @@ impl Library {
         let base = KeyPath::keys("components");
         let mut errors = Vec::new();
         for (id, spec) in &file.components {
-            let origin = Origin {
-                source: src.clone(),
-                key: base.key(id),
-            };
+            let origin = Origin { source: src.clone(), key: base.key(id) };
             self.add(id, spec.clone(), origin);
             if let Err(e) = self.resolve(id) {
                 errors.extend(e.0);
             }
         }
-        if errors.is_empty() {
-            Ok(())
-        } else {
-            Err(LocatedErrors(errors))
-        }
+        if errors.is_empty() { Ok(()) } else { Err(LocatedErrors(errors)) }
     }
 
     /// Add one definition (overrides an existing component with the same normalized id).
@@ -667,10 +595,7 @@ impl Library {
             Some(&i) => self.entries[i].layers.push((spec, origin)),
             None => {
                 self.index.insert(key, self.entries.len());
-                self.entries.push(Entry {
-                    id: id.to_string(),
-                    layers: vec![(spec, origin)],
-                });
+                self.entries.push(Entry { id: id.to_string(), layers: vec![(spec, origin)] });
             }
         }
     }
@@ -711,9 +636,7 @@ impl Library {
                         } else {
                             origin.key.key(fe.field)
                         };
-                        origin
-                            .source
-                            .error_at(&key, format!("component `{}`: {}", entry.id, fe.message))
+                        origin.source.error_at(&key, format!("component `{}`: {}", entry.id, fe.message))
                     })
                     .collect(),
             )
@@ -766,6 +689,7 @@ fn edit_distance(a: &str, b: &str) -> usize {
 }
 
 #[cfg(test)]
+#[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
 
@@ -785,10 +709,7 @@ mod tests {
         assert_eq!(lib.ids().count(), 17);
         for id in lib.ids() {
             let c = lib.resolve(id).unwrap();
-            assert!(
-                c.ideal_gas.is_some() && c.liquid.is_some() && c.psat.is_some(),
-                "{id}"
-            );
+            assert!(c.ideal_gas.is_some() && c.liquid.is_some() && c.psat.is_some(), "{id}");
             assert!(c.sources.contains_key("tc"), "{id}");
         }
         assert!(lib.contains("Ethyl_Acetate"));
@@ -798,36 +719,18 @@ mod tests {
     fn non_physical_values_are_located() {
         let text = "[components.x]\nmolar_mass = -3.0\ntb = 400.0\ntc = 350.0\n";
         let mut lib = Library::default();
-        let err = lib
-            .add_file(Arc::new(SourceText::new("lib.toml", text)))
-            .unwrap_err();
+        let err = lib.add_file(Arc::new(SourceText::new("lib.toml", text))).unwrap_err();
         let msg = err.to_string();
-        assert!(
-            msg.contains("lib.toml:2:14: `components.x.molar_mass`"),
-            "{msg}"
-        );
+        assert!(msg.contains("lib.toml:2:14: `components.x.molar_mass`"), "{msg}");
         assert!(msg.contains("lib.toml:4:6: `components.x.tc`"), "{msg}");
     }
 
     #[test]
     fn overrides_merge_field_by_field() {
         let mut lib = Library::builtin().unwrap();
-        let src = Arc::new(SourceText::new(
-            "case.toml",
-            "[components.water]\nwatson_n = 0.33\n",
-        ));
-        let spec = ComponentSpec {
-            watson_n: Some(0.33),
-            ..Default::default()
-        };
-        lib.add(
-            "water",
-            spec,
-            Origin {
-                source: src,
-                key: KeyPath::keys("components.water"),
-            },
-        );
+        let src = Arc::new(SourceText::new("case.toml", "[components.water]\nwatson_n = 0.33\n"));
+        let spec = ComponentSpec { watson_n: Some(0.33), ..Default::default() };
+        lib.add("water", spec, Origin { source: src, key: KeyPath::keys("components.water") });
         let c = lib.resolve("water").unwrap();
         assert_eq!(c.ideal_gas.unwrap().watson_n, Some(0.33));
         assert_eq!(c.molar_mass, 18.01528);

@@ -76,12 +76,7 @@ pub struct Watson {
 impl Watson {
     /// Build from the published parameters.
     pub fn new(hvap_tb: f64, tb: f64, tc: f64, n: f64) -> Watson {
-        Watson {
-            hvap_tb,
-            tc,
-            inv_span: 1.0 / (tc - tb),
-            n,
-        }
+        Watson { hvap_tb, tc, inv_span: 1.0 / (tc - tb), n }
     }
 
     /// ΔHvap(T) and its temperature derivative; both zero at and above Tc.
@@ -112,12 +107,7 @@ pub struct PureEnthalpy {
 impl PureEnthalpy {
     fn from_parts(hf: f64, cp: [f64; 5], watson: Option<Watson>) -> PureEnthalpy {
         let a = antiderivative_coeffs(&cp);
-        PureEnthalpy {
-            k0: hf - antiderivative(&a, T_REF),
-            cp,
-            a,
-            watson,
-        }
+        PureEnthalpy { k0: hf - antiderivative(&a, T_REF), cp, a, watson }
     }
 
     /// Liquid by the ideal-gas + Watson path with exponent `n`.
@@ -156,6 +146,7 @@ impl PureEnthalpy {
 }
 
 #[cfg(test)]
+#[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
 

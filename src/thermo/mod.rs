@@ -13,8 +13,8 @@ pub mod uncertainty;
 pub mod vapor;
 
 pub use balance::{
-    Basis, Effluent, FeedInput, Flag, FlowValue, Inputs, Outcome, PathChoice, Reaction, SolveError,
-    System, SystemError, Unknown,
+    Basis, Effluent, FeedInput, Flag, FlowValue, Inputs, Outcome, PathChoice, Reaction, SolveError, System,
+    SystemError, Unknown,
 };
 pub use component::{Component, ComponentSpec, Library};
 pub use enthalpy::{EnthalpyPath, PureEnthalpy, T_REF};

@@ -70,12 +70,7 @@ pub struct Tolerance {
 
 impl Default for Tolerance {
     fn default() -> Self {
-        Tolerance {
-            xtol: 1e-10,
-            ftol: 0.0,
-            max_newton: 40,
-            max_brent: 200,
-        }
+        Tolerance { xtol: 1e-10, ftol: 0.0, max_newton: 40, max_brent: 200 }
     }
 }
 
@@ -99,13 +94,7 @@ impl Convergency<f64> for Conv {
 
 /// Find the root of an increasing function `f` (returning value and derivative) in
 /// `[lo, hi]`, starting Newton's method at `guess`.
-pub fn newton_brent<F>(
-    mut f: F,
-    guess: f64,
-    lo: f64,
-    hi: f64,
-    tol: Tolerance,
-) -> Result<Root, RootError>
+pub fn newton_brent<F>(mut f: F, guess: f64, lo: f64, hi: f64, tol: Tolerance) -> Result<Root, RootError>
 where
     F: FnMut(f64) -> (f64, f64),
 {
@@ -120,11 +109,7 @@ where
             break;
         }
         if fx == 0.0 {
-            return Ok(Root {
-                x,
-                evaluations,
-                method: Method::Newton,
-            });
+            return Ok(Root { x, evaluations, method: Method::Newton });
         }
         if fx > 0.0 {
             b_hi = b_hi.min(x);
@@ -140,11 +125,7 @@ where
             break;
         }
         if step.abs() <= tol.xtol || fx.abs() <= tol.ftol {
-            return Ok(Root {
-                x: next,
-                evaluations,
-                method: Method::Newton,
-            });
+            return Ok(Root { x: next, evaluations, method: Method::Newton });
         }
         x = next;
     }
@@ -162,68 +143,34 @@ where
         return Err(RootError::NotFinite { at: b_hi });
     }
     if f_lo == 0.0 {
-        return Ok(Root {
-            x: b_lo,
-            evaluations,
-            method: Method::Brent,
-        });
+        return Ok(Root { x: b_lo, evaluations, method: Method::Brent });
     }
     if f_hi == 0.0 {
-        return Ok(Root {
-            x: b_hi,
-            evaluations,
-            method: Method::Brent,
-        });
+        return Ok(Root { x: b_hi, evaluations, method: Method::Brent });
     }
     if f_lo.signum() == f_hi.signum() {
         // Report the caller's range (the tightened one could mislead).
         let f_lo0 = value(lo);
         let f_hi0 = value(hi);
-        return Err(RootError::NoBracket {
-            lo,
-            hi,
-            f_lo: f_lo0,
-            f_hi: f_hi0,
-        });
+        return Err(RootError::NoBracket { lo, hi, f_lo: f_lo0, f_hi: f_hi0 });
     }
-    let mut conv = Conv {
-        xtol: tol.xtol,
-        ftol: tol.ftol,
-        max_iter: tol.max_brent,
-    };
+    let mut conv = Conv { xtol: tol.xtol, ftol: tol.ftol, max_iter: tol.max_brent };
     match find_root_brent(b_lo, b_hi, &mut value, &mut conv) {
-        Ok(x) => Ok(Root {
-            x,
-            evaluations,
-            method: Method::Brent,
-        }),
-        Err(SearchError::NoBracketing) => Err(RootError::NoBracket {
-            lo: b_lo,
-            hi: b_hi,
-            f_lo,
-            f_hi,
-        }),
-        Err(_) => Err(RootError::NoConvergence {
-            iterations: tol.max_brent,
-            last: (b_lo + b_hi) / 2.0,
-        }),
+        Ok(x) => Ok(Root { x, evaluations, method: Method::Brent }),
+        Err(SearchError::NoBracketing) => Err(RootError::NoBracket { lo: b_lo, hi: b_hi, f_lo, f_hi }),
+        Err(_) => Err(RootError::NoConvergence { iterations: tol.max_brent, last: (b_lo + b_hi) / 2.0 }),
     }
 }
 
 #[cfg(test)]
+#[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
 
     #[test]
     fn newton_converges_quadratically() {
-        let r = newton_brent(
-            |x| (x * x * x - 8.0, 3.0 * x * x),
-            3.0,
-            0.5,
-            10.0,
-            Tolerance::default(),
-        )
-        .unwrap();
+        let r =
+            newton_brent(|x| (x * x * x - 8.0, 3.0 * x * x), 3.0, 0.5, 10.0, Tolerance::default()).unwrap();
         assert!((r.x - 2.0).abs() < 1e-12);
         assert_eq!(r.method, Method::Newton);
         assert!(r.evaluations < 10);
@@ -239,8 +186,7 @@ mod tests {
 
     #[test]
     fn reports_missing_bracket() {
-        let e =
-            newton_brent(|x| (x + 100.0, 1.0), 3.0, 0.0, 10.0, Tolerance::default()).unwrap_err();
+        let e = newton_brent(|x| (x + 100.0, 1.0), 3.0, 0.0, 10.0, Tolerance::default()).unwrap_err();
         assert!(matches!(e, RootError::NoBracket { .. }), "{e:?}");
     }
 }

@@ -70,10 +70,7 @@ pub struct UncertaintyReport {
 impl UncertaintyReport {
     /// The input with the largest share, if any contributes.
     pub fn dominant(&self) -> Option<&Contribution> {
-        self.contributions
-            .iter()
-            .filter(|c| c.share > 0.0)
-            .max_by(|a, b| a.share.total_cmp(&b.share))
+        self.contributions.iter().filter(|c| c.share > 0.0).max_by(|a, b| a.share.total_cmp(&b.share))
     }
 }
 
@@ -81,17 +78,13 @@ fn value_of(inputs: &Inputs, input: InputRef) -> f64 {
     match input {
         InputRef::FeedFlow(j) => inputs.feeds.get(j).map_or(0.0, |f| f.flow.value()),
         InputRef::FeedTemperature(j) => inputs.feeds.get(j).map_or(0.0, |f| f.temperature),
-        InputRef::FeedFraction(j, i) => inputs
-            .feeds
-            .get(j)
-            .and_then(|f| f.fractions.get(i).copied())
-            .unwrap_or(0.0),
+        InputRef::FeedFraction(j, i) => {
+            inputs.feeds.get(j).and_then(|f| f.fractions.get(i).copied()).unwrap_or(0.0)
+        }
         InputRef::Duty => inputs.duty.unwrap_or(0.0),
         InputRef::HeatLoss => inputs.heat_loss,
         InputRef::Conversion(r) => match &inputs.effluent {
-            Effluent::Reacted { conversions } => {
-                conversions.get(r).copied().flatten().unwrap_or(0.0)
-            }
+            Effluent::Reacted { conversions } => conversions.get(r).copied().flatten().unwrap_or(0.0),
             _ => 0.0,
         },
         InputRef::EffluentFraction(i) => match &inputs.effluent {
@@ -135,31 +128,29 @@ fn perturbed(inputs: &Inputs, input: InputRef, h: f64) -> Inputs {
             }
         }
         InputRef::FeedFraction(j, i) => {
-            if let Some(f) = p.feeds.get_mut(j) {
-                if i < f.fractions.len() {
-                    shift_fraction(&mut f.fractions, i, h);
-                }
+            if let Some(f) = p.feeds.get_mut(j)
+                && i < f.fractions.len()
+            {
+                shift_fraction(&mut f.fractions, i, h);
             }
         }
         InputRef::Duty => p.duty = p.duty.map(|d| d + h),
         InputRef::HeatLoss => p.heat_loss += h,
         InputRef::Conversion(r) => {
-            if let Effluent::Reacted { conversions } = &mut p.effluent {
-                if let Some(Some(c)) = conversions.get_mut(r) {
-                    *c += h;
-                }
+            if let Effluent::Reacted { conversions } = &mut p.effluent
+                && let Some(Some(c)) = conversions.get_mut(r)
+            {
+                *c += h;
             }
         }
         InputRef::EffluentFraction(i) => {
-            if let Effluent::Measured { fractions, .. } = &mut p.effluent {
-                if i < fractions.len() {
-                    shift_fraction(fractions, i, h);
-                }
+            if let Effluent::Measured { fractions, .. } = &mut p.effluent
+                && i < fractions.len()
+            {
+                shift_fraction(fractions, i, h);
             }
         }
-        InputRef::EffluentTemperature => {
-            p.effluent_temperature = p.effluent_temperature.map(|t| t + h)
-        }
+        InputRef::EffluentTemperature => p.effluent_temperature = p.effluent_temperature.map(|t| t + h),
     }
     p
 }
@@ -167,9 +158,7 @@ fn perturbed(inputs: &Inputs, input: InputRef, h: f64) -> Inputs {
 fn scale_of(input: InputRef) -> f64 {
     match input {
         InputRef::FeedTemperature(_) | InputRef::EffluentTemperature => 1.0,
-        InputRef::FeedFraction(..) | InputRef::EffluentFraction(_) | InputRef::Conversion(_) => {
-            0.01
-        }
+        InputRef::FeedFraction(..) | InputRef::EffluentFraction(_) | InputRef::Conversion(_) => 0.01,
         InputRef::FeedFlow(_) => 1e-3,
         InputRef::Duty | InputRef::HeatLoss => 1.0,
     }
@@ -197,11 +186,7 @@ pub fn propagate(
             let f_plus = system.residual(&perturbed(inputs, item.input, h), unknown, y);
             let f_minus = system.residual(&perturbed(inputs, item.input, -h), unknown, y);
             let df = (f_plus - f_minus) / (2.0 * h);
-            let sensitivity = if slope != 0.0 && df.is_finite() {
-                -df / slope
-            } else {
-                0.0
-            };
+            let sensitivity = if slope != 0.0 && df.is_finite() { -df / slope } else { 0.0 };
             Contribution {
                 label: item.label.clone(),
                 value: x,
@@ -212,19 +197,9 @@ pub fn propagate(
             }
         })
         .collect();
-    let variance: f64 = contributions
-        .iter()
-        .map(|c| c.contribution * c.contribution)
-        .sum();
+    let variance: f64 = contributions.iter().map(|c| c.contribution * c.contribution).sum();
     for c in &mut contributions {
-        c.share = if variance > 0.0 {
-            c.contribution * c.contribution / variance
-        } else {
-            0.0
-        };
+        c.share = if variance > 0.0 { c.contribution * c.contribution / variance } else { 0.0 };
     }
-    UncertaintyReport {
-        u: variance.sqrt(),
-        contributions,
-    }
+    UncertaintyReport { u: variance.sqrt(), contributions }
 }

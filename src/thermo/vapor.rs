@@ -31,11 +31,7 @@ impl PsatModel {
             return Some(PsatModel::Dippr101(p.c));
         }
         match (c.pc, c.omega) {
-            (Some(pc), Some(omega)) => Some(PsatModel::LeeKesler {
-                tc: c.tc,
-                pc,
-                omega,
-            }),
+            (Some(pc), Some(omega)) => Some(PsatModel::LeeKesler { tc: c.tc, pc, omega }),
             _ => None,
         }
     }
@@ -45,11 +41,7 @@ impl PsatModel {
     pub fn ln_psat(&self, t: f64) -> (f64, f64) {
         match *self {
             PsatModel::Dippr101(c) => {
-                let tp = if c[3] == 0.0 {
-                    0.0
-                } else {
-                    c[3] * t.powf(c[4])
-                };
+                let tp = if c[3] == 0.0 { 0.0 } else { c[3] * t.powf(c[4]) };
                 let v = c[0] + c[1] / t + c[2] * t.ln() + tp;
                 let d = -c[1] / (t * t) + c[2] / t + if c[4] == 0.0 { 0.0 } else { tp * c[4] / t };
                 (v, d)
@@ -112,22 +104,13 @@ pub fn bubble_point(
         guess,
         BUBBLE_RANGE.0,
         BUBBLE_RANGE.1,
-        Tolerance {
-            xtol: 1e-11,
-            ..Tolerance::default()
-        },
+        Tolerance { xtol: 1e-11, ..Tolerance::default() },
     )?;
     let t = root.x;
     let y = models
         .iter()
         .zip(x)
-        .map(|(model, &xi)| {
-            if xi > 0.0 {
-                xi / total * model.psat(t) / pressure
-            } else {
-                0.0
-            }
-        })
+        .map(|(model, &xi)| if xi > 0.0 { xi / total * model.psat(t) / pressure } else { 0.0 })
         .collect();
     Ok((t, y))
 }

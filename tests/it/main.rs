@@ -1,6 +1,9 @@
 //! The one integration-test binary. Modules share the helpers in `util`.
-#![allow(clippy::unwrap_used, missing_docs, unreachable_pub)]
+#![allow(clippy::unwrap_used, clippy::format_push_string, missing_docs, unreachable_pub, dead_code)]
 
 mod util;
 
+mod cli;
+mod handbook;
+mod physics;
 mod reference;

@@ -26,17 +26,9 @@ fn watson_path_balance_cases() {
         let report = run(&text);
         let expected = case["expected"]["T_out_K"].as_f64().unwrap();
         let got = report.effluent_temperature_k;
-        assert!(
-            (got - expected).abs() < 1e-6,
-            "{}: {got} vs {expected}",
-            case["id"]
-        );
+        assert!((got - expected).abs() < 1e-6, "{}: {got} vs {expected}", case["id"]);
         let h_in = case["expected"]["H_feed_total_W"].as_f64().unwrap();
-        assert!(
-            (report.feed_enthalpy_w - h_in).abs() <= 1e-9 * h_in.abs(),
-            "{}: H_in",
-            case["id"]
-        );
+        assert!((report.feed_enthalpy_w - h_in).abs() <= 1e-9 * h_in.abs(), "{}: H_in", case["id"]);
     }
 }
 
@@ -61,19 +53,11 @@ fn liquid_path_balance_cases_and_bubble_points() {
         let got_tb = report.bubble_point_k.unwrap();
         assert!((got_tb - tb).abs() < 1e-6, "{id}: bubble {got_tb} vs {tb}");
         let boils = e["effluent_boils"].as_bool().unwrap();
-        assert_eq!(
-            report.flags.iter().any(|f| f == "two_phase_risk"),
-            boils,
-            "{id}: two-phase flag"
-        );
+        assert_eq!(report.flags.iter().any(|f| f == "two_phase_risk"), boils, "{id}: two-phase flag");
         // Every component the reference lists as extrapolated is flagged.
         for c in case["cp_liq_extrapolated_components"].as_array().unwrap() {
             let code = format!("range_cp_liq:{}", c.as_str().unwrap());
-            assert!(
-                report.flags.contains(&code),
-                "{id}: missing {code} in {:?}",
-                report.flags
-            );
+            assert!(report.flags.contains(&code), "{id}: missing {code} in {:?}", report.flags);
         }
     }
 }
@@ -85,10 +69,8 @@ fn raoult_bubble_points() {
     let data = util::json("reference/liquid_path_cases.json");
     for bp in data["bubble_points"].as_array().unwrap() {
         let x = bp["x"].as_object().unwrap();
-        let comp: Vec<String> = x
-            .iter()
-            .map(|(k, v)| format!("\"{k}\" = {:?}", v.as_f64().unwrap()))
-            .collect();
+        let comp: Vec<String> =
+            x.iter().map(|(k, v)| format!("\"{k}\" = {:?}", v.as_f64().unwrap())).collect();
         let text = format!(
             "[model]\npressure = {:?}\n[[feed]]\nflow = 1.0\ntemperature = 300.0\ncomposition = {{ {} }}\n[heater]\nduty = 0.0\n",
             bp["P_Pa"].as_f64().unwrap(),

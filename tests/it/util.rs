@@ -75,14 +75,9 @@ pub fn reference_case_toml(case: &Value, path: &str, pressure: Option<f64>) -> S
     }
     s.push_str("\n[[feed]]\n");
     s.push_str(&format!("flow = {total:?}\n"));
-    s.push_str(&format!(
-        "temperature = {:?}\n",
-        case["T_in_K"].as_f64().unwrap_or_default()
-    ));
-    let comp: Vec<String> = feed
-        .iter()
-        .map(|(k, v)| format!("\"{k}\" = {:?}", v.as_f64().unwrap_or(0.0) / total))
-        .collect();
+    s.push_str(&format!("temperature = {:?}\n", case["T_in_K"].as_f64().unwrap_or_default()));
+    let comp: Vec<String> =
+        feed.iter().map(|(k, v)| format!("\"{k}\" = {:?}", v.as_f64().unwrap_or(0.0) / total)).collect();
     s.push_str(&format!("composition = {{ {} }}\n", comp.join(", ")));
     // Reaction from the change in flows.
     let mut diff: Vec<(String, f64)> = Vec::new();
@@ -101,20 +96,14 @@ pub fn reference_case_toml(case: &Value, path: &str, pressure: Option<f64>) -> S
     if let Some((key, dk)) = diff.iter().find(|(_, d)| *d < 0.0).cloned() {
         let extent = -dk;
         let key_feed = feed.get(&key).and_then(Value::as_f64).unwrap_or(0.0);
-        let stoich: Vec<String> = diff
-            .iter()
-            .map(|(k, d)| format!("\"{k}\" = {:?}", d / extent))
-            .collect();
+        let stoich: Vec<String> = diff.iter().map(|(k, d)| format!("\"{k}\" = {:?}", d / extent)).collect();
         s.push_str("\n[[reaction]]\n");
         s.push_str(&format!("stoichiometry = {{ {} }}\n", stoich.join(", ")));
         s.push_str(&format!("key = \"{key}\"\n"));
         s.push_str(&format!("conversion = {:?}\n", extent / key_feed));
     }
     s.push_str("\n[heater]\n");
-    s.push_str(&format!(
-        "duty = {:?}\n",
-        case["Q_W"].as_f64().unwrap_or_default()
-    ));
+    s.push_str(&format!("duty = {:?}\n", case["Q_W"].as_f64().unwrap_or_default()));
     s
 }
 

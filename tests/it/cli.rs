@@ -1,0 +1,168 @@
+//! End-to-end tests of the `efftemp` binary: `calc` on the shipped examples and every error
+//! path (a located message and exit code 2).
+
+use assert_cmd::cargo::cargo_bin_cmd;
+use serde_json::Value;
+
+use crate::util;
+
+fn examples() -> Vec<std::path::PathBuf> {
+    let mut v: Vec<_> = std::fs::read_dir(util::root().join("config/examples"))
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.extension().is_some_and(|e| e == "toml"))
+        .collect();
+    v.sort();
+    assert!(v.len() >= 5, "{v:?}");
+    v
+}
+
+#[test]
+fn calc_runs_every_example_as_text_and_json() {
+    for path in examples() {
+        let out = cargo_bin_cmd!("efftemp").arg("calc").arg(&path).output().unwrap();
+        assert!(out.status.success(), "{}: {}", path.display(), String::from_utf8_lossy(&out.stderr));
+        let text = String::from_utf8(out.stdout).unwrap();
+        assert!(text.contains("effluent temperature:"), "{text}");
+        assert!(text.contains("not a safety instrumented function"), "{text}");
+
+        let out = cargo_bin_cmd!("efftemp").arg("calc").arg(&path).arg("--json").output().unwrap();
+        assert!(out.status.success(), "{}", path.display());
+        let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+        for key in [
+            "effluent_temperature_k",
+            "duty_w",
+            "conversion",
+            "effluent_flow_mol_s",
+            "effluent_composition",
+            "enthalpy_path",
+            "bubble_point_k",
+            "warnings",
+        ] {
+            assert!(v.get(key).is_some(), "{}: missing {key}", path.display());
+        }
+        let t = v["effluent_temperature_k"].as_f64().unwrap();
+        assert!(t.is_finite() && t > 250.0 && t < 600.0, "{}: {t}", path.display());
+        let x: f64 =
+            v["effluent_composition"].as_object().unwrap().values().map(|x| x.as_f64().unwrap()).sum();
+        assert!((x - 1.0).abs() < 1e-12);
+    }
+}
+
+#[test]
+fn help_shows_the_cautions() {
+    for args in [vec!["--help"], vec!["calc", "--help"]] {
+        let out = cargo_bin_cmd!("efftemp").args(&args).output().unwrap();
+        let text = String::from_utf8(out.stdout).unwrap();
+        assert!(text.contains("not a safety instrumented function"), "{args:?}: {text}");
+        assert!(text.contains("must not be used for automatic control actions"));
+    }
+}
+
+const GOOD_FEED: &str =
+    "[[feed]]\nflow = 10.0\ntemperature = 330.0\ncomposition = { water = 0.7, methyl_acetate = 0.3 }\n";
+
+/// (name, case text, expected line, expected message fragment)
+fn error_cases() -> Vec<(&'static str, String, usize, &'static str)> {
+    let reaction = "[[reaction]]\nstoichiometry = { methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }\nkey = \"methyl_acetate\"\n";
+    vec![
+        ("syntax", "[[feed]\nflow = 1\n".into(), 1, "unclosed array table"),
+        ("unknown key", format!("{GOOD_FEED}flw = 3\n[heater]\nduty = 1.0\n"), 5, "unknown field `flw`"),
+        (
+            "unknown component",
+            "[[feed]]\nflow = 1.0\ntemperature = 300.0\ncomposition = { watr = 1.0 }\n[heater]\nduty = 0.0\n".into(),
+            4,
+            "unknown component `watr`: did you mean water",
+        ),
+        ("unknown unit", format!("{GOOD_FEED}[heater]\nduty = \"3 furlongs\"\n"), 6, "unknown unit `furlongs`"),
+        (
+            "composition sum",
+            "[[feed]]\nflow = 1.0\ntemperature = 300.0\ncomposition = { water = 0.7, methanol = 0.2 }\n[heater]\nduty = 0.0\n".into(),
+            4,
+            "fractions sum to 0.900000",
+        ),
+        ("missing duty", GOOD_FEED.to_string(), 1, "duty is required"),
+        ("negative temperature", format!("{GOOD_FEED}[heater]\nduty = 1.0\n").replace("330.0", "\"-300 degC\""), 3, "above absolute zero"),
+        (
+            "non-physical component",
+            format!("[components.water]\ntc = 300.0\n{GOOD_FEED}[heater]\nduty = 1.0\n"),
+            2,
+            "must be above the boiling point",
+        ),
+        (
+            "negative molar mass",
+            format!("[components.mystery]\nmolar_mass = -5.0\ntc = 500.0\n{GOOD_FEED}[heater]\nduty = 1.0\n"),
+            2,
+            "molar mass must be positive",
+        ),
+        (
+            "missing data for the chosen path",
+            "[components.solvent_x]\nmolar_mass = 100.0\ntc = 550.0\ntb = 400.0\nhvap_tb = 35000.0\nhf_ig = -200000.0\ncp_ig = [50.0, 0.3]\n[model]\nenthalpy = \"liquid-cp\"\n[[feed]]\nflow = 1.0\ntemperature = 300.0\ncomposition = { solvent_x = 1.0 }\n[heater]\nduty = 1.0\n".into(),
+            1,
+            "no data for the liquid-cp path (missing: hf_liq, cp_liq)",
+        ),
+        ("bad path name", format!("[model]\nenthalpy = \"magic\"\n{GOOD_FEED}[heater]\nduty = 1.0\n"), 2, "unknown enthalpy path"),
+        (
+            "conversion too high",
+            format!("{GOOD_FEED}{reaction}conversion = 2.5\n[heater]\nduty = 1.0\n"),
+            8,
+            "would be negative",
+        ),
+        ("no root in range", format!("{GOOD_FEED}[heater]\nduty = \"900 MW\"\n"), 6, "no effluent temperature closes the balance"),
+        (
+            "duty given when solving for it",
+            format!("{GOOD_FEED}[heater]\nduty = 1.0\n[effluent]\ntemperature = 340.0\n[solve]\nunknown = \"duty\"\n"),
+            6,
+            "remove the duty",
+        ),
+        ("unknown unknown", format!("{GOOD_FEED}[heater]\nduty = 1.0\n[solve]\nunknown = \"pressure\"\n"), 8, "unknown `pressure`"),
+        (
+            "key not in reaction",
+            format!("{GOOD_FEED}[[reaction]]\nstoichiometry = {{ methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }}\nkey = \"ethanol\"\nconversion = 0.3\n[heater]\nduty = 1.0\n"),
+            7,
+            "key `ethanol` is not in this reaction",
+        ),
+        (
+            "unbalanced reaction",
+            format!("{GOOD_FEED}[[reaction]]\nstoichiometry = {{ methyl_acetate = -1, acetic_acid = 1, methanol = 1 }}\nkey = \"methyl_acetate\"\nconversion = 0.3\n[heater]\nduty = 1.0\n"),
+            6,
+            "does not conserve elements",
+        ),
+        ("gauge pressure", format!("[model]\npressure = \"3 barg\"\n{GOOD_FEED}[heater]\nduty = 1.0\n"), 2, "gauge pressure"),
+        (
+            "conversion with nothing to solve",
+            format!("{GOOD_FEED}{reaction}conversion = 0.3\n[heater]\nduty = 1.0\n[effluent]\ntemperature = 340.0\n[solve]\nunknown = \"conversion\"\n"),
+            14,
+            "every reaction has a conversion",
+        ),
+    ]
+}
+
+#[test]
+fn calc_error_paths_are_located_and_exit_2() {
+    let mut failures = Vec::new();
+    for (name, text, line, fragment) in error_cases() {
+        let (_dir, path) = util::temp_file("case.toml", &text);
+        let out = cargo_bin_cmd!("efftemp").arg("calc").arg(&path).output().unwrap();
+        let stderr = String::from_utf8(out.stderr).unwrap();
+        let located = format!("case.toml:{line}:");
+        if out.status.code() != Some(2)
+            || !stderr.contains(fragment)
+            || !stderr.contains(&located)
+            || !out.stdout.is_empty()
+        {
+            failures.push(format!(
+                "{name}: want exit 2, `{located}` and `{fragment}`; got {:?}:\n{stderr}",
+                out.status.code()
+            ));
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+#[test]
+fn calc_missing_file_is_a_usage_error() {
+    let out = cargo_bin_cmd!("efftemp").args(["calc", "/nonexistent/case.toml"]).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("cannot read the file"));
+}
