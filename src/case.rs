@@ -13,13 +13,13 @@ use indexmap::IndexMap;
 use serde::{Deserialize, Serialize};
 
 use crate::source::{KeyPath, LocatedError, LocatedErrors, SourceText};
+use crate::thermo::Component;
 use crate::thermo::balance::{
     Basis, DEFAULT_BOUNDS, Effluent, FeedInput, FlowValue, Inputs, Outcome, PathChoice, Reaction, SolveError,
     System, SystemError, Unknown,
 };
 use crate::thermo::component::{ComponentSpec, Library, Origin, normalize_id};
 use crate::thermo::uncertainty::{InputRef, Uncertain, UncertaintyReport, propagate};
-use crate::thermo::{Component, T_REF};
 use crate::units::{Number, Quantity};
 
 /// Default bubble-point margin, K: the ideal-solution bubble point of the aqueous mixtures in
@@ -205,8 +205,6 @@ pub struct Case {
     pub echo: Echo,
     /// Notes raised while checking (e.g. a normalized composition).
     pub warnings: Vec<String>,
-    /// Where each component was first used (for locating solver errors).
-    first_use: Vec<KeyPath>,
 }
 
 struct Checker<'a> {
@@ -809,7 +807,7 @@ impl Case {
             })?;
         let inputs =
             Inputs { feeds, effluent, duty, heat_loss, effluent_temperature, pressure, bubble_margin };
-        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings, first_use })
+        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings })
     }
 
     /// Solve the case; a failure is located at the input most likely responsible.
@@ -856,7 +854,6 @@ impl Case {
         } else {
             Some(propagate(&self.system, &self.inputs, &outcome, &self.uncertain))
         };
-        let _ = &self.first_use;
         Ok(Report::new(self, &outcome, uncertainty.as_ref()))
     }
 }
@@ -1336,7 +1333,6 @@ impl Report {
             }
         }
         let _ = write!(s, "\nCaution: {}\n", self.caution);
-        let _ = T_REF;
         s
     }
 }

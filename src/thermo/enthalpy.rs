@@ -173,6 +173,27 @@ mod tests {
     }
 
     #[test]
+    fn vapour_minus_liquid_is_the_watson_heat_of_vaporization() {
+        let d = IdealGasData {
+            hf_ig: -201_000.0,
+            cp: [39.19, -0.0581, 3.50e-4, -3.69e-7, 1.28e-10],
+            cp_range: None,
+            tb: 337.75,
+            hvap_tb: 35_210.0,
+            watson_n: None,
+        };
+        let v = PureEnthalpy::vapour(&d);
+        let l = PureEnthalpy::ideal_gas_watson(&d, 512.5, 0.38);
+        assert!((v.h(T_REF) - d.hf_ig).abs() < 1e-9);
+        for t in [300.0, 337.75, 420.0] {
+            let w = Watson::new(d.hvap_tb, d.tb, 512.5, 0.38).eval(t).0;
+            assert!((v.h(t) - l.h(t) - w).abs() < 1e-8, "{t}");
+        }
+        // At Tb the difference is the published ΔHvap(Tb).
+        assert!((v.h(337.75) - l.h(337.75) - 35_210.0).abs() < 1e-8);
+    }
+
+    #[test]
     fn watson_vanishes_at_tc() {
         let w = Watson::new(30_000.0, 350.0, 500.0, 0.38);
         assert_eq!(w.eval(500.0), (0.0, 0.0));

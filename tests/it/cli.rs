@@ -166,3 +166,28 @@ fn calc_missing_file_is_a_usage_error() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("cannot read the file"));
 }
+
+/// A user library file adds a component; a bad value in it is located in that file.
+#[test]
+fn calc_uses_user_library_files() {
+    let dir = tempfile::tempdir().unwrap();
+    // Source: an invented solvent for this test only (values in the range of a C5 ester).
+    let lib = "[sources]\nTEST = \"invented for a test\"\n\n[components.solvent-q]\nformula = \"C5H10O2\"\nmolar_mass = 102.13\ntb = 372.0\ntc = 560.0\nhvap_tb = 34000.0\nhf_ig = -470000.0\ncp_ig = [60.0, 0.3]\nhf_liq = -510000.0\ncp_liq = [200.0]\nsource = \"TEST\"\n";
+    std::fs::write(dir.path().join("mylib.toml"), lib).unwrap();
+    let case = "[model]\nlibraries = [\"mylib.toml\"]\n[[feed]]\nflow = 2.0\ntemperature = 300.0\ncomposition = { solvent_q = 0.5, water = 0.5 }\n[heater]\nduty = \"10 kW\"\n";
+    let path = dir.path().join("case.toml");
+    std::fs::write(&path, case).unwrap();
+    let out = cargo_bin_cmd!("efftemp").arg("calc").arg(&path).arg("--json").output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    // Constant Cp: 2 mol/s × ½(200 + 75.3) J/(mol K) ≈ 275 W/K, so 10 kW heats by about 36 K.
+    let dt = v["effluent_temperature_k"].as_f64().unwrap() - 300.0;
+    assert!((dt - 36.3).abs() < 0.5, "{dt}");
+    assert_eq!(v["enthalpy_path"]["solvent_q"], "liquid-cp");
+
+    std::fs::write(dir.path().join("mylib.toml"), lib.replace("tc = 560.0", "tc = 350.0")).unwrap();
+    let out = cargo_bin_cmd!("efftemp").arg("calc").arg(&path).output().unwrap();
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr.contains("mylib.toml:8:6: `components.solvent-q.tc`"), "{stderr}");
+}
