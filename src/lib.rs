@@ -17,10 +17,14 @@
 //!   points, uncertainty propagation.
 //! * [`case`]: the `calc` case file (two-stage: serde mirror, then checked model) and its
 //!   human and JSON reports.
+//! * [`ingest`]: tailing historian export files into records (split, tail).
+//! * [`hash`]: a stable 64-bit hash for fingerprints and checksums.
 //! * [`cli`]: command-line definitions and the commands.
 
 pub mod case;
 pub mod cli;
+pub mod hash;
+pub mod ingest;
 pub mod source;
 pub mod thermo;
 pub mod units;

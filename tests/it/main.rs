@@ -7,3 +7,4 @@ mod cli;
 mod handbook;
 mod physics;
 mod reference;
+mod tailer;

@@ -1,0 +1,9 @@
+//! Ingestion: from historian export files to samples.
+//!
+//! * [`split`]: an incremental CSV record splitter over bytes (csv-core), which never emits a
+//!   partial record and bounds the memory of an over-long one.
+//! * [`tail`]: the directory tailer: file identity by content fingerprint, checkpoints at record
+//!   boundaries, rotation, truncation, replacement and deletion.
+
+pub mod split;
+pub mod tail;

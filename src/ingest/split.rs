@@ -1,0 +1,1 @@
+//! Incremental CSV record splitting (see the module docs of `crate::ingest`).

@@ -1,0 +1,1 @@
+//! The directory tailer (see the module docs of `crate::ingest`).

@@ -1,0 +1,1 @@
+//! Model-based tests of the directory tailer (see src/ingest/tail.rs).
