@@ -19,13 +19,40 @@
 //!   human and JSON reports.
 //! * [`ingest`]: tailing historian export files into records (split, tail).
 //! * [`hash`]: a stable 64-bit hash for fingerprints and checksums.
+//! * [`assembly`]: interval assembly in event time (aggregation, staleness, lateness).
+//! * [`config`]: the site configuration (two-stage, located errors).
+//! * [`model`]: the per-interval unit model (soft tags, flags, conditions).
+//! * [`alerts`]: the alert lifecycle (raise, update, clear; stable ids).
+//! * [`output`]: soft-tag CSV and alert JSON-lines writers (idempotent by key).
+//! * [`state`]: the locked state directory and the atomic checkpoint.
+//! * [`pipeline`]: tail → rows → intervals → model → alerts → outputs → checkpoint.
+//! * [`service`]: the async shell of `run` (events, ticks, shutdown) and the batch `replay`.
+//! * [`logging`]: text or JSON logs.
+//! * [`monitor`]: steady state, dynamics, baseline, charts, cause attribution.
+//! * [`report`]: the shift report (HTML with inline SVG, and text).
+//! * [`sim`]: the embedded plant simulator of the demo.
+//! * [`demo`]: `efftemp demo`.
 //! * [`cli`]: command-line definitions and the commands.
 
+pub mod alerts;
+pub mod assembly;
 pub mod case;
 pub mod cli;
+pub mod config;
+pub mod demo;
 pub mod hash;
 pub mod ingest;
+pub mod logging;
+pub mod model;
+pub mod monitor;
+pub mod output;
+pub mod pipeline;
+pub mod report;
+pub mod rng;
+pub mod service;
+pub mod sim;
 pub mod source;
+pub mod state;
 pub mod thermo;
 pub mod units;
 

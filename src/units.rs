@@ -170,7 +170,11 @@ const UNITS: &[Unit] = &[
     u("kg/mol", Quantity::MolarMass, 1e3, 0.0),
     // dimensionless
     u("%", Quantity::Dimensionless, 0.01, 0.0),
+    FRACTION,
 ];
+
+/// A plain fraction (0..1): the unit of analyzer tags written without `%`.
+pub const FRACTION: Unit = u("fraction", Quantity::Dimensionless, 1.0, 0.0);
 
 /// Alternative spellings accepted on input, mapped to canonical symbols.
 const ALIASES: &[(&str, &str)] = &[

@@ -4,6 +4,10 @@
 //!   partial record and bounds the memory of an over-long one.
 //! * [`tail`]: the directory tailer: file identity by content fingerprint, checkpoints at record
 //!   boundaries, rotation, truncation, replacement and deletion.
+//! * [`rows`]: records to samples (layouts, timestamps, quality words, rejections).
+//! * [`watch`]: file-system events as wake-up hints.
 
+pub mod rows;
 pub mod split;
 pub mod tail;
+pub mod watch;

@@ -7,4 +7,5 @@ mod cli;
 mod handbook;
 mod physics;
 mod reference;
+mod service;
 mod tailer;

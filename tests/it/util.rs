@@ -114,3 +114,107 @@ pub fn temp_file(name: &str, text: &str) -> (tempfile::TempDir, PathBuf) {
     std::fs::write(&path, text).expect("write temp file");
     (dir, path)
 }
+
+/// A small test plant: one water feed with a flow (mol/s), a feed temperature and a duty
+/// (kW), and the measured effluent temperature; data every 10 s. The "true" outlet is
+/// T_in + Q/(F·75.4 J/(mol K)), close to the liquid-path balance (for plumbing tests only).
+pub struct TestPlant {
+    /// Export directory.
+    pub exports: PathBuf,
+    /// Config file.
+    pub config: PathBuf,
+    /// Output directory.
+    pub output: PathBuf,
+    /// State directory.
+    pub state: PathBuf,
+    _dir: tempfile::TempDir,
+}
+
+/// Header of the test plant's wide files.
+pub const PLANT_HEADER: &str = "Timestamp,FI-101,TI-102,JI-103,TI-109";
+
+impl TestPlant {
+    /// A test plant with extra `[service]` / unit lines appended to the config.
+    pub fn new(extra_unit: &str) -> TestPlant {
+        let dir = tempfile::tempdir().expect("tempdir");
+        let root = dir.path().to_path_buf();
+        let exports = root.join("exports");
+        std::fs::create_dir_all(&exports).expect("exports dir");
+        let config = root.join("site.toml");
+        let text = format!(
+            r#"[site]
+name = "test works"
+time_zone = "UTC"
+state_dir = "state"
+output_dir = "output"
+
+[service]
+watch = "off"
+reconcile_interval = "200ms"
+checkpoint_interval = "100ms"
+seal_after = "1h"
+
+[[unit]]
+name = "T-1"
+[unit.input]
+directory = "exports"
+pattern = "plant_*.csv"
+timestamp_column = "Timestamp"
+[unit.timing]
+interval = "1m"
+max_wait = "3m"
+[[unit.feed]]
+flow = {{ tag = "FI-101", unit = "mol/s", uncertainty = "1 %" }}
+temperature = {{ tag = "TI-102", unit = "degC", uncertainty = "0.5 K" }}
+composition = {{ water = 1.0 }}
+[unit.heater]
+duty = {{ tag = "JI-103", unit = "kW", uncertainty = "2 %" }}
+[unit.effluent]
+temperature = {{ tag = "TI-109", unit = "degC", uncertainty = "0.3 K" }}
+{extra_unit}
+"#
+        );
+        std::fs::write(&config, text).expect("config");
+        TestPlant { exports, output: root.join("output"), state: root.join("state"), config, _dir: dir }
+    }
+
+    /// One data row at `t` seconds after 2026-12-01T00:00:00Z.
+    pub fn row(t: i64) -> String {
+        let base = 1_796_083_200_i64; // 2026-12-01T00:00:00Z
+        let ts = jiff::Timestamp::from_second(base + t).expect("timestamp");
+        let f = 10.0 + 0.5 * ((t / 600) % 3) as f64;
+        let tin = 30.0 + 0.1 * ((t / 10) % 7) as f64;
+        let q = 30.0;
+        let tout = tin + q * 1000.0 / (f * 75.4);
+        format!("{},{f:.3},{tin:.3},{q:.3},{tout:.3}", ts.strftime("%Y-%m-%dT%H:%M:%SZ"))
+    }
+
+    /// Rows from `t0` (inclusive) to `t1` (exclusive) every 10 s, each ending in a newline.
+    pub fn rows(t0: i64, t1: i64) -> String {
+        (t0..t1).step_by(10).map(|t| Self::row(t) + "\n").collect()
+    }
+
+    /// Append text to an export file (created with the header if new).
+    pub fn append(&self, name: &str, text: &str) {
+        use std::io::Write;
+        let path = self.exports.join(name);
+        let fresh = !path.exists();
+        let mut f = std::fs::OpenOptions::new().create(true).append(true).open(&path).expect("open export");
+        if fresh {
+            writeln!(f, "{PLANT_HEADER}").expect("header");
+        }
+        f.write_all(text.as_bytes()).expect("append");
+        f.sync_all().expect("sync");
+    }
+
+    /// All soft-tag files of the unit, concatenated in name order.
+    pub fn soft_tags(dir: &Path) -> String {
+        let mut names: Vec<PathBuf> = std::fs::read_dir(dir.join("T-1"))
+            .map(|rd| {
+                rd.flatten().map(|e| e.path()).filter(|p| p.to_string_lossy().contains("softtags-")).collect()
+            })
+            .unwrap_or_default();
+        names.sort();
+        names.iter().map(|p| std::fs::read_to_string(p).expect("read soft tags")).collect()
+    }
+}

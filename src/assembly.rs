@@ -1,0 +1,433 @@
+//! Interval assembly in event time: samples of each tag are buffered and, when an interval is
+//! complete, aggregated (time-weighted mean for continuous tags, last value for analyzers),
+//! with staleness, quality and range marked.
+//!
+//! Closing rules for the earliest open interval `[start, end)`:
+//! * every required tag has a sample at or after `end` (the normal case);
+//! * or the newest sample of any tag is at least `max_wait` past `end` (a tag has gone quiet:
+//!   event-time lateness, identical live and in replay);
+//! * or the caller says the stream is quiet (no new data for `max_wait` of monotonic wall time
+//!   in the live service, or the end of the input in replay): intervals up to the newest sample
+//!   are closed.
+//!
+//! A sample for an interval already closed is *late*: it is counted, never silently used or
+//! dropped. Duplicates (same tag and time) are idempotent: the first value wins and a
+//! conflicting duplicate is counted. Pure and deterministic; the state serializes into the
+//! checkpoint.
+
+use serde::{Deserialize, Serialize};
+
+use crate::config::TagKind;
+use crate::ingest::rows::{Quality, Sample};
+
+/// Per-tag rules the assembler needs.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TagRule {
+    /// Aggregation.
+    pub kind: TagKind,
+    /// Whether closing waits for this tag.
+    pub required: bool,
+    /// Staleness limit, ms.
+    pub stale_after_ms: i64,
+    /// Valid range in the tag's unit.
+    pub range: Option<(f64, f64)>,
+}
+
+/// What happened to a sample.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Added {
+    /// Buffered.
+    Accepted,
+    /// Its interval was already closed.
+    Late,
+}
+
+/// Status of a tag in a closed interval.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum TagStatus {
+    /// A fresh good (or uncertain) value.
+    Ok,
+    /// The newest usable value is older than the staleness limit.
+    Stale,
+    /// No usable value has ever been seen.
+    Missing,
+    /// Samples arrived but none was usable (bad quality or out of range).
+    Bad,
+}
+
+/// One tag over one interval.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TagValue {
+    /// Aggregate in the tag's unit (also given when stale, for display).
+    pub value: Option<f64>,
+    /// Status.
+    pub status: TagStatus,
+    /// Some sample used had uncertain quality.
+    pub uncertain: bool,
+    /// Samples in the interval.
+    pub samples: u32,
+    /// Samples rejected as bad quality.
+    pub bad: u32,
+    /// Samples outside the valid range.
+    pub out_of_range: u32,
+    /// Age of the newest usable value at the interval end, ms.
+    pub age_ms: Option<i64>,
+    /// Minimum and maximum of the usable samples in the interval (for flatline checks).
+    pub min_max: Option<(f64, f64)>,
+}
+
+/// A closed interval.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Closed {
+    /// Start, ms since the epoch.
+    pub start_ms: i64,
+    /// End, ms since the epoch.
+    pub end_ms: i64,
+    /// Per tag, in tag-table order.
+    pub tags: Vec<TagValue>,
+    /// Duplicate samples with a different value (the first was kept).
+    pub conflicting_duplicates: u32,
+}
+
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+struct TagBuf {
+    /// (time, value, quality) not yet consumed, in arrival order.
+    samples: Vec<(i64, f64, Quality)>,
+    /// The newest usable sample before the open window (sample-and-hold carry).
+    carry: Option<(i64, f64, bool)>,
+    /// Newest sample time seen (any quality).
+    latest: Option<i64>,
+    /// Whether a usable value was ever seen.
+    ever_usable: bool,
+}
+
+/// The interval assembler of one unit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Assembler {
+    interval_ms: i64,
+    max_wait_ms: i64,
+    #[serde(skip)]
+    rules: Vec<TagRule>,
+    bufs: Vec<TagBuf>,
+    /// Start of the earliest interval not yet closed (None before the first close).
+    open_from: Option<i64>,
+    /// Newest sample time of any tag.
+    max_event: Option<i64>,
+}
+
+fn floor_to(t: i64, step: i64) -> i64 {
+    t.div_euclid(step) * step
+}
+
+impl Assembler {
+    /// A new assembler.
+    pub fn new(interval_ms: i64, max_wait_ms: i64, rules: Vec<TagRule>) -> Assembler {
+        let bufs = vec![TagBuf::default(); rules.len()];
+        Assembler { interval_ms, max_wait_ms, rules, bufs, open_from: None, max_event: None }
+    }
+
+    /// Restore from a checkpoint with the current rules (tags must match by count; otherwise
+    /// the saved buffers are dropped and the assembler starts fresh at the saved position).
+    pub fn restore(
+        mut saved: Assembler,
+        interval_ms: i64,
+        max_wait_ms: i64,
+        rules: Vec<TagRule>,
+    ) -> Assembler {
+        if saved.bufs.len() != rules.len() || saved.interval_ms != interval_ms {
+            let mut fresh = Assembler::new(interval_ms, max_wait_ms, rules);
+            fresh.open_from = saved.open_from.map(|t| floor_to(t, interval_ms));
+            return fresh;
+        }
+        saved.rules = rules;
+        saved.max_wait_ms = max_wait_ms;
+        saved
+    }
+
+    /// Start of the earliest open interval, if any interval was closed yet.
+    pub fn open_from(&self) -> Option<i64> {
+        self.open_from
+    }
+
+    /// Whether samples are waiting in an open interval.
+    pub fn has_open(&self) -> bool {
+        self.bufs.iter().any(|b| !b.samples.is_empty())
+    }
+
+    /// Add a sample.
+    pub fn add(&mut self, s: &Sample) -> Added {
+        if let Some(open) = self.open_from
+            && s.t_ms < open
+        {
+            return Added::Late;
+        }
+        let Some(buf) = self.bufs.get_mut(s.tag) else { return Added::Late };
+        buf.samples.push((s.t_ms, s.value, s.quality));
+        buf.latest = Some(buf.latest.map_or(s.t_ms, |l| l.max(s.t_ms)));
+        self.max_event = Some(self.max_event.map_or(s.t_ms, |m| m.max(s.t_ms)));
+        Added::Accepted
+    }
+
+    /// The earliest open interval, if there are samples.
+    fn earliest(&self) -> Option<(i64, i64)> {
+        let start = match self.open_from {
+            Some(t) => t,
+            None => {
+                let min = self.bufs.iter().flat_map(|b| b.samples.iter().map(|s| s.0)).min()?;
+                floor_to(min, self.interval_ms)
+            }
+        };
+        Some((start, start + self.interval_ms))
+    }
+
+    /// Whether the earliest open interval may close now (cheap; call after each sample).
+    pub fn ready(&self, quiet: bool) -> bool {
+        let (Some((start, end)), Some(max_event)) = (self.earliest(), self.max_event) else { return false };
+        if quiet && start <= max_event {
+            return true;
+        }
+        if max_event >= end + self.max_wait_ms {
+            return true;
+        }
+        let mut any_required = false;
+        for (rule, buf) in self.rules.iter().zip(&self.bufs) {
+            if rule.required {
+                any_required = true;
+                if buf.latest.is_none_or(|l| l < end) {
+                    return false;
+                }
+            }
+        }
+        any_required
+    }
+
+    /// Close the earliest interval if it is ready.
+    pub fn close_next(&mut self, quiet: bool) -> Option<Closed> {
+        if !self.ready(quiet) {
+            return None;
+        }
+        let (start, end) = self.earliest()?;
+        let mut conflicting = 0u32;
+        let tags = self
+            .rules
+            .iter()
+            .zip(self.bufs.iter_mut())
+            .map(|(rule, buf)| aggregate(rule, buf, start, end, &mut conflicting))
+            .collect();
+        self.open_from = Some(end);
+        Some(Closed { start_ms: start, end_ms: end, tags, conflicting_duplicates: conflicting })
+    }
+}
+
+fn usable(rule: &TagRule, v: f64, q: Quality) -> Result<(), bool> {
+    if q == Quality::Bad || !v.is_finite() {
+        return Err(false);
+    }
+    if let Some((lo, hi)) = rule.range
+        && (v < lo || v > hi)
+    {
+        return Err(true);
+    }
+    Ok(())
+}
+
+fn aggregate(rule: &TagRule, buf: &mut TagBuf, start: i64, end: i64, conflicting: &mut u32) -> TagValue {
+    // Take this window's samples (and any strays before it, which can only be duplicates of
+    // already-consumed times) in time order; the rest stay buffered.
+    if !buf.samples.is_sorted_by_key(|s| s.0) {
+        buf.samples.sort_by_key(|s| s.0);
+    }
+    let cut = buf.samples.partition_point(|s| s.0 < end);
+    let window: Vec<(i64, f64, Quality)> = buf.samples.drain(..cut).collect();
+    let mut samples = 0u32;
+    let mut bad = 0u32;
+    let mut out_of_range = 0u32;
+    let mut uncertain = false;
+    let mut min_max: Option<(f64, f64)> = None;
+    // Time-weighted integration with sample-and-hold.
+    // The value held from before the window (staleness is judged from its age below).
+    let mut held: Option<(i64, f64, bool)> = buf.carry;
+    let mut acc = 0.0;
+    let mut covered = 0i64;
+    let mut last_t: Option<i64> = None;
+    let mut cursor = start;
+    for (t, v, q) in window {
+        if last_t == Some(t) {
+            // A duplicate: the first value wins.
+            if let Some((ht, hv, _)) = held
+                && ht == t
+                && hv != v
+            {
+                *conflicting += 1;
+            }
+            continue;
+        }
+        last_t = Some(t);
+        if t < start {
+            continue;
+        }
+        samples += 1;
+        // Close the held segment up to this sample.
+        if let Some((_, hv, _)) = held {
+            let dt = t - cursor;
+            if dt > 0 {
+                acc += hv * dt as f64;
+                covered += dt;
+            }
+        }
+        cursor = t;
+        match usable(rule, v, q) {
+            Ok(()) => {
+                uncertain |= q == Quality::Uncertain;
+                held = Some((t, v, q == Quality::Uncertain));
+                buf.ever_usable = true;
+                min_max = Some(min_max.map_or((v, v), |(a, b)| (a.min(v), b.max(v))));
+            }
+            Err(range) => {
+                if range {
+                    out_of_range += 1;
+                } else {
+                    bad += 1;
+                }
+                // An unusable sample ends the held value: the value is unknown from here on.
+                held = None;
+            }
+        }
+    }
+    if let Some((_, hv, _)) = held {
+        let dt = end - cursor;
+        if dt > 0 {
+            acc += hv * dt as f64;
+            covered += dt;
+        }
+    }
+    // The newest sample decides what is held next: a usable value, or nothing after an
+    // unusable one (the value is unknown until the next usable sample).
+    buf.carry = held;
+    let newest_usable = buf.carry.map(|c| c.0);
+    let age_ms = newest_usable.map(|t| end - t);
+    let value = match rule.kind {
+        TagKind::Continuous if covered > 0 => Some(acc / covered as f64),
+        TagKind::Continuous => buf.carry.map(|c| c.1),
+        TagKind::Analyzer => buf.carry.map(|c| c.1),
+    };
+    uncertain |= buf.carry.is_some_and(|c| c.2) && rule.kind == TagKind::Analyzer;
+    let status = match age_ms {
+        Some(age) if age <= rule.stale_after_ms => TagStatus::Ok,
+        Some(_) => TagStatus::Stale,
+        None if samples > 0 || buf.ever_usable => TagStatus::Bad,
+        None => TagStatus::Missing,
+    };
+    TagValue { value, status, uncertain, samples, bad, out_of_range, age_ms, min_max }
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    const MIN: i64 = 60_000;
+
+    fn rule(kind: TagKind, required: bool) -> TagRule {
+        TagRule { kind, required, stale_after_ms: 5 * MIN, range: Some((0.0, 1000.0)) }
+    }
+
+    fn s(tag: usize, t: i64, v: f64) -> Sample {
+        Sample { tag, t_ms: t, value: v, quality: Quality::Good }
+    }
+
+    #[test]
+    fn time_weighted_mean_with_sample_and_hold() {
+        let mut a = Assembler::new(MIN, 5 * MIN, vec![rule(TagKind::Continuous, true)]);
+        // 10 for the first 15 s, 20 for the remaining 45 s: mean 17.5.
+        a.add(&s(0, 0, 10.0));
+        a.add(&s(0, 15_000, 20.0));
+        assert!(a.close_next(false).is_none(), "no data past the end yet");
+        a.add(&s(0, MIN, 30.0));
+        let c = a.close_next(false).unwrap();
+        assert_eq!((c.start_ms, c.end_ms), (0, MIN));
+        assert!((c.tags[0].value.unwrap() - 17.5).abs() < 1e-12);
+        assert_eq!(c.tags[0].status, TagStatus::Ok);
+        // Out of order inside the open interval: used. Before it: late.
+        a.add(&s(0, MIN + 30_000, 50.0));
+        a.add(&s(0, MIN + 10_000, 40.0));
+        assert_eq!(a.add(&s(0, 30_000, 1.0)), Added::Late);
+        a.add(&s(0, 2 * MIN, 0.0));
+        let c = a.close_next(false).unwrap();
+        // 30 for 10 s, 40 for 20 s, 50 for 30 s.
+        assert!((c.tags[0].value.unwrap() - (300.0 + 800.0 + 1500.0) / 60.0).abs() < 1e-9);
+    }
+
+    #[test]
+    fn duplicates_are_idempotent_and_conflicts_counted() {
+        let mut a = Assembler::new(MIN, 5 * MIN, vec![rule(TagKind::Continuous, true)]);
+        a.add(&s(0, 0, 10.0));
+        a.add(&s(0, 0, 10.0));
+        a.add(&s(0, 30_000, 20.0));
+        a.add(&s(0, 30_000, 99.0));
+        a.add(&s(0, MIN, 1.0));
+        let c = a.close_next(false).unwrap();
+        assert!((c.tags[0].value.unwrap() - 15.0).abs() < 1e-12);
+        assert_eq!(c.conflicting_duplicates, 1);
+        assert_eq!(c.tags[0].samples, 2);
+    }
+
+    #[test]
+    fn analyzer_last_value_staleness_and_bad_quality() {
+        let rules = vec![rule(TagKind::Continuous, true), rule(TagKind::Analyzer, false)];
+        let mut a = Assembler::new(MIN, 5 * MIN, rules);
+        a.add(&s(1, 0, 0.3));
+        for m in 0..=8 {
+            a.add(&s(0, m * MIN, 1.0));
+        }
+        let mut out = Vec::new();
+        while let Some(c) = a.close_next(false) {
+            out.push(c);
+        }
+        assert_eq!(out.len(), 8);
+        assert_eq!(out[0].tags[1].value, Some(0.3));
+        assert_eq!(out[3].tags[1].status, TagStatus::Ok);
+        assert_eq!(out[5].tags[1].status, TagStatus::Stale, "6 min old > 5 min");
+        // A bad sample is not used, and a value outside the range counts as out of range.
+        let mut b = Assembler::new(MIN, 5 * MIN, vec![rule(TagKind::Continuous, true)]);
+        b.add(&Sample { tag: 0, t_ms: 0, value: 5.0, quality: Quality::Bad });
+        b.add(&s(0, 20_000, 5000.0));
+        b.add(&s(0, MIN, 1.0));
+        let c = b.close_next(false).unwrap();
+        assert_eq!((c.tags[0].status, c.tags[0].bad, c.tags[0].out_of_range), (TagStatus::Bad, 1, 1));
+    }
+
+    #[test]
+    fn quiet_tag_and_quiet_stream_close_intervals() {
+        let rules = vec![rule(TagKind::Continuous, true), rule(TagKind::Continuous, true)];
+        let mut a = Assembler::new(MIN, 3 * MIN, rules);
+        // Tag 1 stops after the first minute; tag 0 keeps going.
+        a.add(&s(1, 0, 5.0));
+        for m in 0..=3 {
+            a.add(&s(0, m * MIN, 1.0));
+        }
+        assert!(a.close_next(false).is_none(), "waits for tag 1 until 3 min past the end");
+        a.add(&s(0, 4 * MIN, 1.0));
+        let c = a.close_next(false).unwrap();
+        assert_eq!(c.end_ms, MIN);
+        // End of input: the stream is quiet, intervals up to the newest sample close.
+        let mut n = 1;
+        while a.close_next(true).is_some() {
+            n += 1;
+        }
+        assert_eq!(n, 5);
+    }
+
+    #[test]
+    fn checkpoint_round_trip() {
+        let rules = vec![rule(TagKind::Continuous, true)];
+        let mut a = Assembler::new(MIN, 5 * MIN, rules.clone());
+        a.add(&s(0, 0, 1.0));
+        a.add(&s(0, MIN, 2.0));
+        a.close_next(false);
+        let json = serde_json::to_string(&a).unwrap();
+        let b = Assembler::restore(serde_json::from_str(&json).unwrap(), MIN, 5 * MIN, rules);
+        assert_eq!(a, b);
+    }
+}

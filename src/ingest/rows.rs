@@ -1,0 +1,516 @@
+//! From CSV records to samples: column mapping from each file's header, timestamps (RFC 3339,
+//! or local time in a named IANA zone with DST folds and gaps handled), numbers and quality
+//! words. Every record that cannot be used is rejected with a reason; the caller counts and
+//! logs it with the file and line.
+
+use std::collections::HashMap;
+use std::fmt;
+
+use jiff::Timestamp;
+use jiff::civil::DateTime;
+use jiff::tz::{AmbiguousOffset, TimeZone};
+
+use crate::config::{InputConfig, Layout, TimestampFormat};
+
+/// Quality of a sample (the OPC UA status severities).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Quality {
+    /// Good.
+    Good,
+    /// Uncertain: used, with a doubled uncertainty and a flag.
+    Uncertain,
+    /// Bad: not used.
+    Bad,
+}
+
+/// One value of one tag at one time, in the tag's own engineering unit.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Sample {
+    /// Index of the tag in the unit's tag table.
+    pub tag: usize,
+    /// Event time, ms since the Unix epoch.
+    pub t_ms: i64,
+    /// Value in the tag's unit.
+    pub value: f64,
+    /// Quality.
+    pub quality: Quality,
+}
+
+/// Why a record (or one value of it) was rejected.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Reject {
+    /// Fewer fields than the header.
+    ShortRow {
+        /// Fields found.
+        found: usize,
+        /// Fields expected.
+        expected: usize,
+    },
+    /// The timestamp could not be read.
+    BadTimestamp(String),
+    /// A local time that does not exist (skipped by a DST change).
+    NonexistentLocalTime(String),
+    /// A value is not a finite number.
+    NonNumeric {
+        /// Column or tag.
+        column: String,
+        /// The text.
+        text: String,
+    },
+    /// A tag this unit does not map (long layout).
+    UnknownTag(String),
+    /// An unknown quality word.
+    BadQuality(String),
+    /// The file's header lacks a needed column.
+    MissingColumn(String),
+    /// A record longer than the configured limit.
+    TooLong,
+    /// Not valid UTF-8.
+    NotUtf8,
+}
+
+impl Reject {
+    /// Short reason code for counters and metrics.
+    pub fn code(&self) -> &'static str {
+        match self {
+            Reject::ShortRow { .. } => "short_row",
+            Reject::BadTimestamp(_) => "bad_timestamp",
+            Reject::NonexistentLocalTime(_) => "nonexistent_local_time",
+            Reject::NonNumeric { .. } => "non_numeric",
+            Reject::UnknownTag(_) => "unknown_tag",
+            Reject::BadQuality(_) => "bad_quality",
+            Reject::MissingColumn(_) => "missing_column",
+            Reject::TooLong => "line_too_long",
+            Reject::NotUtf8 => "not_utf8",
+        }
+    }
+}
+
+impl fmt::Display for Reject {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Reject::ShortRow { found, expected } => {
+                write!(f, "short row: {found} fields, the header has {expected}")
+            }
+            Reject::BadTimestamp(t) => write!(f, "unreadable timestamp `{t}`"),
+            Reject::NonexistentLocalTime(t) => {
+                write!(f, "local time `{t}` does not exist (skipped by a daylight-saving change)")
+            }
+            Reject::NonNumeric { column, text } => {
+                write!(f, "value `{text}` of `{column}` is not a finite number")
+            }
+            Reject::UnknownTag(t) => write!(f, "unknown tag `{t}`"),
+            Reject::BadQuality(q) => write!(f, "unknown quality `{q}` (expected good, uncertain or bad)"),
+            Reject::MissingColumn(c) => write!(f, "the file's header has no column `{c}`"),
+            Reject::TooLong => f.write_str("record longer than the configured limit"),
+            Reject::NotUtf8 => f.write_str("record is not valid UTF-8"),
+        }
+    }
+}
+
+/// Parse a quality word (case-insensitive; empty means good).
+pub fn parse_quality(text: &str) -> Option<Quality> {
+    let t = text.trim();
+    if t.is_empty() || t.eq_ignore_ascii_case("good") {
+        Some(Quality::Good)
+    } else if t.eq_ignore_ascii_case("uncertain") {
+        Some(Quality::Uncertain)
+    } else if t.eq_ignore_ascii_case("bad") {
+        Some(Quality::Bad)
+    } else {
+        None
+    }
+}
+
+/// The column plan of one file, built from its header.
+#[derive(Debug, Clone)]
+enum Plan {
+    Wide { ts: usize, cols: Vec<(usize, usize)>, width: usize },
+    Long { ts: usize, tag: usize, value: usize, quality: Option<usize>, width: usize },
+    Unusable(Reject),
+}
+
+/// Timestamp reader with the state needed to resolve DST folds in file order.
+#[derive(Debug, Clone)]
+struct Clock {
+    format: TimestampFormat,
+    tz: TimeZone,
+    last_text: String,
+    last_ms: i64,
+    /// Latest instant read from this file (for folds).
+    latest_ms: Option<i64>,
+}
+
+/// Out-of-order tolerance when choosing between the two instants of a repeated local time.
+const FOLD_TOLERANCE_MS: i64 = 15 * 60_000;
+
+impl Clock {
+    fn read(&mut self, text: &str) -> Result<i64, Reject> {
+        let text = text.trim();
+        if text == self.last_text && !text.is_empty() {
+            return Ok(self.last_ms);
+        }
+        let ms = match &self.format {
+            TimestampFormat::Rfc3339 => {
+                let ts: Timestamp = text.parse().map_err(|_| Reject::BadTimestamp(text.to_string()))?;
+                ts.as_millisecond()
+            }
+            TimestampFormat::Local(fmt) => {
+                let dt = DateTime::strptime(fmt, text).map_err(|_| Reject::BadTimestamp(text.to_string()))?;
+                let amb = self.tz.to_ambiguous_timestamp(dt);
+                match amb.offset() {
+                    AmbiguousOffset::Unambiguous { offset } => offset
+                        .to_timestamp(dt)
+                        .map_err(|_| Reject::BadTimestamp(text.to_string()))?
+                        .as_millisecond(),
+                    AmbiguousOffset::Gap { .. } => {
+                        return Err(Reject::NonexistentLocalTime(text.to_string()));
+                    }
+                    AmbiguousOffset::Fold { before, after } => {
+                        let early =
+                            before.to_timestamp(dt).map_err(|_| Reject::BadTimestamp(text.to_string()))?;
+                        let late =
+                            after.to_timestamp(dt).map_err(|_| Reject::BadTimestamp(text.to_string()))?;
+                        let (early, late) = (early.as_millisecond(), late.as_millisecond());
+                        // The repeated hour: rows are in time order in the export, so once the
+                        // file has passed the first occurrence, the same wall time is the second.
+                        match self.latest_ms {
+                            Some(latest) if early < latest - FOLD_TOLERANCE_MS => late,
+                            _ => early,
+                        }
+                    }
+                }
+            }
+        };
+        self.last_text.clear();
+        self.last_text.push_str(text);
+        self.last_ms = ms;
+        self.latest_ms = Some(self.latest_ms.map_or(ms, |l| l.max(ms)));
+        Ok(ms)
+    }
+}
+
+/// Turns records of the files of one unit into samples.
+#[derive(Debug, Clone)]
+pub struct RowParser {
+    layout: Layout,
+    ts_column: String,
+    reject_unknown: bool,
+    tags: HashMap<String, usize>,
+    tag_names: Vec<String>,
+    /// Per file id: the plan and the clock.
+    files: HashMap<u64, (Plan, Clock)>,
+    format: TimestampFormat,
+    tz: TimeZone,
+}
+
+/// What a header said about a file.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum HeaderInfo {
+    /// Columns mapped; lists tags of the unit the file does not carry (wide layout).
+    Mapped {
+        /// Tags the unit expects that are absent from this file.
+        missing_tags: Vec<String>,
+        /// Columns the unit does not use.
+        ignored_columns: usize,
+    },
+    /// The file cannot be used; every record will be rejected with this reason.
+    Unusable(Reject),
+}
+
+impl RowParser {
+    /// A parser for a unit's input settings and tag names.
+    pub fn new(input: &InputConfig, tag_names: &[String]) -> RowParser {
+        RowParser {
+            layout: input.layout.clone(),
+            ts_column: input.timestamp_column.clone(),
+            reject_unknown: input.reject_unknown_tags,
+            tags: tag_names.iter().enumerate().map(|(i, n)| (n.clone(), i)).collect(),
+            tag_names: tag_names.to_vec(),
+            files: HashMap::new(),
+            format: input.timestamp_format.clone(),
+            tz: input.time_zone.clone(),
+        }
+    }
+
+    /// Forget a file (it was finished or replaced).
+    pub fn forget(&mut self, file: u64) {
+        self.files.remove(&file);
+    }
+
+    /// Read a file's header row and build its column plan.
+    pub fn header(&mut self, file: u64, fields: &[String]) -> HeaderInfo {
+        let find = |name: &str| fields.iter().position(|f| f.trim() == name.trim());
+        let clock = Clock {
+            format: self.format.clone(),
+            tz: self.tz.clone(),
+            last_text: String::new(),
+            last_ms: 0,
+            latest_ms: None,
+        };
+        let (plan, info) = match find(&self.ts_column) {
+            None => {
+                let r = Reject::MissingColumn(self.ts_column.clone());
+                (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
+            }
+            Some(ts) => match &self.layout {
+                Layout::Wide => {
+                    let mut cols = Vec::new();
+                    let mut ignored = 0;
+                    for (i, f) in fields.iter().enumerate() {
+                        if i == ts {
+                            continue;
+                        }
+                        match self.tags.get(f.trim()) {
+                            Some(&t) => cols.push((i, t)),
+                            None => ignored += 1,
+                        }
+                    }
+                    let missing_tags: Vec<String> = self
+                        .tag_names
+                        .iter()
+                        .enumerate()
+                        .filter(|(t, _)| !cols.iter().any(|(_, c)| c == t))
+                        .map(|(_, n)| n.clone())
+                        .collect();
+                    (
+                        Plan::Wide { ts, cols, width: fields.len() },
+                        HeaderInfo::Mapped { missing_tags, ignored_columns: ignored },
+                    )
+                }
+                Layout::Long { tag, value, quality } => match (find(tag), find(value)) {
+                    (Some(tc), Some(vc)) => {
+                        let qc = quality.as_deref().and_then(find);
+                        if let (Some(q), None) = (quality, qc) {
+                            let r = Reject::MissingColumn(q.clone());
+                            (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
+                        } else {
+                            let width = fields.len();
+                            (
+                                Plan::Long { ts, tag: tc, value: vc, quality: qc, width },
+                                HeaderInfo::Mapped { missing_tags: Vec::new(), ignored_columns: 0 },
+                            )
+                        }
+                    }
+                    (None, _) => {
+                        let r = Reject::MissingColumn(tag.clone());
+                        (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
+                    }
+                    (_, None) => {
+                        let r = Reject::MissingColumn(value.clone());
+                        (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
+                    }
+                },
+            },
+        };
+        self.files.insert(file, (plan, clock));
+        info
+    }
+
+    /// Parse one record. Samples go to `out`; the returned list holds the rejections (a wide
+    /// row can yield samples and still reject one non-numeric cell). A record of a file whose
+    /// header was never seen is rejected as unusable.
+    pub fn record<'a>(
+        &mut self,
+        file: u64,
+        n_fields: usize,
+        field: &dyn Fn(usize) -> &'a [u8],
+        out: &mut dyn FnMut(Sample),
+        rejects: &mut Vec<Reject>,
+    ) {
+        let Some((plan, clock)) = self.files.get_mut(&file) else {
+            rejects.push(Reject::MissingColumn(self.ts_column.clone()));
+            return;
+        };
+        let text = |i: usize| std::str::from_utf8(field(i)).map_err(|_| Reject::NotUtf8);
+        match plan {
+            Plan::Unusable(r) => rejects.push(r.clone()),
+            Plan::Wide { ts, cols, width } => {
+                if n_fields <= *ts || n_fields < *width {
+                    rejects.push(Reject::ShortRow { found: n_fields, expected: *width });
+                    return;
+                }
+                let t_ms = match text(*ts).and_then(|t| clock.read(t)) {
+                    Ok(t) => t,
+                    Err(r) => {
+                        rejects.push(r);
+                        return;
+                    }
+                };
+                for &(col, tag) in cols.iter() {
+                    let raw = match text(col) {
+                        Ok(t) => t.trim(),
+                        Err(r) => {
+                            rejects.push(r);
+                            continue;
+                        }
+                    };
+                    if raw.is_empty() {
+                        continue;
+                    }
+                    match raw.parse::<f64>() {
+                        Ok(v) if v.is_finite() => out(Sample { tag, t_ms, value: v, quality: Quality::Good }),
+                        _ => rejects.push(Reject::NonNumeric {
+                            column: self.tag_names[tag].clone(),
+                            text: raw.chars().take(40).collect(),
+                        }),
+                    }
+                }
+            }
+            Plan::Long { ts, tag, value, quality, width } => {
+                if n_fields < *width {
+                    rejects.push(Reject::ShortRow { found: n_fields, expected: *width });
+                    return;
+                }
+                let name = match text(*tag) {
+                    Ok(t) => t.trim(),
+                    Err(r) => {
+                        rejects.push(r);
+                        return;
+                    }
+                };
+                let Some(&tag_idx) = self.tags.get(name) else {
+                    if self.reject_unknown {
+                        rejects.push(Reject::UnknownTag(name.chars().take(60).collect()));
+                    }
+                    return;
+                };
+                let t_ms = match text(*ts).and_then(|t| clock.read(t)) {
+                    Ok(t) => t,
+                    Err(r) => {
+                        rejects.push(r);
+                        return;
+                    }
+                };
+                let q = match quality.map(text) {
+                    None => Quality::Good,
+                    Some(Ok(w)) => match parse_quality(w) {
+                        Some(q) => q,
+                        None => {
+                            rejects.push(Reject::BadQuality(w.chars().take(40).collect()));
+                            return;
+                        }
+                    },
+                    Some(Err(r)) => {
+                        rejects.push(r);
+                        return;
+                    }
+                };
+                let raw = match text(*value) {
+                    Ok(t) => t.trim(),
+                    Err(r) => {
+                        rejects.push(r);
+                        return;
+                    }
+                };
+                if raw.is_empty() && q == Quality::Bad {
+                    out(Sample { tag: tag_idx, t_ms, value: f64::NAN, quality: Quality::Bad });
+                    return;
+                }
+                match raw.parse::<f64>() {
+                    Ok(v) if v.is_finite() => out(Sample { tag: tag_idx, t_ms, value: v, quality: q }),
+                    _ => rejects.push(Reject::NonNumeric {
+                        column: name.to_string(),
+                        text: raw.chars().take(40).collect(),
+                    }),
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    fn input(layout: Layout, format: TimestampFormat, tz: &str) -> InputConfig {
+        InputConfig {
+            directory: ".".into(),
+            pattern: "*.csv".into(),
+            layout,
+            timestamp_column: "time".into(),
+            timestamp_format: format,
+            time_zone: TimeZone::get(tz).unwrap(),
+            reject_unknown_tags: true,
+        }
+    }
+
+    fn parse(p: &mut RowParser, file: u64, line: &str) -> (Vec<Sample>, Vec<Reject>) {
+        let fields: Vec<&str> = line.split(',').collect();
+        let mut samples = Vec::new();
+        let mut rejects = Vec::new();
+        p.record(file, fields.len(), &|i| fields[i].as_bytes(), &mut |s| samples.push(s), &mut rejects);
+        (samples, rejects)
+    }
+
+    #[test]
+    fn wide_rows_map_columns_by_header() {
+        let tags = vec!["FI-1".to_string(), "TI-2".to_string()];
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let header: Vec<String> = ["TI-2", "time", "XX-9", "FI-1"].iter().map(|s| s.to_string()).collect();
+        assert_eq!(p.header(1, &header), HeaderInfo::Mapped { missing_tags: vec![], ignored_columns: 1 });
+        let (s, r) = parse(&mut p, 1, "351.2,2026-12-01T10:00:00Z,7,12.5");
+        assert!(r.is_empty());
+        assert_eq!(s.len(), 2);
+        assert_eq!((s[0].tag, s[0].value), (1, 351.2));
+        assert_eq!(s[1].t_ms, 1_796_119_200_000);
+        let (s, r) = parse(&mut p, 1, "abc,2026-12-01T10:01:00+01:00,7,");
+        assert!(s.is_empty());
+        assert_eq!(r[0].code(), "non_numeric");
+        let (_, r) = parse(&mut p, 1, "1,2026-13-01T10:00:00Z,7,1");
+        assert_eq!(r[0].code(), "bad_timestamp");
+        let (_, r) = parse(&mut p, 1, "1,2026-12-01T10:00:00Z");
+        assert_eq!(r[0].code(), "short_row");
+    }
+
+    #[test]
+    fn long_rows_with_quality() {
+        let tags = vec!["FI-1".to_string()];
+        let layout =
+            Layout::Long { tag: "tag".into(), value: "value".into(), quality: Some("quality".into()) };
+        let mut p = RowParser::new(&input(layout, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let header: Vec<String> = ["time", "tag", "value", "quality"].iter().map(|s| s.to_string()).collect();
+        p.header(7, &header);
+        let (s, _) = parse(&mut p, 7, "2026-12-01T10:00:00Z,FI-1,3.5,Uncertain");
+        assert_eq!(s[0].quality, Quality::Uncertain);
+        let (_, r) = parse(&mut p, 7, "2026-12-01T10:00:00Z,FI-9,3.5,good");
+        assert_eq!(r, vec![Reject::UnknownTag("FI-9".into())]);
+        let (_, r) = parse(&mut p, 7, "2026-12-01T10:00:00Z,FI-1,3.5,dubious");
+        assert_eq!(r[0].code(), "bad_quality");
+    }
+
+    /// Source: IANA tz database, Europe/London: clocks go back from 02:00 BST to 01:00 GMT on
+    /// 2026-10-25 and forward from 01:00 GMT to 02:00 BST on 2026-03-29.
+    #[test]
+    fn local_times_across_daylight_saving_changes() {
+        let tags = vec!["TI-2".to_string()];
+        let fmt = TimestampFormat::Local("%Y-%m-%d %H:%M".into());
+        let mut p = RowParser::new(&input(Layout::Wide, fmt, "Europe/London"), &tags);
+        p.header(1, &["time".to_string(), "TI-2".to_string()]);
+        let times = [
+            "2026-10-25 00:30",
+            "2026-10-25 01:00",
+            "2026-10-25 01:30",
+            "2026-10-25 01:00",
+            "2026-10-25 01:30",
+            "2026-10-25 02:00",
+        ];
+        let got: Vec<i64> = times.iter().map(|t| parse(&mut p, 1, &format!("{t},1")).0[0].t_ms).collect();
+        let utc = |s: &str| s.parse::<Timestamp>().unwrap().as_millisecond();
+        assert_eq!(
+            got,
+            vec![
+                utc("2026-10-24T23:30:00Z"),
+                utc("2026-10-25T00:00:00Z"),
+                utc("2026-10-25T00:30:00Z"),
+                utc("2026-10-25T01:00:00Z"),
+                utc("2026-10-25T01:30:00Z"),
+                utc("2026-10-25T02:00:00Z"),
+            ]
+        );
+        let (_, r) = parse(&mut p, 1, "2026-03-29 01:30,1");
+        assert_eq!(r[0].code(), "nonexistent_local_time");
+    }
+}

@@ -1,0 +1,544 @@
+//! The per-interval unit model: from an assembled interval to the soft tags (predicted
+//! effluent temperature with its uncertainty, residual, apparent conversion, heater
+//! effectiveness), the validity flags, and the conditions the alert lifecycle acts on.
+//!
+//! Pure: the same interval and configuration always give the same result.
+
+use std::fmt;
+
+use serde::Serialize;
+
+use crate::assembly::{Closed, TagStatus};
+use crate::config::{Signal, TagKind, UnitConfig};
+use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
+use crate::thermo::uncertainty::{InputRef, Uncertain, propagate};
+
+/// Tolerance on analyzer fractions summing to 1 before the sum is flagged (analyzers are
+/// noisier than typed-in design values; common practice is to accept about 1 mol-%).
+pub const ANALYZER_SUM_TOLERANCE: f64 = 0.01;
+
+/// What an alert is about.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Cause {
+    /// Less heat reaches the process than the duty says.
+    HeaterFouling,
+    /// The conversion (heat of reaction) drifts.
+    ConversionDrift,
+    /// A measurement is wrong.
+    InstrumentFault,
+    /// Heat is lost to the surroundings.
+    HeatLoss,
+    /// Stale, bad or missing inputs.
+    DataQuality,
+    /// The model is used outside its validity.
+    ModelValidity,
+    /// A mismatch the data cannot attribute.
+    Undetermined,
+}
+
+impl Cause {
+    /// The name used in alert events.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Cause::HeaterFouling => "heater_fouling",
+            Cause::ConversionDrift => "conversion_drift",
+            Cause::InstrumentFault => "instrument_fault",
+            Cause::HeatLoss => "heat_loss",
+            Cause::DataQuality => "data_quality",
+            Cause::ModelValidity => "model_validity",
+            Cause::Undetermined => "undetermined",
+        }
+    }
+}
+
+impl fmt::Display for Cause {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// Alert priority (ISA-18.2 style: high, medium, low).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Severity {
+    /// Informational; no prompt action expected.
+    Low,
+    /// Act within the shift.
+    Medium,
+    /// Act promptly.
+    High,
+}
+
+impl Severity {
+    /// Lower-case name.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Severity::Low => "low",
+            Severity::Medium => "medium",
+            Severity::High => "high",
+        }
+    }
+}
+
+/// A condition present in one interval; the alert lifecycle turns persistent ones into alerts.
+#[derive(Debug, Clone, PartialEq, Serialize, serde::Deserialize)]
+pub struct Condition {
+    /// Cause.
+    pub cause: Cause,
+    /// What it is about (a tag, a flag code, a chart).
+    pub subject: String,
+    /// Priority.
+    pub severity: Severity,
+    /// One sentence an engineer can act on.
+    pub message: String,
+    /// Supporting figures.
+    pub evidence: serde_json::Map<String, serde_json::Value>,
+    /// Size of the deviation in the condition's own unit (for re-raise suppression).
+    #[serde(default)]
+    pub magnitude: Option<f64>,
+}
+
+/// Process figures of the interval that the monitor uses besides the soft tags.
+#[derive(Debug, Clone, Default, PartialEq, Serialize)]
+pub struct Signals {
+    /// Reported duty, W.
+    pub duty_w: Option<f64>,
+    /// Duty needed to reach the measured temperature, W.
+    pub needed_duty_w: Option<f64>,
+    /// Total feed, mol/s.
+    pub feed_mol_s: Option<f64>,
+    /// Key-reactant feed of the apparent-conversion reaction, mol/s.
+    pub key_feed_mol_s: Option<f64>,
+    /// Feed temperatures, K.
+    pub feed_temperatures_k: Vec<Option<f64>>,
+    /// Ambient temperature, K.
+    pub ambient_k: Option<f64>,
+    /// Measured conversion (conversion tag), if mapped and fresh.
+    pub measured_conversion: Option<f64>,
+    /// Effluent heat-capacity flow, W/K.
+    pub heat_capacity_w_k: Option<f64>,
+    /// Per tag: value in SI (None when unusable), for flatline and spike checks.
+    pub tag_values_si: Vec<Option<f64>>,
+    /// Per tag: (min, max) of the interval's samples in SI.
+    pub tag_ranges_si: Vec<Option<(f64, f64)>>,
+}
+
+/// Everything computed for one interval.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Evaluation {
+    /// Interval start, ms.
+    pub start_ms: i64,
+    /// Interval end, ms.
+    pub end_ms: i64,
+    /// Predicted effluent temperature, K.
+    pub predicted_k: Option<f64>,
+    /// Measured effluent temperature, K.
+    pub measured_k: Option<f64>,
+    /// Measured minus predicted, K.
+    pub residual_k: Option<f64>,
+    /// Standard uncertainty of the prediction, K.
+    pub u_pred_k: Option<f64>,
+    /// The input that dominates the uncertainty.
+    pub dominant_input: Option<String>,
+    /// Conversion that reproduces the measured temperature.
+    pub apparent_conversion: Option<f64>,
+    /// Duty needed / duty reported.
+    pub effectiveness: Option<f64>,
+    /// Validity and data-quality flags (codes).
+    pub flags: Vec<String>,
+    /// Why the prediction could not be computed.
+    pub reason: Option<String>,
+    /// Conditions for the alert lifecycle.
+    pub conditions: Vec<Condition>,
+    /// Process figures for the monitor.
+    pub signals: Signals,
+}
+
+fn evidence(pairs: &[(&str, serde_json::Value)]) -> serde_json::Map<String, serde_json::Value> {
+    pairs.iter().map(|(k, v)| ((*k).to_string(), v.clone())).collect()
+}
+
+struct Reader<'a> {
+    unit: &'a UnitConfig,
+    closed: &'a Closed,
+}
+
+impl Reader<'_> {
+    /// SI value and standard uncertainty of a signal, or why it is unusable.
+    fn get(&self, s: Signal) -> Result<(f64, f64), String> {
+        match s {
+            Signal::Fixed { si, u } => Ok((si, u)),
+            Signal::Tag(i) => {
+                let tag = &self.unit.tags[i];
+                let tv = &self.closed.tags[i];
+                match (tv.status, tv.value) {
+                    (TagStatus::Ok, Some(v)) => {
+                        let si = tag.unit.to_si(v);
+                        let mut u = tag.uncertainty.at(si);
+                        if tv.uncertain {
+                            // Common practice: uncertain quality doubles the standard uncertainty.
+                            u *= 2.0;
+                        }
+                        Ok((si, u))
+                    }
+                    (status, _) => Err(format!("{} ({}) is {}", tag.name, tag.role, status_word(status))),
+                }
+            }
+        }
+    }
+
+    fn label(&self, s: Signal, fallback: &str) -> String {
+        match s {
+            Signal::Tag(i) => format!("{} ({})", self.unit.tags[i].name, self.unit.tags[i].role),
+            Signal::Fixed { .. } => fallback.to_string(),
+        }
+    }
+}
+
+fn status_word(s: TagStatus) -> &'static str {
+    match s {
+        TagStatus::Ok => "ok",
+        TagStatus::Stale => "stale",
+        TagStatus::Missing => "missing",
+        TagStatus::Bad => "bad",
+    }
+}
+
+/// Evaluate one closed interval of a unit.
+pub fn evaluate(unit: &UnitConfig, closed: &Closed) -> Evaluation {
+    let rd = Reader { unit, closed };
+    let mut flags: Vec<String> = Vec::new();
+    let mut conditions: Vec<Condition> = Vec::new();
+    let mut signals = Signals::default();
+
+    // Data quality of every tag.
+    for (tag, tv) in unit.tags.iter().zip(&closed.tags) {
+        signals.tag_values_si.push(match tv.status {
+            TagStatus::Ok => tv.value.map(|v| tag.unit.to_si(v)),
+            _ => None,
+        });
+        signals.tag_ranges_si.push(tv.min_max.map(|(a, b)| (tag.unit.to_si(a), tag.unit.to_si(b))));
+        if tv.uncertain {
+            flags.push(format!("uncertain:{}", tag.name));
+        }
+        if tv.out_of_range > 0 {
+            flags.push(format!("range:{}", tag.name));
+        }
+        if tv.status == TagStatus::Ok {
+            continue;
+        }
+        flags.push(format!("{}:{}", status_word(tv.status), tag.name));
+        let age = tv.age_ms.map(|a| a as f64 / 60_000.0);
+        let what = if tag.kind == TagKind::Analyzer { "analyzer value" } else { "value" };
+        let message = match (tv.status, age) {
+            (TagStatus::Stale, Some(min)) => format!(
+                "{} ({}) has sent no usable {what} for {min:.0} min; results that need it are suspended: check the instrument and the export link.",
+                tag.name, tag.role
+            ),
+            (TagStatus::Bad, _) => format!(
+                "{} ({}) reports only bad-quality or out-of-range values ({} bad, {} out of range); check the instrument.",
+                tag.name, tag.role, tv.bad, tv.out_of_range
+            ),
+            _ => format!(
+                "{} ({}) has no usable {what} in the export files; check the tag mapping and the export.",
+                tag.name, tag.role
+            ),
+        };
+        let severity = if tag.required { Severity::Medium } else { Severity::Low };
+        conditions.push(Condition {
+            cause: Cause::DataQuality,
+            subject: tag.name.clone(),
+            severity,
+            message,
+            evidence: evidence(&[
+                ("tag", tag.name.clone().into()),
+                ("status", status_word(tv.status).into()),
+                ("age_min", age.map_or(serde_json::Value::Null, Into::into)),
+                ("bad_samples", tv.bad.into()),
+                ("out_of_range_samples", tv.out_of_range.into()),
+            ]),
+            magnitude: None,
+        });
+    }
+
+    let measured = rd.get(Signal::Tag(unit.effluent_temperature)).ok();
+    signals.ambient_k = unit.ambient.and_then(|a| rd.get(a).ok()).map(|x| x.0);
+    let mut eval = Evaluation {
+        start_ms: closed.start_ms,
+        end_ms: closed.end_ms,
+        predicted_k: None,
+        measured_k: measured.map(|m| m.0),
+        residual_k: None,
+        u_pred_k: None,
+        dominant_input: None,
+        apparent_conversion: None,
+        effectiveness: None,
+        flags: Vec::new(),
+        reason: None,
+        conditions: Vec::new(),
+        signals,
+    };
+
+    match build_inputs(unit, &rd, measured.map(|m| m.0), &mut flags, &mut conditions, &mut eval.signals) {
+        Err(reason) => eval.reason = Some(reason),
+        Ok((inputs, uncertain)) => {
+            solve_all(unit, &inputs, &uncertain, measured, &mut eval, &mut flags, &mut conditions)
+        }
+    }
+    if eval.reason.is_some() {
+        flags.push("not_computed".into());
+    }
+    flags.dedup();
+    eval.flags = flags;
+    eval.conditions = conditions;
+    eval
+}
+
+type Built = (Inputs, Vec<Uncertain>);
+
+fn build_inputs(
+    unit: &UnitConfig,
+    rd: &Reader<'_>,
+    measured_k: Option<f64>,
+    flags: &mut Vec<String>,
+    conditions: &mut Vec<Condition>,
+    signals: &mut Signals,
+) -> Result<Built, String> {
+    let mut problems: Vec<String> = Vec::new();
+    let mut uncertain = Vec::new();
+    let mut feeds = Vec::new();
+    for (j, f) in unit.feeds.iter().enumerate() {
+        let flow = rd.get(f.flow);
+        let temp = rd.get(f.temperature);
+        signals.feed_temperatures_k.push(temp.as_ref().ok().map(|t| t.0));
+        let mut fractions = Vec::with_capacity(f.composition.len());
+        let mut comp_ok = true;
+        for (i, s) in f.composition.iter().enumerate() {
+            match rd.get(*s) {
+                Ok((x, u)) => {
+                    fractions.push(x);
+                    if u > 0.0 {
+                        uncertain.push(Uncertain {
+                            input: InputRef::FeedFraction(j, i),
+                            u,
+                            label: rd
+                                .label(*s, &format!("{} {} fraction", f.name, unit.system.components[i].id)),
+                        });
+                    }
+                }
+                Err(p) => {
+                    problems.push(p);
+                    comp_ok = false;
+                }
+            }
+        }
+        let (Ok((flow_si, flow_u)), Ok((t_si, t_u))) = (&flow, &temp) else {
+            problems.extend(flow.err().into_iter().chain(temp.err()));
+            continue;
+        };
+        if !comp_ok {
+            continue;
+        }
+        let sum: f64 = fractions.iter().sum();
+        if sum <= 0.0 {
+            problems.push(format!("{} composition sums to zero", f.name));
+            continue;
+        }
+        if (sum - 1.0).abs() > ANALYZER_SUM_TOLERANCE {
+            let code = format!("composition_sum:{}", f.name.replace(' ', "_"));
+            flags.push(code.clone());
+            conditions.push(Condition {
+                cause: Cause::ModelValidity,
+                subject: code,
+                severity: Severity::Low,
+                message: format!(
+                    "{} fractions sum to {sum:.4}, not 1; they are rescaled, but check the analyzer calibration.",
+                    f.name
+                ),
+                evidence: evidence(&[("sum", sum.into())]),
+                magnitude: None,
+            });
+            if !f.normalize {
+                problems.push(format!("{} fractions sum to {sum:.4} and normalize = false", f.name));
+                continue;
+            }
+        }
+        for x in &mut fractions {
+            *x /= sum;
+        }
+        if *flow_u > 0.0 {
+            uncertain.push(Uncertain {
+                input: InputRef::FeedFlow(j),
+                u: *flow_u,
+                label: rd.label(f.flow, &format!("{} flow", f.name)),
+            });
+        }
+        if *t_u > 0.0 {
+            uncertain.push(Uncertain {
+                input: InputRef::FeedTemperature(j),
+                u: *t_u,
+                label: rd.label(f.temperature, &format!("{} temperature", f.name)),
+            });
+        }
+        feeds.push(FeedInput {
+            flow: if f.mass_flow { FlowValue::Mass(*flow_si) } else { FlowValue::Molar(*flow_si) },
+            temperature: *t_si,
+            fractions,
+            basis: f.basis,
+        });
+    }
+    let duty = rd.get(unit.duty);
+    let heat_loss = rd.get(unit.heat_loss).unwrap_or((0.0, 0.0));
+    if let Ok((d, u)) = duty {
+        signals.duty_w = Some(d);
+        if u > 0.0 {
+            uncertain.push(Uncertain { input: InputRef::Duty, u, label: rd.label(unit.duty, "heater duty") });
+        }
+    } else if let Err(p) = &duty {
+        problems.push(p.clone());
+    }
+    if heat_loss.1 > 0.0 {
+        uncertain.push(Uncertain {
+            input: InputRef::HeatLoss,
+            u: heat_loss.1,
+            label: rd.label(unit.heat_loss, "heat loss"),
+        });
+    }
+    let effluent = if let Some((sigs, basis)) = &unit.effluent_composition {
+        let mut fr = Vec::new();
+        for (i, s) in sigs.iter().enumerate() {
+            match rd.get(*s) {
+                Ok((x, u)) => {
+                    fr.push(x);
+                    if u > 0.0 {
+                        uncertain.push(Uncertain {
+                            input: InputRef::EffluentFraction(i),
+                            u,
+                            label: rd
+                                .label(*s, &format!("effluent {} fraction", unit.system.components[i].id)),
+                        });
+                    }
+                }
+                Err(p) => problems.push(p),
+            }
+        }
+        Effluent::Measured { fractions: fr, basis: *basis }
+    } else if unit.system.reactions.is_empty() {
+        Effluent::Mixed
+    } else {
+        let mut conversions = Vec::new();
+        for (r, c) in unit.conversions.iter().enumerate() {
+            let measured = c.tag.and_then(|t| rd.get(t).ok());
+            if r == unit.apparent_reaction.unwrap_or(usize::MAX) {
+                signals.measured_conversion = measured.map(|m| m.0);
+            }
+            let (x, u) = measured.unwrap_or((c.design, c.u));
+            conversions.push(Some(x));
+            if u > 0.0 {
+                uncertain.push(Uncertain {
+                    input: InputRef::Conversion(r),
+                    u,
+                    label: c.tag.map_or_else(
+                        || format!("{} conversion", unit.system.reactions[r].label),
+                        |t| rd.label(t, ""),
+                    ),
+                });
+            }
+        }
+        Effluent::Reacted { conversions }
+    };
+    if !problems.is_empty() {
+        problems.dedup();
+        return Err(problems.join("; "));
+    }
+    let pressure = unit.pressure.and_then(|p| rd.get(p).ok()).map(|p| p.0);
+    if unit.pressure.is_some() && pressure.is_none() {
+        flags.push("no_pressure".into());
+    }
+    Ok((
+        Inputs {
+            feeds,
+            effluent,
+            duty: duty.ok().map(|d| d.0),
+            heat_loss: heat_loss.0,
+            effluent_temperature: measured_k,
+            pressure,
+            bubble_margin: unit.bubble_margin,
+        },
+        uncertain,
+    ))
+}
+
+fn solve_all(
+    unit: &UnitConfig,
+    inputs: &Inputs,
+    uncertain: &[Uncertain],
+    measured: Option<(f64, f64)>,
+    eval: &mut Evaluation,
+    flags: &mut Vec<String>,
+    conditions: &mut Vec<Condition>,
+) {
+    let sys = &unit.system;
+    let outcome = match sys.solve(inputs, Unknown::Temperature) {
+        Ok(o) => o,
+        Err(e) => {
+            eval.reason = Some(e.to_string());
+            flags.push("solver_failed".into());
+            return;
+        }
+    };
+    eval.predicted_k = Some(outcome.t_out);
+    eval.signals.heat_capacity_w_k = Some(outcome.cp_out);
+    eval.signals.feed_mol_s = Some(outcome.feed_flows.iter().flatten().sum());
+    if let Some(r) = unit.apparent_reaction.filter(|r| *r < sys.reactions.len()) {
+        let key = sys.reactions[r].key;
+        eval.signals.key_feed_mol_s = Some(outcome.feed_flows.iter().map(|f| f[key]).sum());
+    }
+    if !uncertain.is_empty() {
+        let report = propagate(sys, inputs, &outcome, uncertain);
+        eval.u_pred_k = Some(report.u);
+        eval.dominant_input = report.dominant().map(|c| c.label.clone());
+    }
+    for f in &outcome.flags {
+        let code = f.code();
+        let severity = match f {
+            crate::thermo::Flag::TwoPhaseRisk { .. } | crate::thermo::Flag::AboveCritical { .. } => {
+                Severity::Medium
+            }
+            _ => Severity::Low,
+        };
+        conditions.push(Condition {
+            cause: Cause::ModelValidity,
+            subject: code.clone(),
+            severity,
+            message: format!("{f}."),
+            evidence: evidence(&[("flag", code.clone().into()), ("predicted_k", outcome.t_out.into())]),
+            magnitude: None,
+        });
+        flags.push(code);
+    }
+    let Some((t_meas, _)) = measured else { return };
+    eval.residual_k = Some(t_meas - outcome.t_out);
+    // Heater effectiveness: the duty needed to reach the measured temperature / reported duty.
+    let mut at_measured = inputs.clone();
+    at_measured.effluent_temperature = Some(t_meas);
+    if let (Ok(o), Some(reported)) = (sys.solve(&at_measured, Unknown::Duty), inputs.duty) {
+        eval.signals.needed_duty_w = Some(o.duty);
+        if reported.abs() > 1.0 {
+            eval.effectiveness = Some(o.duty / reported);
+        }
+    }
+    // Apparent conversion: the conversion that reproduces the measured temperature.
+    if let (Some(r), Effluent::Reacted { conversions }) = (unit.apparent_reaction, &inputs.effluent) {
+        let mut c = conversions.clone();
+        if r < c.len() {
+            c[r] = None;
+            at_measured.effluent = Effluent::Reacted { conversions: c };
+            match sys.solve(&at_measured, Unknown::Conversion(r)) {
+                Ok(o) => eval.apparent_conversion = Some(o.conversions[r]),
+                Err(_) => flags.push("apparent_conversion_unavailable".into()),
+            }
+        }
+    }
+}

@@ -1,0 +1,350 @@
+//! Output sinks: the soft-tag CSV (one file per unit per local day) and the alert JSON lines
+//! (one file per unit per local day, optionally also standard output).
+//!
+//! Effects are idempotent by key: a soft-tag row by (unit, interval end), an alert event by its
+//! per-unit sequence number. On start each writer reads the end of its newest file (repairing a
+//! half-written last line left by a crash) and then skips whatever is already there, so
+//! re-processing after a crash never writes an interval or an alert event twice.
+
+use std::fs::{self, File, OpenOptions};
+use std::io::{self, BufWriter, Read, Seek, SeekFrom, Write};
+use std::path::{Path, PathBuf};
+
+use jiff::Timestamp;
+use jiff::tz::TimeZone;
+
+use crate::alerts::AlertEvent;
+use crate::model::Evaluation;
+use crate::units::{self, Quantity, Unit};
+
+/// The soft-tag CSV header (stable; documented in the README).
+pub const SOFT_TAG_HEADER: &str = "time,unit,predicted_temperature,measured_temperature,residual,prediction_uncertainty,apparent_conversion,heater_effectiveness,monitor_state,flags";
+
+/// RFC 3339 time of an instant in a zone, e.g. `2026-12-01T10:05:00+00:00`.
+pub fn rfc3339(ms: i64, tz: &TimeZone) -> String {
+    match Timestamp::from_millisecond(ms) {
+        Ok(ts) => ts.to_zoned_datetime(tz.clone()).strftime("%Y-%m-%dT%H:%M:%S%:z").to_string(),
+        Err(_) => ms.to_string(),
+    }
+}
+
+/// Local calendar date (YYYY-MM-DD) of the interval that ends at `end_ms` (an interval ending
+/// at midnight belongs to the day before).
+pub fn day_of(end_ms: i64, tz: &TimeZone) -> String {
+    match Timestamp::from_millisecond(end_ms - 1) {
+        Ok(ts) => ts.to_zoned_datetime(tz.clone()).strftime("%Y-%m-%d").to_string(),
+        Err(_) => "invalid-date".into(),
+    }
+}
+
+/// Escape a text cell for CSV: quote when needed, and defuse cells a spreadsheet would execute
+/// (leading `=`, `+`, `-`, `@`) with a leading apostrophe.
+pub fn csv_text(text: &str) -> String {
+    let defused = if text.starts_with(['=', '+', '-', '@']) { format!("'{text}") } else { text.to_string() };
+    if defused.contains([',', '"', '\n', '\r']) {
+        format!("\"{}\"", defused.replace('"', "\"\""))
+    } else {
+        defused
+    }
+}
+
+fn num(v: Option<f64>, decimals: usize) -> String {
+    match v {
+        Some(x) if x.is_finite() => format!("{x:.decimals$}"),
+        _ => String::new(),
+    }
+}
+
+/// Read the last complete line of a file, truncating a half-written tail first.
+fn repair_and_last_line(path: &Path) -> io::Result<Option<String>> {
+    let mut f = OpenOptions::new().read(true).write(true).open(path)?;
+    let len = f.metadata()?.len();
+    if len == 0 {
+        return Ok(None);
+    }
+    let window = len.min(256 * 1024);
+    f.seek(SeekFrom::Start(len - window))?;
+    let mut buf = Vec::with_capacity(usize::try_from(window).unwrap_or(0));
+    f.read_to_end(&mut buf)?;
+    let keep = match buf.iter().rposition(|&b| b == b'\n') {
+        Some(i) => i + 1,
+        None if window == len => 0,
+        None => return Ok(None),
+    };
+    if keep < buf.len() {
+        // A crash left a partial line: drop it (its content is regenerated on re-processing).
+        f.set_len(len - window + keep as u64)?;
+        f.sync_all()?;
+        buf.truncate(keep);
+    }
+    let text = String::from_utf8_lossy(&buf);
+    Ok(text.lines().rev().find(|l| !l.trim().is_empty()).map(str::to_string))
+}
+
+/// Files in `dir` named `<prefix><date><suffix>`, newest date first.
+fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = fs::read_dir(dir)
+        .into_iter()
+        .flatten()
+        .flatten()
+        .map(|e| e.path())
+        .filter(|p| {
+            p.file_name().and_then(|n| n.to_str()).is_some_and(|n| {
+                n.starts_with(prefix) && n.ends_with(suffix) && n.len() == prefix.len() + 10 + suffix.len()
+            })
+        })
+        .collect();
+    v.sort();
+    v.reverse();
+    v
+}
+
+/// An append-only dated file with a header.
+struct DayFile {
+    day: String,
+    path: PathBuf,
+    out: BufWriter<File>,
+}
+
+fn open_day(dir: &Path, name: &str, day: &str, header: Option<&str>) -> io::Result<DayFile> {
+    fs::create_dir_all(dir)?;
+    let path = dir.join(name);
+    let fresh = fs::metadata(&path).map(|m| m.len() == 0).unwrap_or(true);
+    let file = OpenOptions::new().create(true).append(true).open(&path)?;
+    let mut out = BufWriter::with_capacity(64 * 1024, file);
+    if fresh && let Some(h) = header {
+        writeln!(out, "{h}")?;
+    }
+    Ok(DayFile { day: day.to_string(), path, out })
+}
+
+/// Soft-tag CSV writer of one unit.
+pub struct SoftTagWriter {
+    dir: PathBuf,
+    unit: String,
+    tz: TimeZone,
+    temperature: &'static Unit,
+    difference: &'static Unit,
+    current: Option<DayFile>,
+    /// End (ms) of the last interval on disk.
+    pub last_written_end: Option<i64>,
+}
+
+impl SoftTagWriter {
+    /// Open the writer; finds what is already on disk.
+    pub fn open(
+        dir: &Path,
+        unit: &str,
+        tz: TimeZone,
+        temperature: &'static Unit,
+    ) -> io::Result<SoftTagWriter> {
+        let prefix = format!("softtags-{unit}-");
+        let mut last = None;
+        for path in dated_files(dir, &prefix, ".csv") {
+            if let Some(line) = repair_and_last_line(&path)? {
+                if line == SOFT_TAG_HEADER {
+                    continue;
+                }
+                let time = line.split(',').next().unwrap_or_default();
+                if let Ok(ts) = time.parse::<Timestamp>() {
+                    last = Some(ts.as_millisecond());
+                    break;
+                }
+            }
+        }
+        let difference =
+            units::lookup(Quantity::TemperatureDifference, temperature.symbol).unwrap_or(temperature);
+        Ok(SoftTagWriter {
+            dir: dir.to_path_buf(),
+            unit: unit.to_string(),
+            tz,
+            temperature,
+            difference,
+            current: None,
+            last_written_end: last,
+        })
+    }
+
+    /// Path of the file an interval end goes to.
+    pub fn path_for(&self, end_ms: i64) -> PathBuf {
+        self.dir.join(format!("softtags-{}-{}.csv", self.unit, day_of(end_ms, &self.tz)))
+    }
+
+    /// Append one interval, unless it is already on disk. Returns whether it was written.
+    pub fn write(&mut self, ev: &Evaluation, monitor_state: &str) -> io::Result<bool> {
+        if self.last_written_end.is_some_and(|l| ev.end_ms <= l) {
+            return Ok(false);
+        }
+        let day = day_of(ev.end_ms, &self.tz);
+        if self.current.as_ref().is_none_or(|c| c.day != day) {
+            if let Some(mut c) = self.current.take() {
+                c.out.flush()?;
+                c.out.get_ref().sync_all()?;
+            }
+            let name = format!("softtags-{}-{day}.csv", self.unit);
+            self.current = Some(open_day(&self.dir, &name, &day, Some(SOFT_TAG_HEADER))?);
+        }
+        let t = self.temperature;
+        let d = self.difference;
+        let row = format!(
+            "{},{},{},{},{},{},{},{},{},{}\n",
+            rfc3339(ev.end_ms, &self.tz),
+            csv_text(&self.unit),
+            num(ev.predicted_k.map(|k| t.from_si(k)), 3),
+            num(ev.measured_k.map(|k| t.from_si(k)), 3),
+            num(ev.residual_k.map(|k| d.from_si(k)), 3),
+            num(ev.u_pred_k.map(|k| d.from_si(k)), 3),
+            num(ev.apparent_conversion, 4),
+            num(ev.effectiveness, 4),
+            csv_text(monitor_state),
+            csv_text(&ev.flags.join(";")),
+        );
+        if let Some(c) = self.current.as_mut() {
+            c.out.write_all(row.as_bytes())?;
+        }
+        self.last_written_end = Some(ev.end_ms);
+        Ok(true)
+    }
+
+    /// Flush buffered rows and fsync (before a checkpoint is written).
+    pub fn sync(&mut self) -> io::Result<()> {
+        if let Some(c) = self.current.as_mut() {
+            c.out.flush()?;
+            c.out.get_ref().sync_all()?;
+        }
+        Ok(())
+    }
+
+    /// Flush buffered rows to the file (no fsync).
+    pub fn flush(&mut self) -> io::Result<()> {
+        match self.current.as_mut() {
+            Some(c) => c.out.flush(),
+            None => Ok(()),
+        }
+    }
+
+    /// The file currently written, if any.
+    pub fn current_path(&self) -> Option<&Path> {
+        self.current.as_ref().map(|c| c.path.as_path())
+    }
+}
+
+/// Alert JSON-lines writer of one unit.
+pub struct AlertWriter {
+    dir: PathBuf,
+    unit: String,
+    tz: TimeZone,
+    current: Option<DayFile>,
+    stdout: bool,
+    /// Sequence number of the last event on disk.
+    pub last_sequence: u64,
+}
+
+impl AlertWriter {
+    /// Open the writer; finds the last sequence number on disk.
+    pub fn open(dir: &Path, unit: &str, tz: TimeZone, stdout: bool) -> io::Result<AlertWriter> {
+        let prefix = format!("alerts-{unit}-");
+        let mut last = 0;
+        for path in dated_files(dir, &prefix, ".jsonl") {
+            if let Some(line) = repair_and_last_line(&path)?
+                && let Ok(v) = serde_json::from_str::<serde_json::Value>(&line)
+            {
+                last = v.get("sequence").and_then(serde_json::Value::as_u64).unwrap_or(0);
+                break;
+            }
+        }
+        Ok(AlertWriter {
+            dir: dir.to_path_buf(),
+            unit: unit.to_string(),
+            tz,
+            current: None,
+            stdout,
+            last_sequence: last,
+        })
+    }
+
+    /// Append an event unless its sequence number is already on disk. Returns whether it was
+    /// written (callers forward only written events).
+    pub fn write(&mut self, ev: &AlertEvent) -> io::Result<bool> {
+        if ev.sequence <= self.last_sequence {
+            return Ok(false);
+        }
+        let day = day_of(ev.time_ms + 1, &self.tz);
+        if self.current.as_ref().is_none_or(|c| c.day != day) {
+            if let Some(mut c) = self.current.take() {
+                c.out.flush()?;
+                c.out.get_ref().sync_all()?;
+            }
+            let name = format!("alerts-{}-{day}.jsonl", self.unit);
+            self.current = Some(open_day(&self.dir, &name, &day, None)?);
+        }
+        let line = serde_json::to_string(ev).map_err(io::Error::other)?;
+        if let Some(c) = self.current.as_mut() {
+            writeln!(c.out, "{line}")?;
+        }
+        if self.stdout {
+            let mut out = io::stdout().lock();
+            writeln!(out, "{line}")?;
+            out.flush()?;
+        }
+        self.last_sequence = ev.sequence;
+        Ok(true)
+    }
+
+    /// Flush buffered events to the file (no fsync).
+    pub fn flush(&mut self) -> io::Result<()> {
+        match self.current.as_mut() {
+            Some(c) => c.out.flush(),
+            None => Ok(()),
+        }
+    }
+
+    /// Flush and fsync.
+    pub fn sync(&mut self) -> io::Result<()> {
+        if let Some(c) = self.current.as_mut() {
+            c.out.flush()?;
+            c.out.get_ref().sync_all()?;
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn spreadsheet_formulas_are_defused_and_cells_quoted() {
+        assert_eq!(csv_text("=1+2"), "'=1+2");
+        assert_eq!(csv_text("-x"), "'-x");
+        assert_eq!(csv_text("@SUM(A1)"), "'@SUM(A1)");
+        assert_eq!(csv_text("a,b"), "\"a,b\"");
+        assert_eq!(csv_text("stale:TI-1;bad:FI-2"), "stale:TI-1;bad:FI-2");
+    }
+
+    #[test]
+    fn days_in_the_unit_time_zone() {
+        let tz = TimeZone::get("Europe/Berlin").unwrap();
+        let midnight = "2026-12-01T23:00:00Z".parse::<Timestamp>().unwrap().as_millisecond();
+        assert_eq!(day_of(midnight, &tz), "2026-12-01", "the interval ending at local midnight");
+        assert_eq!(rfc3339(midnight, &tz), "2026-12-02T00:00:00+01:00");
+    }
+
+    #[test]
+    fn a_half_written_row_is_repaired_and_rows_are_not_written_twice() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("softtags-R-1-2026-12-01.csv");
+        fs::write(&path, format!("{SOFT_TAG_HEADER}\n2026-12-01T10:01:00+00:00,R-1,1,2,3,4,,,learning,\n2026-12-01T10:02:00+00:00,R-1,5")).unwrap();
+        let w = SoftTagWriter::open(
+            dir.path(),
+            "R-1",
+            TimeZone::UTC,
+            units::lookup(Quantity::Temperature, "K").unwrap(),
+        )
+        .unwrap();
+        let expected = "2026-12-01T10:01:00Z".parse::<Timestamp>().unwrap().as_millisecond();
+        assert_eq!(w.last_written_end, Some(expected));
+        assert!(fs::read_to_string(&path).unwrap().ends_with("learning,\n"));
+    }
+}

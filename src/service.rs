@@ -1,0 +1,228 @@
+//! The unattended service (`efftemp run`) and the batch replay (`efftemp replay`).
+//!
+//! The async shell is one loop: it waits for a file event, the periodic reconcile tick, the
+//! quiet-stream deadline or shutdown, then runs a [`Pipeline`] pass on a blocking thread and
+//! checkpoints. Clock, file events and shutdown are injected, so tests drive it with paused
+//! tokio time and synthetic wake-ups.
+
+use std::future::Future;
+use std::io::{IsTerminal, Write};
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::time::Duration;
+
+use tokio::sync::Notify;
+use tokio::time::Instant;
+use tracing::{error, info, warn};
+
+use crate::config::{SiteConfig, name_matches};
+use crate::ingest::watch::{self, WatchStatus};
+use crate::pipeline::{Mode, Pipeline, PipelineError};
+
+/// A monotonic clock in milliseconds (tokio time, so tests can pause it).
+#[derive(Debug, Clone, Copy)]
+pub struct MonoClock {
+    start: Instant,
+}
+
+impl Default for MonoClock {
+    fn default() -> Self {
+        MonoClock { start: Instant::now() }
+    }
+}
+
+impl MonoClock {
+    /// Milliseconds since the clock was made.
+    pub fn now_ms(&self) -> u64 {
+        u64::try_from(self.start.elapsed().as_millis()).unwrap_or(u64::MAX)
+    }
+}
+
+/// Errors that stop the service.
+#[derive(Debug, thiserror::Error)]
+pub enum ServiceError {
+    /// The pipeline failed (state directory, outputs).
+    #[error(transparent)]
+    Pipeline(#[from] PipelineError),
+    /// A blocking task panicked.
+    #[error("internal error: {0}")]
+    Internal(String),
+}
+
+/// How the service is woken besides its own timers.
+pub enum Wake {
+    /// Start file watchers on the export directories.
+    Watchers,
+    /// Use this notifier (tests): the caller wakes the loop.
+    External(Arc<Notify>),
+}
+
+/// Called after every pass with the pipeline (the demo prints alerts from it).
+pub type Observer = Box<dyn FnMut(&Pipeline) + Send>;
+
+/// Run the service until `shutdown` completes. Outputs and the checkpoint are flushed on exit.
+pub async fn run(
+    site: Arc<SiteConfig>,
+    wake: Wake,
+    shutdown: impl Future<Output = ()>,
+    mut observer: Option<Observer>,
+) -> Result<(), ServiceError> {
+    let clock = MonoClock::default();
+    let site2 = site.clone();
+    let mut pipeline = tokio::task::spawn_blocking(move || Pipeline::new(&site2, &Mode::Live))
+        .await
+        .map_err(|e| ServiceError::Internal(e.to_string()))??;
+    for note in &pipeline.notes {
+        warn!("checkpoint: {note}");
+    }
+    let notify = match &wake {
+        Wake::External(n) => n.clone(),
+        Wake::Watchers => Arc::new(Notify::new()),
+    };
+    let _watch = match wake {
+        Wake::Watchers => {
+            let mut dirs: Vec<PathBuf> = site.units.iter().map(|u| u.input.directory.clone()).collect();
+            dirs.sort();
+            dirs.dedup();
+            Some(watch::start(&dirs, site.service.watch, site.service.reconcile_ms, notify.clone()))
+        }
+        Wake::External(_) => None,
+    };
+    let watch_status = _watch.as_ref().map_or(WatchStatus::Off, |w| w.status.clone());
+    info!(units = site.units.len(), watch = watch_status.as_str(), state = %site.state_dir.display(), output = %site.output_dir.display(), "efftemp service started");
+    let mut tick = tokio::time::interval(Duration::from_millis(site.service.reconcile_ms.max(100)));
+    tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
+    let mut last_checkpoint = clock.now_ms();
+    let mut dirty = false;
+    tokio::pin!(shutdown);
+    loop {
+        let quiet = pipeline.next_quiet_deadline().map(|t| t.saturating_sub(clock.now_ms()));
+        let quiet_sleep = tokio::time::sleep(Duration::from_millis(quiet.unwrap_or(3_600_000)));
+        tokio::select! {
+            biased;
+            () = &mut shutdown => break,
+            () = notify.notified() => {}
+            _ = tick.tick() => {}
+            () = quiet_sleep, if quiet.is_some() => {}
+        }
+        let now = clock.now_ms();
+        let (p, res) = tokio::task::spawn_blocking(move || {
+            let r = pipeline.pass(now, false);
+            (pipeline, r)
+        })
+        .await
+        .map_err(|e| ServiceError::Internal(e.to_string()))?;
+        pipeline = p;
+        match res {
+            Ok(s) => dirty |= s.records > 0 || s.intervals > 0,
+            Err(e) => {
+                error!(error = %e, "stopping: outputs cannot be written; restart resumes from the last checkpoint");
+                return Err(e.into());
+            }
+        }
+        if let Some(obs) = observer.as_mut() {
+            obs(&pipeline);
+        }
+        if dirty && clock.now_ms().saturating_sub(last_checkpoint) >= site.service.checkpoint_ms {
+            let (p, res) = tokio::task::spawn_blocking(move || {
+                let r = pipeline.checkpoint();
+                (pipeline, r)
+            })
+            .await
+            .map_err(|e| ServiceError::Internal(e.to_string()))?;
+            pipeline = p;
+            res?;
+            last_checkpoint = clock.now_ms();
+            dirty = false;
+        }
+    }
+    info!("shutting down: flushing outputs and the checkpoint");
+    let res = tokio::task::spawn_blocking(move || pipeline.checkpoint())
+        .await
+        .map_err(|e| ServiceError::Internal(e.to_string()))?;
+    res?;
+    info!("stopped");
+    Ok(())
+}
+
+/// What a replay did.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ReplaySummary {
+    /// Records read.
+    pub records: u64,
+    /// Intervals written.
+    pub intervals: u64,
+    /// Rejected records and values.
+    pub rejected: u64,
+    /// Alert events written.
+    pub alert_events: u64,
+}
+
+/// Total size of the files a unit would read (for the progress bar).
+fn input_bytes(site: &SiteConfig) -> u64 {
+    site.units
+        .iter()
+        .flat_map(|u| {
+            std::fs::read_dir(&u.input.directory)
+                .into_iter()
+                .flatten()
+                .flatten()
+                .filter(|e| e.file_name().to_str().is_some_and(|n| name_matches(&u.input.pattern, n)))
+                .filter_map(|e| e.metadata().ok().map(|m| m.len()))
+                .collect::<Vec<_>>()
+        })
+        .sum()
+}
+
+/// Process existing export files as a batch, with the same pipeline and outputs as `run`.
+/// A progress bar is drawn on standard error when it is a terminal.
+pub fn replay(site: &SiteConfig, output: Option<PathBuf>) -> Result<ReplaySummary, PipelineError> {
+    let mut pipeline = Pipeline::new(site, &Mode::Replay { output })?;
+    let total = input_bytes(site).max(1);
+    let tty = std::io::stderr().is_terminal();
+    let started = std::time::Instant::now();
+    let mut last_draw = started;
+    // Monotonic time stands still during a replay: only event time matters.
+    loop {
+        let s = pipeline.pass(0, false)?;
+        if tty && last_draw.elapsed() >= Duration::from_millis(200) {
+            draw(&pipeline, total, started);
+            last_draw = std::time::Instant::now();
+        }
+        if s.records == 0 {
+            break;
+        }
+    }
+    pipeline.pass(0, true)?;
+    pipeline.checkpoint()?;
+    if tty {
+        draw(&pipeline, total, started);
+        eprintln!();
+    }
+    let mut sum = ReplaySummary::default();
+    for u in &pipeline.units {
+        sum.records += u.counters.records;
+        sum.intervals += u.counters.intervals;
+        sum.rejected += u.counters.rejected.values().sum::<u64>();
+        sum.alert_events += u.counters.alert_events.values().sum::<u64>();
+    }
+    Ok(sum)
+}
+
+fn draw(p: &Pipeline, total: u64, started: std::time::Instant) {
+    let read: u64 = p.units.iter().map(|u| u.counters.bytes).sum();
+    let records: u64 = p.units.iter().map(|u| u.counters.records).sum();
+    let frac = (read as f64 / total as f64).clamp(0.0, 1.0);
+    let width = 30;
+    let filled = (frac * width as f64).round() as usize;
+    let rate = records as f64 / started.elapsed().as_secs_f64().max(1e-3);
+    let mut err = std::io::stderr().lock();
+    let _ = write!(
+        err,
+        "\r[{}{}] {:5.1} %  {records} rows  {rate:.0} rows/s ",
+        "#".repeat(filled),
+        "-".repeat(width - filled),
+        frac * 100.0
+    );
+    let _ = err.flush();
+}

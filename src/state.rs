@@ -1,0 +1,230 @@
+//! The state directory: an exclusive lock (two instances never share state) and the
+//! checkpoint, written atomically (temp file, fsync, rename, directory fsync) with a checksum
+//! and a fallback generation.
+//!
+//! File format: the first line is `efftemp-state <version> <fnv1a64 of the payload, hex>`, the
+//! rest is the JSON payload. On load the newest generation whose checksum matches wins; a torn,
+//! empty or foreign file falls back to the previous generation, and with no valid generation the
+//! service starts from the beginning of the export files (outputs are idempotent, so nothing is
+//! written twice).
+
+use std::fs::{self, File, OpenOptions};
+use std::io::{self, Write};
+use std::path::{Path, PathBuf};
+
+use serde::Serialize;
+use serde::de::DeserializeOwned;
+
+use crate::hash::fnv1a64;
+
+/// Checkpoint format version.
+pub const VERSION: u32 = 1;
+const CURRENT: &str = "state.json";
+const PREVIOUS: &str = "state.prev.json";
+const TEMP: &str = "state.json.tmp";
+const LOCK: &str = "efftemp.lock";
+
+/// Why the state directory cannot be used.
+#[derive(Debug, thiserror::Error)]
+pub enum StateError {
+    /// Another instance holds the lock.
+    #[error(
+        "state directory {dir} is locked by another efftemp instance ({holder}); stop it or use another state_dir"
+    )]
+    Locked {
+        /// The directory.
+        dir: PathBuf,
+        /// What the lock file says.
+        holder: String,
+    },
+    /// The directory is writable by everyone.
+    #[error(
+        "state directory {dir} is world-writable (mode {mode:o}); refusing to use it: make it owned by the service user with mode 0750 or 0700"
+    )]
+    WorldWritable {
+        /// The directory.
+        dir: PathBuf,
+        /// Its mode.
+        mode: u32,
+    },
+    /// I/O.
+    #[error("state directory {dir}: {source}")]
+    Io {
+        /// The directory.
+        dir: PathBuf,
+        /// The error.
+        source: io::Error,
+    },
+}
+
+/// An open, locked state directory.
+#[derive(Debug)]
+pub struct StateDir {
+    dir: PathBuf,
+    _lock: File,
+    /// Checkpoints written.
+    pub writes: u64,
+    /// Checkpoint writes that failed.
+    pub failures: u64,
+}
+
+fn io_err(dir: &Path) -> impl FnOnce(io::Error) -> StateError + '_ {
+    move |source| StateError::Io { dir: dir.to_path_buf(), source }
+}
+
+impl StateDir {
+    /// Create (if needed), check and lock the state directory.
+    pub fn open(dir: &Path) -> Result<StateDir, StateError> {
+        fs::create_dir_all(dir).map_err(io_err(dir))?;
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::PermissionsExt;
+            let mode = fs::metadata(dir).map_err(io_err(dir))?.permissions().mode();
+            if mode & 0o002 != 0 && mode & 0o1000 == 0 {
+                return Err(StateError::WorldWritable { dir: dir.to_path_buf(), mode: mode & 0o7777 });
+            }
+        }
+        let path = dir.join(LOCK);
+        let mut lock = OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .read(true)
+            .write(true)
+            .open(&path)
+            .map_err(io_err(dir))?;
+        match lock.try_lock() {
+            Ok(()) => {}
+            Err(fs::TryLockError::WouldBlock) => {
+                let holder = fs::read_to_string(&path).unwrap_or_default().trim().to_string();
+                return Err(StateError::Locked { dir: dir.to_path_buf(), holder });
+            }
+            Err(fs::TryLockError::Error(e)) => {
+                return Err(StateError::Io { dir: dir.to_path_buf(), source: e });
+            }
+        }
+        lock.set_len(0).map_err(io_err(dir))?;
+        writeln!(lock, "pid {}", std::process::id()).map_err(io_err(dir))?;
+        Ok(StateDir { dir: dir.to_path_buf(), _lock: lock, writes: 0, failures: 0 })
+    }
+
+    /// The directory.
+    pub fn path(&self) -> &Path {
+        &self.dir
+    }
+
+    /// Load the newest valid checkpoint. Returns the value and notes about skipped generations.
+    pub fn load<T: DeserializeOwned>(&self) -> (Option<T>, Vec<String>) {
+        let mut notes = Vec::new();
+        for name in [CURRENT, PREVIOUS, TEMP] {
+            let path = self.dir.join(name);
+            let text = match fs::read_to_string(&path) {
+                Ok(t) => t,
+                Err(e) if e.kind() == io::ErrorKind::NotFound => continue,
+                Err(e) => {
+                    notes.push(format!("{}: unreadable ({e})", path.display()));
+                    continue;
+                }
+            };
+            match decode::<T>(&text) {
+                Ok(v) => return (Some(v), notes),
+                Err(why) => notes.push(format!("{}: {why}; trying the previous generation", path.display())),
+            }
+        }
+        (None, notes)
+    }
+
+    /// Write a checkpoint atomically, keeping the previous generation.
+    pub fn save<T: Serialize>(&mut self, value: &T) -> io::Result<()> {
+        let r = self.save_inner(value);
+        match &r {
+            Ok(()) => self.writes += 1,
+            Err(_) => self.failures += 1,
+        }
+        r
+    }
+
+    fn save_inner<T: Serialize>(&self, value: &T) -> io::Result<()> {
+        let payload = serde_json::to_string(value).map_err(io::Error::other)?;
+        let tmp = self.dir.join(TEMP);
+        {
+            let mut f = File::create(&tmp)?;
+            writeln!(f, "efftemp-state {VERSION} {:016x}", fnv1a64(payload.as_bytes()))?;
+            f.write_all(payload.as_bytes())?;
+            f.sync_all()?;
+        }
+        let cur = self.dir.join(CURRENT);
+        if cur.exists() {
+            fs::rename(&cur, self.dir.join(PREVIOUS))?;
+        }
+        fs::rename(&tmp, &cur)?;
+        sync_dir(&self.dir)
+    }
+}
+
+fn sync_dir(dir: &Path) -> io::Result<()> {
+    #[cfg(unix)]
+    {
+        File::open(dir)?.sync_all()?;
+    }
+    let _ = dir;
+    Ok(())
+}
+
+fn decode<T: DeserializeOwned>(text: &str) -> Result<T, String> {
+    let (first, payload) = text.split_once('\n').ok_or("no header line")?;
+    let mut parts = first.split_whitespace();
+    if parts.next() != Some("efftemp-state") {
+        return Err("not an efftemp checkpoint".into());
+    }
+    let version: u32 = parts.next().and_then(|v| v.parse().ok()).ok_or("no version")?;
+    if version != VERSION {
+        return Err(format!("checkpoint version {version}, this build reads {VERSION}"));
+    }
+    let sum = parts.next().and_then(|s| u64::from_str_radix(s, 16).ok()).ok_or("no checksum")?;
+    if fnv1a64(payload.as_bytes()) != sum {
+        return Err("checksum mismatch (torn or edited file)".into());
+    }
+    serde_json::from_str(payload).map_err(|e| format!("unreadable payload: {e}"))
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn round_trip_generations_and_corruption() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut s = StateDir::open(dir.path()).unwrap();
+        assert_eq!(s.load::<Vec<u32>>().0, None);
+        s.save(&vec![1u32]).unwrap();
+        s.save(&vec![1u32, 2]).unwrap();
+        assert_eq!(s.load::<Vec<u32>>().0, Some(vec![1, 2]));
+        // A torn current generation falls back to the previous one.
+        let cur = dir.path().join(CURRENT);
+        let text = fs::read_to_string(&cur).unwrap();
+        fs::write(&cur, &text[..text.len() - 2]).unwrap();
+        let (v, notes) = s.load::<Vec<u32>>();
+        assert_eq!(v, Some(vec![1]));
+        assert!(notes[0].contains("checksum mismatch"), "{notes:?}");
+        fs::write(&cur, "").unwrap();
+        assert_eq!(s.load::<Vec<u32>>().0, Some(vec![1]));
+    }
+
+    #[test]
+    fn a_second_instance_is_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let _first = StateDir::open(dir.path()).unwrap();
+        let second = StateDir::open(dir.path());
+        assert!(matches!(second, Err(StateError::Locked { .. })), "{second:?}");
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn world_writable_state_is_refused() {
+        use std::os::unix::fs::PermissionsExt;
+        let dir = tempfile::tempdir().unwrap();
+        fs::set_permissions(dir.path(), fs::Permissions::from_mode(0o777)).unwrap();
+        assert!(matches!(StateDir::open(dir.path()), Err(StateError::WorldWritable { .. })));
+    }
+}

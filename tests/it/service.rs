@@ -1,0 +1,314 @@
+//! The service end to end: configuration checks, replay, live-versus-replay equality,
+//! restarts, crash (SIGKILL) recovery, rejected rows and DST timestamps.
+
+use std::io::Write;
+use std::path::Path;
+use std::process::{Child, Command, Stdio};
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+use assert_cmd::cargo::cargo_bin_cmd;
+use efftemp::config::SiteConfig;
+use efftemp::output::SOFT_TAG_HEADER;
+use efftemp::service::{self, Wake};
+use tokio::sync::Notify;
+
+use crate::util::{self, TestPlant};
+
+#[test]
+fn check_accepts_the_example_site() {
+    let out = cargo_bin_cmd!("efftemp")
+        .args(["check", "--config"])
+        .arg(util::root().join("config/example-site.toml"))
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(String::from_utf8_lossy(&out.stdout).contains("configuration OK"));
+}
+
+#[test]
+fn check_reports_every_problem_with_file_line_and_key() {
+    let text = std::fs::read_to_string(util::root().join("config/example-site.toml")).unwrap();
+    let bad = text
+        .replace("unit = \"kmol/h\"", "unit = \"kmol/hr\"")
+        .replace("interval = \"1m\"", "interval = \"7m\"")
+        .replace("\"Europe/London\"          #", "\"Europe/Londn\" #")
+        .replace("layout = \"wide\"", "layout = \"tall\"")
+        .replace("design_conversion = 0.42", "design_conversion = 1.42");
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("site.toml");
+    std::fs::write(&path, bad).unwrap();
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&path).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    for (key, fragment) in [
+        ("site.time_zone", "unknown time zone"),
+        ("unit[1].input.layout", "unknown layout `tall`"),
+        ("unit[1].timing.interval", "divide a day evenly"),
+        ("unit[1].feed[1].flow.unit", "unknown unit `kmol/hr`"),
+        ("unit[1].reaction[1].design_conversion", "within 0..1"),
+    ] {
+        let line = err
+            .lines()
+            .find(|l| l.contains(&format!("`{key}`")))
+            .unwrap_or_else(|| panic!("no error for {key}:\n{err}"));
+        assert!(line.contains("site.toml:") && line.contains(fragment), "{line}");
+    }
+    assert!(err.contains("5 problem(s)"), "{err}");
+}
+
+#[test]
+fn includes_are_followed_and_located() {
+    let dir = tempfile::tempdir().unwrap();
+    let main = "include = [\"units.toml\"]\n[site]\ntime_zone = \"UTC\"\n";
+    std::fs::write(dir.path().join("site.toml"), main).unwrap();
+    std::fs::write(
+        dir.path().join("units.toml"),
+        "[[unit]]\nname = \"X-1\"\n[unit.input]\ndirectory = \"e\"\n",
+    )
+    .unwrap();
+    let out = cargo_bin_cmd!("efftemp")
+        .args(["check", "--config"])
+        .arg(dir.path().join("site.toml"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("units.toml:1:1: `unit[1]`: at least one [[unit.feed]] is required"), "{err}");
+}
+
+fn replay(plant: &TestPlant, output: &Path) -> String {
+    let site = SiteConfig::load(&plant.config).unwrap();
+    service::replay(&site, Some(output.to_path_buf())).unwrap();
+    TestPlant::soft_tags(output)
+}
+
+#[test]
+fn replay_writes_one_row_per_interval() {
+    let plant = TestPlant::new("");
+    plant.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
+    let out = tempfile::tempdir().unwrap();
+    let text = replay(&plant, out.path());
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines[0], SOFT_TAG_HEADER);
+    assert_eq!(lines.len(), 31, "{text}");
+    assert!(lines[1].starts_with("2026-12-01T00:01:00+00:00,T-1,"), "{}", lines[1]);
+    assert!(lines[30].starts_with("2026-12-01T00:30:00+00:00,T-1,"), "{}", lines[30]);
+    for l in &lines[1..] {
+        let cells: Vec<&str> = l.split(',').collect();
+        assert_eq!(cells.len(), 10, "{l}");
+        let residual: f64 = cells[4].parse().unwrap();
+        assert!(residual.abs() < 0.5, "{l}");
+        let u: f64 = cells[5].parse().unwrap();
+        assert!(u > 0.05 && u < 2.0, "{l}");
+        assert!(cells[6].is_empty() && !cells[7].is_empty(), "{l}");
+    }
+}
+
+async fn wait_for(what: &str, timeout: Duration, mut pred: impl FnMut() -> bool) -> Result<(), ()> {
+    let start = Instant::now();
+    while !pred() {
+        if start.elapsed() > timeout {
+            eprintln!("timed out waiting for {what}");
+            return Err(());
+        }
+        tokio::time::sleep(Duration::from_millis(50)).await;
+    }
+    Ok(())
+}
+
+fn rows_in(text: &str) -> usize {
+    text.lines().filter(|l| !l.starts_with("time,")).count()
+}
+
+/// Live tailing with partial rows and a rotation gives byte-identical soft tags to a replay of
+/// the same files; a restart in the middle resumes without duplicates.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn live_with_restart_equals_replay() {
+    let plant = TestPlant::new("");
+    let site = Arc::new({
+        let mut s = SiteConfig::load(&plant.config).unwrap();
+        for u in &mut s.units {
+            u.max_wait_ms = 1_500;
+        }
+        s
+    });
+    let script: Vec<(&str, String)> = vec![
+        ("plant_20261201.csv", TestPlant::rows(0, 600)),
+        ("plant_20261201.csv", {
+            let r = TestPlant::rows(600, 620);
+            r[..r.len() - 7].to_string()
+        }),
+        ("plant_20261201.csv", {
+            let r = TestPlant::rows(600, 620);
+            r[r.len() - 7..].to_string()
+        }),
+        ("plant_20261201.csv", TestPlant::rows(620, 1200)),
+        ("plant_20261202.csv", TestPlant::rows(1200, 1500)),
+        ("plant_20261201.csv", TestPlant::rows(1200, 1210)),
+        ("plant_20261202.csv", TestPlant::rows(1500, 2400)),
+    ];
+    let mut step = 0;
+    for round in 0..2 {
+        let notify = Arc::new(Notify::new());
+        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
+        let handle = tokio::spawn(service::run(
+            site.clone(),
+            Wake::External(notify.clone()),
+            async move {
+                let _ = rx.await;
+            },
+            None,
+        ));
+        let stop_at = if round == 0 { 4 } else { script.len() };
+        while step < stop_at {
+            let (name, text) = &script[step];
+            plant.append(name, text);
+            notify.notify_one();
+            tokio::time::sleep(Duration::from_millis(150)).await;
+            step += 1;
+        }
+        if round == 0 {
+            wait_for("first rows", Duration::from_secs(10), || {
+                rows_in(&TestPlant::soft_tags(&plant.output)) >= 19
+            })
+            .await
+            .unwrap();
+        } else {
+            // The stream goes quiet: the last interval closes after max_wait.
+            wait_for("all rows", Duration::from_secs(15), || {
+                rows_in(&TestPlant::soft_tags(&plant.output)) >= 40
+            })
+            .await
+            .unwrap_or_else(|()| panic!("rows: {}", TestPlant::soft_tags(&plant.output)));
+        }
+        let _ = tx.send(());
+        handle.await.unwrap().unwrap();
+    }
+    let live = TestPlant::soft_tags(&plant.output);
+    let out = tempfile::tempdir().unwrap();
+    let batch = replay(&plant, out.path());
+    assert_eq!(rows_in(&live), 40, "{live}");
+    assert_eq!(live, batch);
+}
+
+#[test]
+fn rejected_rows_are_counted_and_logged_with_file_line_and_reason() {
+    let plant = TestPlant::new("");
+    let mut text = TestPlant::rows(0, 120);
+    text.push_str("2026-12-01T00:02:00Z,10,abc,30,70\n"); // line 14: non-numeric
+    text.push_str("2026-13-01T00:02:10Z,10,30,30,70\n"); // line 15: bad timestamp
+    text.push_str("2026-12-01T00:02:20Z,10,30\n"); // line 16: short row
+    text.push_str("2026-12-01T00:02:30Z,10,nan,30,70\n"); // line 17: not finite
+    text.push_str(&TestPlant::rows(160, 300));
+    plant.append("plant_20261201.csv", &text);
+    let out = tempfile::tempdir().unwrap();
+    let res = cargo_bin_cmd!("efftemp")
+        .args(["replay", "--log-format", "json", "--log-level", "warn", "--config"])
+        .arg(&plant.config)
+        .arg("--output")
+        .arg(out.path())
+        .output()
+        .unwrap();
+    assert!(res.status.success());
+    let stdout = String::from_utf8_lossy(&res.stdout);
+    assert!(stdout.contains("4 rejected"), "{stdout}");
+    let logs: Vec<serde_json::Value> =
+        String::from_utf8_lossy(&res.stderr).lines().filter_map(|l| serde_json::from_str(l).ok()).collect();
+    for (line, reason) in [(14, "non_numeric"), (15, "bad_timestamp"), (16, "short_row"), (17, "non_numeric")]
+    {
+        let hit = logs.iter().find(|v| v["line"] == line && v["reason"] == reason);
+        let hit = hit.unwrap_or_else(|| panic!("no log for line {line} ({reason}): {logs:?}"));
+        assert!(hit["file"].as_str().unwrap().ends_with("plant_20261201.csv"));
+        assert_eq!(hit["level"], "WARN");
+    }
+}
+
+/// Local timestamps across the October change in Europe/London: the repeated hour is read in
+/// order and every UTC minute gets exactly one interval.
+/// Source: IANA tz database: 2026-10-25 02:00 BST -> 01:00 GMT.
+#[test]
+fn local_timestamps_through_the_autumn_clock_change() {
+    let plant = TestPlant::new("");
+    let cfg = std::fs::read_to_string(&plant.config)
+        .unwrap()
+        .replace("timestamp_column = \"Timestamp\"", "timestamp_column = \"Timestamp\"\ntimestamp_format = \"%Y-%m-%d %H:%M:%S\"\ntime_zone = \"Europe/London\"");
+    std::fs::write(&plant.config, cfg).unwrap();
+    // 00:00 BST (23:00 UTC on the 24th) to 03:00 GMT: four hours of data, local times.
+    let tz = jiff::tz::TimeZone::get("Europe/London").unwrap();
+    let start = "2026-10-24T23:00:00Z".parse::<jiff::Timestamp>().unwrap().as_second();
+    let mut text = String::new();
+    for k in 0..(4 * 360) {
+        let t = start + k * 10;
+        let local = jiff::Timestamp::from_second(t).unwrap().to_zoned_datetime(tz.clone());
+        let row = TestPlant::row(k * 10);
+        let rest = row.split_once(',').unwrap().1;
+        text.push_str(&format!("{},{rest}\n", local.strftime("%Y-%m-%d %H:%M:%S")));
+    }
+    plant.append("plant_20261025.csv", &text);
+    let out = tempfile::tempdir().unwrap();
+    let site = SiteConfig::load(&plant.config).unwrap();
+    let sum = service::replay(&site, Some(out.path().to_path_buf())).unwrap();
+    assert_eq!((sum.rejected, sum.intervals), (0, 240));
+}
+
+fn spawn_run(config: &Path) -> Child {
+    Command::new(assert_cmd::cargo::cargo_bin!("efftemp"))
+        .args(["run", "--log-format", "json", "--log-level", "warn", "--config"])
+        .arg(config)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap()
+}
+
+/// Kill the real binary with SIGKILL at pseudo-random moments while rows (with partial rows
+/// and rotations) are appended; after the final restart the soft tags equal a clean replay.
+/// CI runs 4 kills; `EFFTEMP_KILL_LOOPS=50 cargo test --test integration kill` runs more.
+#[test]
+fn sigkill_at_random_moments_loses_and_duplicates_nothing() {
+    let loops: usize = std::env::var("EFFTEMP_KILL_LOOPS").ok().and_then(|v| v.parse().ok()).unwrap_or(4);
+    let plant = TestPlant::new("");
+    let cfg =
+        std::fs::read_to_string(&plant.config).unwrap().replace("max_wait = \"3m\"", "max_wait = \"3s\"");
+    std::fs::write(&plant.config, cfg).unwrap();
+    let mut seed: u64 = 0x5eed_1234;
+    let mut rand = move |n: u64| {
+        seed = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        (seed >> 33) % n
+    };
+    let mut t = 0i64;
+    let mut child = spawn_run(&plant.config);
+    for k in 0..loops {
+        let file = format!("plant_2026120{}.csv", 1 + k / 2);
+        for _ in 0..(3 + rand(5)) {
+            let n = 6 + rand(12) as i64;
+            let text = TestPlant::rows(t, t + 10 * n);
+            t += 10 * n;
+            // Sometimes split a row across two writes.
+            let cut = if rand(3) == 0 { text.len() - 5 } else { text.len() };
+            plant.append(&file, &text[..cut]);
+            std::thread::sleep(Duration::from_millis(20 + rand(120)));
+            plant.append(&file, &text[cut..]);
+        }
+        std::thread::sleep(Duration::from_millis(rand(400)));
+        child.kill().unwrap();
+        child.wait().unwrap();
+        child = spawn_run(&plant.config);
+    }
+    // Let the last run catch up and flush the quiet stream, then stop it politely.
+    let deadline = Instant::now() + Duration::from_secs(30);
+    let expected = (t / 60) as usize + usize::from(t % 60 != 0);
+    while rows_in(&TestPlant::soft_tags(&plant.output)) < expected && Instant::now() < deadline {
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    let _ = Command::new("kill").arg("-TERM").arg(child.id().to_string()).status();
+    let status = child.wait().unwrap();
+    assert!(status.success(), "{status:?}");
+    let live = TestPlant::soft_tags(&plant.output);
+    let out = tempfile::tempdir().unwrap();
+    let batch = replay(&plant, out.path());
+    assert_eq!(rows_in(&batch), expected);
+    assert_eq!(live, batch, "live after {loops} kills differs from replay");
+    let _ = std::io::stdout().flush();
+}
