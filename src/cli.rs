@@ -274,29 +274,38 @@ fn run(path: &std::path::Path, format: LogFormat, level: &str) -> ExitCode {
             return ExitCode::from(EXIT_RUNTIME);
         }
     };
+    let config_path = path.to_path_buf();
     let result = rt.block_on(async move {
-        let shutdown = async {
-            #[cfg(unix)]
-            {
-                use tokio::signal::unix::{SignalKind, signal};
-                match (signal(SignalKind::terminate()), signal(SignalKind::interrupt())) {
-                    (Ok(mut term), Ok(mut int)) => {
-                        tokio::select! {
-                            _ = term.recv() => {}
-                            _ = int.recv() => {}
-                        }
-                    }
-                    _ => {
-                        let _ = tokio::signal::ctrl_c().await;
-                    }
+        // Signals: TERM/INT stop; HUP reloads after validating the new configuration (a bad
+        // one is reported with its locations and the running one carries on).
+        let (tx, mut rx) = tokio::sync::mpsc::channel::<Control>(4);
+        tokio::spawn(signals(config_path, tx));
+        // Health and metrics outlive reloads.
+        let (snap_tx, snap_rx) = tokio::sync::watch::channel(crate::http::Snapshot::default());
+        if let Some(addr) = site.service.http_address {
+            match tokio::net::TcpListener::bind(addr).await {
+                Ok(listener) => {
+                    tracing::info!(address = %addr, "health and metrics at /healthz, /readyz, /metrics");
+                    tokio::spawn(crate::http::serve(listener, snap_rx, std::future::pending()));
                 }
+                Err(e) => tracing::warn!(address = %addr, error = %e, "cannot serve health and metrics"),
             }
-            #[cfg(not(unix))]
-            {
-                let _ = tokio::signal::ctrl_c().await;
+        }
+        let mut site = site;
+        loop {
+            let mut next: Option<Control> = None;
+            let stop = async {
+                next = rx.recv().await;
+            };
+            crate::service::run(site.clone(), crate::service::Wake::Watchers, stop, None, Some(snap_tx.clone())).await?;
+            match next {
+                Some(Control::Reload(new)) => {
+                    tracing::info!(target: "efftemp::audit", units = new.units.len(), "configuration reloaded");
+                    site = new;
+                }
+                _ => return Ok::<(), crate::service::ServiceError>(()),
             }
-        };
-        crate::service::run(site, crate::service::Wake::Watchers, shutdown, None).await
+        }
     });
     match result {
         Ok(()) => ExitCode::SUCCESS,
@@ -609,6 +618,54 @@ fn identify(path: &std::path::Path, unit: &str, max_dead_time: &str) -> ExitCode
             ExitCode::from(EXIT_RUNTIME)
         }
     }
+}
+
+/// What the signal task asks the service loop to do.
+enum Control {
+    /// Stop (SIGTERM, SIGINT, or the signal task ended).
+    Stop,
+    /// Restart with a validated new configuration (SIGHUP).
+    Reload(std::sync::Arc<SiteConfig>),
+}
+
+async fn signals(path: PathBuf, tx: tokio::sync::mpsc::Sender<Control>) {
+    #[cfg(unix)]
+    {
+        use tokio::signal::unix::{SignalKind, signal};
+        let (Ok(mut term), Ok(mut int), Ok(mut hup)) =
+            (signal(SignalKind::terminate()), signal(SignalKind::interrupt()), signal(SignalKind::hangup()))
+        else {
+            let _ = tokio::signal::ctrl_c().await;
+            let _ = tx.send(Control::Stop).await;
+            return;
+        };
+        loop {
+            tokio::select! {
+                _ = term.recv() => break,
+                _ = int.recv() => break,
+                _ = hup.recv() => {
+                    match SiteConfig::load(&path) {
+                        Ok(site) => {
+                            if tx.send(Control::Reload(std::sync::Arc::new(site))).await.is_err() {
+                                return;
+                            }
+                        }
+                        Err(errors) => {
+                            for e in &errors.0 {
+                                tracing::error!(error = %e, "reload refused: the new configuration has a problem; the running one stays in force");
+                            }
+                        }
+                    }
+                }
+            }
+        }
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = path;
+        let _ = tokio::signal::ctrl_c().await;
+    }
+    let _ = tx.send(Control::Stop).await;
 }
 
 /// A directory that does not exist (a unit with nothing to replay).

@@ -62,6 +62,8 @@ pub struct RawService {
     pub alerts_to_stdout: Option<bool>,
     /// How often the checkpoint is written at most, e.g. "5s".
     pub checkpoint_interval: Option<String>,
+    /// Address of the health and metrics endpoint ("127.0.0.1:9464"; "off" to disable).
+    pub http_address: Option<String>,
 }
 
 /// A signal: a tag with its engineering unit, or a fixed value.
@@ -408,6 +410,8 @@ pub struct ServiceConfig {
     pub alerts_to_stdout: bool,
     /// Checkpoint interval, ms.
     pub checkpoint_ms: u64,
+    /// Health and metrics endpoint, if enabled.
+    pub http_address: Option<std::net::SocketAddr>,
 }
 
 /// Layout of the export rows.
@@ -792,6 +796,19 @@ impl SiteConfig {
             seal_after_ms: u64::try_from(seal_after_ms).unwrap_or(600_000),
             alerts_to_stdout: s.alerts_to_stdout.unwrap_or(false),
             checkpoint_ms: u64::try_from(checkpoint_ms).unwrap_or(5_000),
+            http_address: match s.http_address.as_deref().unwrap_or("127.0.0.1:9464") {
+                "off" => None,
+                a => match a.parse::<std::net::SocketAddr>() {
+                    Ok(addr) => Some(addr),
+                    Err(_) => {
+                        ck.err(
+                            &KeyPath::keys("service.http_address"),
+                            format!("`{a}` is not an address like \"127.0.0.1:9464\" (or \"off\")"),
+                        );
+                        None
+                    }
+                },
+            },
         };
 
         // Component library shared by the site.

@@ -242,6 +242,7 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
                 let _ = rx.await;
             },
             Some(observer),
+            None,
         ));
         // The writer: the plant in accelerated time.
         let mut plant = Plant::new(scenario.clone());

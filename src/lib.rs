@@ -28,6 +28,7 @@
 //! * [`pipeline`]: tail → rows → intervals → model → alerts → outputs → checkpoint.
 //! * [`service`]: the async shell of `run` (events, ticks, shutdown) and the batch `replay`.
 //! * [`logging`]: text or JSON logs.
+//! * [`http`]: health and Prometheus metrics endpoints.
 //! * [`monitor`]: steady state, dynamics, baseline, charts, cause attribution.
 //! * [`report`]: the shift report (HTML with inline SVG, and text).
 //! * [`sim`]: the embedded plant simulator of the demo.
@@ -41,6 +42,7 @@ pub mod cli;
 pub mod config;
 pub mod demo;
 pub mod hash;
+pub mod http;
 pub mod ingest;
 pub mod logging;
 pub mod model;

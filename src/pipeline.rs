@@ -665,6 +665,33 @@ impl Pipeline {
         Ok(())
     }
 
+    /// The per-unit figures for `/metrics`.
+    pub fn snapshot_units(&self) -> Vec<crate::http::UnitSnapshot> {
+        self.units
+            .iter()
+            .map(|u| {
+                let mut active: BTreeMap<String, u64> = BTreeMap::new();
+                for a in u.alerts.active() {
+                    *active.entry(a.cause.as_str().to_string()).or_default() += 1;
+                }
+                crate::http::UnitSnapshot {
+                    name: u.cfg.name.clone(),
+                    records: u.counters.records,
+                    rejected: u.counters.rejected.iter().map(|(k, v)| ((*k).to_string(), *v)).collect(),
+                    late: u.counters.late,
+                    intervals: u.counters.intervals,
+                    not_computed: u.counters.not_computed,
+                    solver_failures: u.counters.solver_failures,
+                    alert_events: u.counters.alert_events.clone(),
+                    active_alerts: active,
+                    last_data_ms: u.counters.last_data_ms,
+                    monitor_state: u.monitor.state.as_str().to_string(),
+                    bytes: u.counters.bytes,
+                }
+            })
+            .collect()
+    }
+
     /// Checkpoint writes and failures so far.
     pub fn checkpoint_counts(&self) -> (u64, u64) {
         self.state.as_ref().map_or((0, 0), |s| (s.writes, s.failures))

@@ -130,21 +130,33 @@ fn parse_row(line: &str) -> Option<Row> {
     })
 }
 
-/// Soft-tag rows of a unit in [from, to).
+/// Soft-tag rows of a unit in (from, to], from the daily files whose dates overlap.
 pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone) -> Vec<Row> {
-    let mut rows = Vec::new();
-    let mut day = from_ms;
-    let mut seen = Vec::new();
-    while day < to_ms + 86_400_000 {
-        let name = format!("softtags-{unit}-{}.csv", crate::output::day_of(day + 1, tz));
-        if !seen.contains(&name) {
-            if let Ok(text) = std::fs::read_to_string(dir.join(&name)) {
-                rows.extend(text.lines().filter(|l| *l != SOFT_TAG_HEADER).filter_map(parse_row));
-            }
-            seen.push(name);
-        }
-        day += 3_600_000;
-    }
+    let prefix = format!("softtags-{unit}-");
+    let first = crate::output::day_of(from_ms.saturating_add(1), tz);
+    let last =
+        if to_ms >= i64::MAX / 2 { "9999-12-31".to_string() } else { crate::output::day_of(to_ms, tz) };
+    let mut files: Vec<PathBuf> = std::fs::read_dir(dir)
+        .into_iter()
+        .flatten()
+        .flatten()
+        .map(|e| e.path())
+        .filter(|p| {
+            p.file_name().and_then(|n| n.to_str()).is_some_and(|n| {
+                n.strip_prefix(&prefix)
+                    .and_then(|r| r.strip_suffix(".csv"))
+                    .is_some_and(|d| d.len() == 10 && *d >= *first.as_str() && *d <= *last.as_str())
+            })
+        })
+        .collect();
+    files.sort();
+    let mut rows: Vec<Row> = files
+        .iter()
+        .filter_map(|f| std::fs::read_to_string(f).ok())
+        .flat_map(|text| {
+            text.lines().filter(|l| *l != SOFT_TAG_HEADER).filter_map(parse_row).collect::<Vec<_>>()
+        })
+        .collect();
     rows.retain(|r| r.t_ms > from_ms && r.t_ms <= to_ms);
     rows.sort_by_key(|r| r.t_ms);
     rows.dedup_by_key(|r| r.t_ms);

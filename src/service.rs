@@ -60,13 +60,71 @@ pub enum Wake {
 /// Called after every pass with the pipeline (the demo prints alerts from it).
 pub type Observer = Box<dyn FnMut(&Pipeline) + Send>;
 
+/// systemd's notification protocol (`sd_notify`): readiness and watchdog keep-alives sent as
+/// datagrams to `$NOTIFY_SOCKET`, when the service runs under systemd with `Type=notify`.
+#[derive(Debug)]
+pub struct Notifier {
+    #[cfg(unix)]
+    socket: Option<(std::os::unix::net::UnixDatagram, std::os::unix::net::SocketAddr)>,
+    /// Watchdog interval from `$WATCHDOG_USEC`, ms (keep-alives go at half of it).
+    pub watchdog_ms: Option<u64>,
+}
+
+impl Notifier {
+    /// From the environment (a no-op outside systemd).
+    pub fn from_env() -> Notifier {
+        let watchdog_ms =
+            std::env::var("WATCHDOG_USEC").ok().and_then(|v| v.parse::<u64>().ok()).map(|us| us / 1000);
+        #[cfg(unix)]
+        {
+            let socket = std::env::var("NOTIFY_SOCKET").ok().and_then(|path| {
+                use std::os::unix::net::{SocketAddr, UnixDatagram};
+                let addr = if let Some(name) = path.strip_prefix('@') {
+                    #[cfg(target_os = "linux")]
+                    {
+                        use std::os::linux::net::SocketAddrExt;
+                        SocketAddr::from_abstract_name(name.as_bytes()).ok()?
+                    }
+                    #[cfg(not(target_os = "linux"))]
+                    {
+                        let _ = name;
+                        return None;
+                    }
+                } else {
+                    SocketAddr::from_pathname(&path).ok()?
+                };
+                Some((UnixDatagram::unbound().ok()?, addr))
+            });
+            Notifier { socket, watchdog_ms }
+        }
+        #[cfg(not(unix))]
+        Notifier { watchdog_ms }
+    }
+
+    /// Send a state string such as `READY=1`.
+    pub fn notify(&self, state: &str) {
+        #[cfg(unix)]
+        if let Some((sock, addr)) = &self.socket {
+            if let Err(e) = sock.send_to_addr(state.as_bytes(), addr) {
+                warn!(error = %e, "cannot notify systemd");
+            }
+        }
+        #[cfg(not(unix))]
+        let _ = state;
+    }
+}
+
 /// Run the service until `shutdown` completes. Outputs and the checkpoint are flushed on exit.
 pub async fn run(
     site: Arc<SiteConfig>,
     wake: Wake,
     shutdown: impl Future<Output = ()>,
     mut observer: Option<Observer>,
+    snapshots: Option<tokio::sync::watch::Sender<crate::http::Snapshot>>,
 ) -> Result<(), ServiceError> {
+    let notifier = Notifier::from_env();
+    let mut passes = 0u64;
+    let mut last_watchdog = 0u64;
     let clock = MonoClock::default();
     let site2 = site.clone();
     let mut pipeline = tokio::task::spawn_blocking(move || Pipeline::new(&site2, &Mode::Live))
@@ -123,6 +181,36 @@ pub async fn run(
         if let Some(obs) = observer.as_mut() {
             obs(&pipeline);
         }
+        passes += 1;
+        if passes == 1 {
+            notifier.notify("READY=1\nSTATUS=watching the export directories");
+        }
+        if let Some(wd) = notifier.watchdog_ms {
+            if clock.now_ms().saturating_sub(last_watchdog) >= wd / 2 {
+                notifier.notify("WATCHDOG=1");
+                last_watchdog = clock.now_ms();
+            }
+        }
+        if let Some(tx) = &snapshots {
+            let (writes, failures) = pipeline.checkpoint_counts();
+            let snap = crate::http::Snapshot {
+                units: pipeline.snapshot_units(),
+                checkpoint_writes: writes,
+                checkpoint_failures: failures,
+                watch_mode: watch_status.as_str().to_string(),
+                rescans: _watch.as_ref().map_or(0, |w| w.rescans.load(std::sync::atomic::Ordering::Relaxed)),
+                watcher_errors: _watch
+                    .as_ref()
+                    .map_or(0, |w| w.errors.load(std::sync::atomic::Ordering::Relaxed)),
+                syslog_queue: None,
+                syslog_sent: None,
+                syslog_dropped: None,
+                passes,
+                last_pass_ms: Some(jiff::Timestamp::now().as_millisecond()),
+                ready_within_ms: i64::try_from(site.service.reconcile_ms.max(1_000) * 3).unwrap_or(i64::MAX),
+            };
+            let _ = tx.send(snap);
+        }
         if dirty && clock.now_ms().saturating_sub(last_checkpoint) >= site.service.checkpoint_ms {
             let (p, res) = tokio::task::spawn_blocking(move || {
                 let r = pipeline.checkpoint();
@@ -136,6 +224,7 @@ pub async fn run(
             dirty = false;
         }
     }
+    notifier.notify("STOPPING=1");
     info!("shutting down: flushing outputs and the checkpoint");
     let res = tokio::task::spawn_blocking(move || pipeline.checkpoint())
         .await

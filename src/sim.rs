@@ -47,6 +47,9 @@ pub enum EventKind {
     StuckTransmitter,
     /// The conversion falls linearly.
     ConversionDrift,
+    /// Insulation damage: an extra heat loss UA·(T − T_ambient), ramped in over 6 h, so the
+    /// residual follows the ambient temperature.
+    HeatLoss,
 }
 
 impl EventKind {
@@ -57,6 +60,7 @@ impl EventKind {
             EventKind::HeaterFouling => "heater_fouling",
             EventKind::AnalyzerOutage => "data_quality",
             EventKind::ConversionDrift => "conversion_drift",
+            EventKind::HeatLoss => "heat_loss",
         }
     }
 }
@@ -326,6 +330,16 @@ impl Plant {
     /// The true steady-state outlet temperature of an operating point, K, and the closure of
     /// its energy balance (W; zero to round-off).
     fn truth(&self, p: &Point) -> (f64, f64) {
+        // Extra loss through damaged insulation, evaluated at a representative outlet
+        // temperature (an explicit heat-loss model, ramped in over 6 hours).
+        let extra = match self.active(EventKind::HeatLoss) {
+            Some(e) => {
+                let ramp = ((self.t_s - e.start_s) as f64 / (6.0 * 3600.0)).min(1.0);
+                e.magnitude * ramp * (335.0 - (p.ambient_c + 273.15))
+            }
+            None => 0.0,
+        };
+        let loss = TRUE_HEAT_LOSS_W + extra;
         let inputs = Inputs {
             feeds: vec![
                 FeedInput {
@@ -343,13 +357,13 @@ impl Plant {
             ],
             effluent: Effluent::Reacted { conversions: vec![Some(p.conversion)] },
             duty: Some(p.duty_kw * 1000.0 * p.effectiveness),
-            heat_loss: TRUE_HEAT_LOSS_W,
+            heat_loss: loss,
             effluent_temperature: None,
             pressure: None,
             bubble_margin: 0.0,
         };
         match self.system.solve(&inputs, Unknown::Temperature) {
-            Ok(o) => (o.t_out, o.h_out - o.h_in - p.duty_kw * 1000.0 * p.effectiveness + TRUE_HEAT_LOSS_W),
+            Ok(o) => (o.t_out, o.h_out - o.h_in - p.duty_kw * 1000.0 * p.effectiveness + loss),
             Err(_) => (f64::NAN, f64::NAN),
         }
     }
@@ -429,6 +443,36 @@ impl Plant {
             .map(|t| format!("sru-r204_{}.csv", t.strftime("%Y%m%d")))
             .unwrap_or_default()
     }
+}
+
+/// Write a whole scenario's exports into `dir` (one file per UTC day, with headers).
+pub fn write_exports(scenario: &Scenario, dir: &std::path::Path) -> std::io::Result<u64> {
+    use std::io::Write as _;
+    std::fs::create_dir_all(dir)?;
+    let mut plant = Plant::new(scenario.clone());
+    let mut current: Option<(String, std::io::BufWriter<std::fs::File>)> = None;
+    let mut rows = 0;
+    loop {
+        let t = plant.time_s();
+        let Some(row) = plant.next_row() else { break };
+        let name = Plant::file_name(t);
+        if current.as_ref().is_none_or(|(n, _)| *n != name) {
+            if let Some((_, mut w)) = current.take() {
+                w.flush()?;
+            }
+            let mut w = std::io::BufWriter::new(std::fs::File::create(dir.join(&name))?);
+            writeln!(w, "{}", Plant::header())?;
+            current = Some((name, w));
+        }
+        if let Some((_, w)) = current.as_mut() {
+            writeln!(w, "{row}")?;
+        }
+        rows += 1;
+    }
+    if let Some((_, mut w)) = current {
+        w.flush()?;
+    }
+    Ok(rows)
 }
 
 /// The site configuration of the simulated plant.

@@ -838,11 +838,31 @@ impl Monitor {
             n >= 2 && self.history.iter().rev().take(3).filter(|h| h.z.abs() >= cfg.shewhart_z).count() >= 2;
 
         // 2. A drift or sustained shift: charts signal without a step signature.
-        let signal = resid_signal.is_some()
-            || eff_signal.is_some()
-            || conv_signal.is_some()
-            || shewhart
-            || z.abs() >= cfg.enter_z;
+        // A chart signal becomes an alert condition only when the deviation is material: the
+        // mean |z| of the last three blocks at least `clear_z` (the charts on effectiveness and
+        // apparent conversion see the same residual, so they only count when their own shift
+        // is material too).
+        let recent: Vec<f64> = self.history.iter().rev().take(3).map(|h| h.z).collect();
+        let material = (recent.iter().sum::<f64>() / recent.len().max(1) as f64).abs() >= cfg.clear_z;
+        let eff_material = ze.is_some_and(|v| v.abs() >= cfg.clear_z);
+        let conv_material = zc.is_some_and(|v| v.abs() >= cfg.clear_z);
+        // With a conversion analyzer the prediction already uses the measured conversion, so
+        // a chemistry change leaves the residual alone: watch the measured conversion itself.
+        let zxm: Vec<f64> = self
+            .history
+            .iter()
+            .rev()
+            .take(3)
+            .filter_map(|h| Some((h.conv_measured? - b.conv_measured?.0) / b.conv_measured?.1))
+            .collect();
+        let conv_measured_shift = zxm.len() == 3 && (zxm.iter().sum::<f64>() / 3.0).abs() >= cfg.enter_z;
+        let signal = conv_measured_shift
+            || material
+                && (resid_signal.is_some()
+                    || (eff_signal.is_some() && eff_material)
+                    || (conv_signal.is_some() && conv_material)
+                    || shewhart
+                    || z.abs() >= cfg.enter_z);
         let step_active = self.active.iter().any(|a| {
             a.cause == Cause::InstrumentFault
                 && !a.subject.ends_with(":stuck")
@@ -1023,14 +1043,27 @@ impl Monitor {
         let last = self.history.back().cloned();
         let Some(last) = last else { return };
         let dev_k = last.residual - b.mu;
-        // Heat loss: the residual follows the ambient temperature.
+        // Heat loss: the residual follows the ambient temperature. Both series are detrended
+        // first (a fault's slow drift correlates with a daily cycle by chance), the window must
+        // hold at least a day and a half, and the sign must be physical: a warmer ambient loses
+        // less heat, so the residual rises with it.
         let amb = self.window(cfg.ambient_window_ms, now);
-        let (ra, aa): (Vec<f64>, Vec<f64>) =
-            amb.iter().filter_map(|h| h.ambient.map(|a| (h.residual, a))).unzip();
-        if ra.len() >= 24 && stats::std_dev(&aa) > 1.0 {
+        let rows: Vec<(f64, f64, f64)> =
+            amb.iter().filter_map(|h| h.ambient.map(|a| (h.end_ms as f64 / 3.6e6, h.residual, a))).collect();
+        let span_h = rows.last().map_or(0.0, |l| l.0) - rows.first().map_or(0.0, |f| f.0);
+        if rows.len() >= 24 && span_h >= 36.0 {
+            let t: Vec<f64> = rows.iter().map(|r| r.0).collect();
+            let detrend = |v: Vec<f64>| -> Vec<f64> {
+                match LineFit::fit(&t, &v) {
+                    Some(f) => t.iter().zip(&v).map(|(x, y)| y - f.a - f.b * x).collect(),
+                    None => v,
+                }
+            };
+            let ra = detrend(rows.iter().map(|r| r.1).collect());
+            let aa = detrend(rows.iter().map(|r| r.2).collect());
             let rho = stats::correlation(&ra, &aa);
-            if rho.abs() > cfg.ambient_correlation {
-                let slope = stats::LineFit::fit(&aa, &ra).map_or(0.0, |f| f.b);
+            if stats::std_dev(&aa) > 1.0 && rho > cfg.ambient_correlation {
+                let slope = LineFit::fit(&aa, &ra).map_or(0.0, |f| f.b);
                 let message = format!(
                     "The residual follows the ambient temperature (correlation {rho:+.2} over {:.0} days, {slope:+.3} K per K of ambient): heat is being lost to the surroundings; check the insulation and cladding of the heater and reactor.",
                     cfg.ambient_window_ms as f64 / 86_400_000.0

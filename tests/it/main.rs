@@ -5,6 +5,7 @@ mod util;
 
 mod cli;
 mod handbook;
+mod monitor;
 mod physics;
 mod reference;
 mod service;

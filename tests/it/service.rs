@@ -159,6 +159,7 @@ async fn live_with_restart_equals_replay() {
                 let _ = rx.await;
             },
             None,
+            None,
         ));
         let stop_at = if round == 0 { 4 } else { script.len() };
         while step < stop_at {
@@ -311,4 +312,121 @@ fn sigkill_at_random_moments_loses_and_duplicates_nothing() {
     assert_eq!(rows_in(&batch), expected);
     assert_eq!(live, batch, "live after {loops} kills differs from replay");
     let _ = std::io::stdout().flush();
+}
+
+fn http_get(addr: std::net::SocketAddr, path: &str) -> (u16, String) {
+    use std::io::Read;
+    let mut s = std::net::TcpStream::connect(addr).unwrap();
+    s.set_read_timeout(Some(Duration::from_secs(5))).unwrap();
+    write!(s, "GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n").unwrap();
+    let mut buf = String::new();
+    s.read_to_string(&mut buf).unwrap();
+    let status = buf.split(' ').nth(1).and_then(|c| c.parse().ok()).unwrap_or(0);
+    let body = buf.split_once("\r\n\r\n").map(|x| x.1.to_string()).unwrap_or_default();
+    (status, body)
+}
+
+/// Health and metrics are scraped over HTTP while the service runs.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn health_and_metrics_over_http() {
+    let plant = TestPlant::new("");
+    let mut text = TestPlant::rows(0, 600);
+    text.push_str("2026-12-01T00:10:00Z,10,abc,30,70\n");
+    plant.append("plant_20261201.csv", &text);
+    let site = Arc::new(SiteConfig::load(&plant.config).unwrap());
+    let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::http::Snapshot::default());
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+    let addr = listener.local_addr().unwrap();
+    tokio::spawn(efftemp::http::serve(listener, snap_rx, std::future::pending()));
+    let (tx, rx) = tokio::sync::oneshot::channel::<()>();
+    let notify = Arc::new(Notify::new());
+    let svc = tokio::spawn(service::run(
+        site,
+        Wake::External(notify.clone()),
+        async move {
+            let _ = rx.await;
+        },
+        None,
+        Some(snap_tx),
+    ));
+    let (code, _) = tokio::task::spawn_blocking(move || http_get(addr, "/healthz")).await.unwrap();
+    assert_eq!(code, 200);
+    notify.notify_one();
+    let mut body = String::new();
+    for _ in 0..100 {
+        let (code, b) = tokio::task::spawn_blocking(move || http_get(addr, "/metrics")).await.unwrap();
+        assert_eq!(code, 200);
+        body = b;
+        if body.contains("efftemp_rows_read_total{unit=\"T-1\"} 61") {
+            break;
+        }
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+    assert!(body.contains("efftemp_rows_read_total{unit=\"T-1\"} 61"), "{body}");
+    assert!(body.contains("efftemp_rows_rejected_total{unit=\"T-1\",reason=\"non_numeric\"} 1"), "{body}");
+    assert!(body.contains("efftemp_intervals_closed_total{unit=\"T-1\"} 9"), "{body}");
+    assert!(body.contains("efftemp_watch_mode{mode=\"off\"} 1"), "{body}");
+    let (code, ready) = tokio::task::spawn_blocking(move || http_get(addr, "/readyz")).await.unwrap();
+    assert_eq!(code, 200, "{ready}");
+    let _ = tx.send(());
+    svc.await.unwrap().unwrap();
+}
+
+fn soft_rows(plant: &TestPlant, unit: &str) -> usize {
+    std::fs::read_dir(plant.output.join(unit))
+        .map(|rd| {
+            rd.flatten()
+                .filter(|e| e.file_name().to_string_lossy().starts_with("softtags-"))
+                .map(|e| rows_in(&std::fs::read_to_string(e.path()).unwrap_or_default()))
+                .sum()
+        })
+        .unwrap_or(0)
+}
+
+/// SIGHUP reloads a validated configuration (a bad one is refused and the running one carries
+/// on; an added unit starts), and SIGTERM stops within 5 s with outputs flushed.
+#[test]
+fn sighup_reload_and_sigterm() {
+    let plant = TestPlant::new("");
+    let cfg = std::fs::read_to_string(&plant.config)
+        .unwrap()
+        .replace("max_wait = \"3m\"", "max_wait = \"2s\"")
+        .replace("[service]", "[service]\nhttp_address = \"off\"");
+    std::fs::write(&plant.config, &cfg).unwrap();
+    plant.append("plant_20261201.csv", &TestPlant::rows(0, 300));
+    let mut child = spawn_run(&plant.config);
+    let wait = |pred: &dyn Fn() -> bool| {
+        let t = Instant::now();
+        while !pred() && t.elapsed() < Duration::from_secs(20) {
+            std::thread::sleep(Duration::from_millis(100));
+        }
+        pred()
+    };
+    assert!(wait(&|| soft_rows(&plant, "T-1") >= 5), "first rows");
+    let hup = |pid: u32| Command::new("kill").arg("-HUP").arg(pid.to_string()).status().unwrap();
+    // A broken configuration is refused; the service keeps working.
+    std::fs::write(&plant.config, cfg.replace("interval = \"1m\"", "interval = \"7m\"")).unwrap();
+    hup(child.id());
+    plant.append("plant_20261201.csv", &TestPlant::rows(300, 600));
+    assert!(wait(&|| soft_rows(&plant, "T-1") >= 10), "still running after a refused reload");
+    assert!(child.try_wait().unwrap().is_none());
+    // A valid configuration with a second unit reading another directory.
+    let second = cfg
+        .split("[[unit]]")
+        .nth(1)
+        .unwrap()
+        .replace("name = \"T-1\"", "name = \"T-2\"")
+        .replace("directory = \"exports\"", "directory = \"exports2\"");
+    std::fs::create_dir_all(plant.exports.parent().unwrap().join("exports2")).unwrap();
+    std::fs::write(&plant.config, format!("{cfg}\n[[unit]]{second}")).unwrap();
+    hup(child.id());
+    let p2 = plant.exports.parent().unwrap().join("exports2").join("plant_20261201.csv");
+    std::fs::write(&p2, format!("{}\n{}", util::PLANT_HEADER, TestPlant::rows(0, 300))).unwrap();
+    assert!(wait(&|| soft_rows(&plant, "T-2") >= 5), "the added unit runs");
+    // SIGTERM: flushed and stopped within 5 s.
+    let t = Instant::now();
+    Command::new("kill").arg("-TERM").arg(child.id().to_string()).status().unwrap();
+    let status = child.wait().unwrap();
+    assert!(status.success() && t.elapsed() < Duration::from_secs(5), "{status:?} after {:?}", t.elapsed());
+    assert!(plant.state.join("state.json").exists());
 }

@@ -1,0 +1,302 @@
+//! Health and metrics over HTTP (loopback by default): `/healthz` (the process is alive),
+//! `/readyz` (the pipeline has completed a pass recently) and `/metrics` in the Prometheus text
+//! exposition format (version 0.0.4).
+//!
+//! The service publishes a [`Snapshot`] after every pass through a `watch` channel; the HTTP
+//! side only renders the latest one, so scraping never touches the pipeline.
+
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+use std::future::Future;
+
+use axum::Router;
+use axum::extract::State;
+use axum::http::{StatusCode, header};
+use axum::response::IntoResponse;
+use axum::routing::get;
+use tokio::net::TcpListener;
+use tokio::sync::watch;
+
+/// Figures of one unit.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct UnitSnapshot {
+    /// Unit name.
+    pub name: String,
+    /// Data records read.
+    pub records: u64,
+    /// Rejections by reason.
+    pub rejected: BTreeMap<String, u64>,
+    /// Late samples.
+    pub late: u64,
+    /// Intervals closed.
+    pub intervals: u64,
+    /// Intervals not computed.
+    pub not_computed: u64,
+    /// Solver failures.
+    pub solver_failures: u64,
+    /// Alert events written, by (cause, event).
+    pub alert_events: BTreeMap<(String, String), u64>,
+    /// Active alerts by cause.
+    pub active_alerts: BTreeMap<String, u64>,
+    /// Newest data time, ms.
+    pub last_data_ms: Option<i64>,
+    /// Monitor state.
+    pub monitor_state: String,
+    /// Bytes read from export files.
+    pub bytes: u64,
+}
+
+/// Everything `/metrics` and `/readyz` show.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Snapshot {
+    /// Per unit.
+    pub units: Vec<UnitSnapshot>,
+    /// Checkpoints written.
+    pub checkpoint_writes: u64,
+    /// Checkpoint writes that failed.
+    pub checkpoint_failures: u64,
+    /// `native`, `poll` or `off`.
+    pub watch_mode: String,
+    /// Rescan requests seen (event-queue overflows).
+    pub rescans: u64,
+    /// Watcher errors.
+    pub watcher_errors: u64,
+    /// Alert events waiting for the syslog collector.
+    pub syslog_queue: Option<u64>,
+    /// Alert events delivered to the syslog collector.
+    pub syslog_sent: Option<u64>,
+    /// Alert events dropped by the syslog queue bound.
+    pub syslog_dropped: Option<u64>,
+    /// Passes completed.
+    pub passes: u64,
+    /// Wall time of the last pass, ms since the epoch.
+    pub last_pass_ms: Option<i64>,
+    /// A pass older than this (ms) makes `/readyz` fail.
+    pub ready_within_ms: i64,
+}
+
+fn esc(v: &str) -> String {
+    v.replace('\\', "\\\\").replace('"', "\\\"").replace('\n', "\\n")
+}
+
+/// Render the Prometheus text exposition format (0.0.4). `now_ms` is the wall time of the
+/// scrape (for data ages).
+pub fn render(s: &Snapshot, now_ms: i64) -> String {
+    let mut o = String::new();
+    let family = |o: &mut String, name: &str, kind: &str, help: &str| {
+        let _ = writeln!(o, "# HELP {name} {help}");
+        let _ = writeln!(o, "# TYPE {name} {kind}");
+    };
+    family(&mut o, "efftemp_rows_read_total", "counter", "Data records read from export files.");
+    for u in &s.units {
+        let _ = writeln!(o, "efftemp_rows_read_total{{unit=\"{}\"}} {}", esc(&u.name), u.records);
+    }
+    family(&mut o, "efftemp_rows_rejected_total", "counter", "Records or values rejected, by reason.");
+    for u in &s.units {
+        for (reason, n) in &u.rejected {
+            let _ = writeln!(
+                o,
+                "efftemp_rows_rejected_total{{unit=\"{}\",reason=\"{}\"}} {n}",
+                esc(&u.name),
+                esc(reason)
+            );
+        }
+    }
+    family(
+        &mut o,
+        "efftemp_late_samples_total",
+        "counter",
+        "Samples for intervals already closed (counted, not used).",
+    );
+    for u in &s.units {
+        let _ = writeln!(o, "efftemp_late_samples_total{{unit=\"{}\"}} {}", esc(&u.name), u.late);
+    }
+    family(&mut o, "efftemp_intervals_closed_total", "counter", "Intervals closed and written.");
+    for u in &s.units {
+        let _ = writeln!(o, "efftemp_intervals_closed_total{{unit=\"{}\"}} {}", esc(&u.name), u.intervals);
+    }
+    family(
+        &mut o,
+        "efftemp_intervals_not_computed_total",
+        "counter",
+        "Intervals whose prediction could not be computed.",
+    );
+    for u in &s.units {
+        let _ = writeln!(
+            o,
+            "efftemp_intervals_not_computed_total{{unit=\"{}\"}} {}",
+            esc(&u.name),
+            u.not_computed
+        );
+    }
+    family(&mut o, "efftemp_solver_failures_total", "counter", "Balance solves that failed.");
+    for u in &s.units {
+        let _ =
+            writeln!(o, "efftemp_solver_failures_total{{unit=\"{}\"}} {}", esc(&u.name), u.solver_failures);
+    }
+    family(&mut o, "efftemp_alert_events_total", "counter", "Alert events written, by cause and event.");
+    for u in &s.units {
+        for ((cause, event), n) in &u.alert_events {
+            let _ = writeln!(
+                o,
+                "efftemp_alert_events_total{{unit=\"{}\",cause=\"{}\",event=\"{}\"}} {n}",
+                esc(&u.name),
+                esc(cause),
+                esc(event)
+            );
+        }
+    }
+    family(&mut o, "efftemp_alerts_active", "gauge", "Active alerts, by cause.");
+    for u in &s.units {
+        for (cause, n) in &u.active_alerts {
+            let _ = writeln!(
+                o,
+                "efftemp_alerts_active{{unit=\"{}\",cause=\"{}\"}} {n}",
+                esc(&u.name),
+                esc(cause)
+            );
+        }
+    }
+    family(
+        &mut o,
+        "efftemp_last_data_age_seconds",
+        "gauge",
+        "Wall time since the newest data time of the unit.",
+    );
+    for u in &s.units {
+        if let Some(t) = u.last_data_ms {
+            let _ = writeln!(
+                o,
+                "efftemp_last_data_age_seconds{{unit=\"{}\"}} {:.3}",
+                esc(&u.name),
+                (now_ms - t) as f64 / 1000.0
+            );
+        }
+    }
+    family(&mut o, "efftemp_monitor_state", "gauge", "1 for the unit's current monitor state.");
+    for u in &s.units {
+        let _ = writeln!(
+            o,
+            "efftemp_monitor_state{{unit=\"{}\",state=\"{}\"}} 1",
+            esc(&u.name),
+            esc(&u.monitor_state)
+        );
+    }
+    family(&mut o, "efftemp_export_bytes_read_total", "counter", "Bytes read from export files.");
+    for u in &s.units {
+        let _ = writeln!(o, "efftemp_export_bytes_read_total{{unit=\"{}\"}} {}", esc(&u.name), u.bytes);
+    }
+    family(&mut o, "efftemp_checkpoint_writes_total", "counter", "Checkpoints written.");
+    let _ = writeln!(o, "efftemp_checkpoint_writes_total {}", s.checkpoint_writes);
+    family(&mut o, "efftemp_checkpoint_failures_total", "counter", "Checkpoint writes that failed.");
+    let _ = writeln!(o, "efftemp_checkpoint_failures_total {}", s.checkpoint_failures);
+    family(&mut o, "efftemp_watch_mode", "gauge", "1 for the file-watching mode in effect.");
+    let _ = writeln!(o, "efftemp_watch_mode{{mode=\"{}\"}} 1", esc(&s.watch_mode));
+    family(
+        &mut o,
+        "efftemp_watch_rescans_total",
+        "counter",
+        "Directory rescans requested by the watcher (event overflow).",
+    );
+    let _ = writeln!(o, "efftemp_watch_rescans_total {}", s.rescans);
+    family(&mut o, "efftemp_watch_errors_total", "counter", "Watcher errors.");
+    let _ = writeln!(o, "efftemp_watch_errors_total {}", s.watcher_errors);
+    if let Some(q) = s.syslog_queue {
+        family(
+            &mut o,
+            "efftemp_syslog_queue_depth",
+            "gauge",
+            "Alert events waiting for the syslog collector.",
+        );
+        let _ = writeln!(o, "efftemp_syslog_queue_depth {q}");
+    }
+    if let Some(n) = s.syslog_sent {
+        family(
+            &mut o,
+            "efftemp_syslog_sent_total",
+            "counter",
+            "Alert events delivered to the syslog collector.",
+        );
+        let _ = writeln!(o, "efftemp_syslog_sent_total {n}");
+    }
+    if let Some(n) = s.syslog_dropped {
+        family(
+            &mut o,
+            "efftemp_syslog_dropped_total",
+            "counter",
+            "Alert events dropped by the syslog queue bound.",
+        );
+        let _ = writeln!(o, "efftemp_syslog_dropped_total {n}");
+    }
+    family(&mut o, "efftemp_passes_total", "counter", "Pipeline passes completed.");
+    let _ = writeln!(o, "efftemp_passes_total {}", s.passes);
+    o
+}
+
+async fn healthz() -> impl IntoResponse {
+    (StatusCode::OK, "ok\n")
+}
+
+async fn readyz(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
+    let s = rx.borrow().clone();
+    let now = jiff::Timestamp::now().as_millisecond();
+    match s.last_pass_ms {
+        Some(t) if now - t <= s.ready_within_ms => {
+            (StatusCode::OK, format!("ready: {} pass(es)\n", s.passes))
+        }
+        Some(t) => {
+            (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: last pass {} s ago\n", (now - t) / 1000))
+        }
+        None => (StatusCode::SERVICE_UNAVAILABLE, "not ready: starting\n".to_string()),
+    }
+}
+
+async fn metrics(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
+    let s = rx.borrow().clone();
+    let body = render(&s, jiff::Timestamp::now().as_millisecond());
+    ([(header::CONTENT_TYPE, "text/plain; version=0.0.4; charset=utf-8")], body)
+}
+
+/// Serve the endpoints on `listener` until `shutdown` completes.
+pub async fn serve(
+    listener: TcpListener,
+    rx: watch::Receiver<Snapshot>,
+    shutdown: impl Future<Output = ()> + Send + 'static,
+) -> std::io::Result<()> {
+    let app = Router::new()
+        .route("/healthz", get(healthz))
+        .route("/readyz", get(readyz))
+        .route("/metrics", get(metrics))
+        .with_state(rx);
+    axum::serve(listener, app).with_graceful_shutdown(shutdown).await
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn exposition_format_is_well_formed() {
+        let mut u = UnitSnapshot { name: "R-\"204\"".into(), records: 5, ..Default::default() };
+        u.rejected.insert("non_numeric".into(), 2);
+        u.last_data_ms = Some(1_000);
+        let s = Snapshot { units: vec![u], watch_mode: "native".into(), ..Default::default() };
+        let text = render(&s, 3_500);
+        assert!(text.contains("efftemp_rows_read_total{unit=\"R-\\\"204\\\"\"} 5"), "{text}");
+        assert!(
+            text.contains("efftemp_rows_rejected_total{unit=\"R-\\\"204\\\"\",reason=\"non_numeric\"} 2")
+        );
+        assert!(text.contains("efftemp_last_data_age_seconds{unit=\"R-\\\"204\\\"\"} 2.500"));
+        // Every sample line belongs to a family declared before it.
+        let mut declared = Vec::new();
+        for line in text.lines() {
+            if let Some(rest) = line.strip_prefix("# TYPE ") {
+                declared.push(rest.split(' ').next().unwrap().to_string());
+            } else if !line.starts_with('#') {
+                let name = line.split(['{', ' ']).next().unwrap();
+                assert!(declared.iter().any(|d| d == name), "{line}");
+            }
+        }
+    }
+}
