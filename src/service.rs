@@ -104,10 +104,10 @@ impl Notifier {
     /// Send a state string such as `READY=1`.
     pub fn notify(&self, state: &str) {
         #[cfg(unix)]
-        if let Some((sock, addr)) = &self.socket {
-            if let Err(e) = sock.send_to_addr(state.as_bytes(), addr) {
-                warn!(error = %e, "cannot notify systemd");
-            }
+        if let Some((sock, addr)) = &self.socket
+            && let Err(e) = sock.send_to_addr(state.as_bytes(), addr)
+        {
+            warn!(error = %e, "cannot notify systemd");
         }
         #[cfg(not(unix))]
         let _ = state;
@@ -185,11 +185,11 @@ pub async fn run(
         if passes == 1 {
             notifier.notify("READY=1\nSTATUS=watching the export directories");
         }
-        if let Some(wd) = notifier.watchdog_ms {
-            if clock.now_ms().saturating_sub(last_watchdog) >= wd / 2 {
-                notifier.notify("WATCHDOG=1");
-                last_watchdog = clock.now_ms();
-            }
+        if let Some(wd) = notifier.watchdog_ms
+            && clock.now_ms().saturating_sub(last_watchdog) >= wd / 2
+        {
+            notifier.notify("WATCHDOG=1");
+            last_watchdog = clock.now_ms();
         }
         if let Some(tx) = &snapshots {
             let (writes, failures) = pipeline.checkpoint_counts();
