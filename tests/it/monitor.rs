@@ -21,7 +21,6 @@ fn setup(scenario: &Scenario) -> (tempfile::TempDir, PathBuf) {
     sim::write_exports(scenario, &dir.path().join("exports")).unwrap();
     let cfg = dir.path().join("site.toml");
     let text = sim::site_config("exports", "state", "output", scenario.conversion_analyzer, "10m", 100)
-        .replace("shift_reports", "shift_reports")
         .replace("[service]", "[service]\nalerts_to_stdout = false");
     std::fs::write(
         &cfg,
@@ -107,7 +106,7 @@ fn heater_fouling_is_raised_with_a_projection() {
         (fouling.time_ms - start) / 3_600_000
     );
     // The projection appears once the trend is significant (by the latest event of the alert).
-    let latest = r.events.iter().filter(|e| e.alert_id == fouling.alert_id).last().unwrap();
+    let latest = r.events.iter().rfind(|e| e.alert_id == fouling.alert_id).unwrap();
     assert!(latest.evidence.contains_key("projected_limit_date"), "{:?}", latest.evidence);
     let before: Vec<&AlertEvent> = raised(&r)
         .into_iter()
