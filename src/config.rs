@@ -120,6 +120,17 @@ pub struct RawInput {
     pub quality_column: Option<String>,
     /// Rows for tags this unit does not map: `reject` (counted and logged) or `ignore`.
     pub unknown_tags: Option<String>,
+    /// Follow symbolic links in the export directory whose target lies outside it (default
+    /// false: such links are refused with a warning; links inside the directory are followed).
+    pub links_outside: Option<bool>,
+}
+
+/// Whether one of two directories contains the other (or they are the same), comparing
+/// resolved paths where they exist and the paths as written otherwise.
+fn same_tree(a: &Path, b: &Path) -> bool {
+    let a = std::fs::canonicalize(a).unwrap_or_else(|_| a.to_path_buf());
+    let b = std::fs::canonicalize(b).unwrap_or_else(|_| b.to_path_buf());
+    a.starts_with(&b) || b.starts_with(&a)
 }
 
 /// `[unit.timing]`.
@@ -456,6 +467,8 @@ pub struct InputConfig {
     pub time_zone: TimeZone,
     /// Reject (count and log) rows of unmapped tags in long files.
     pub reject_unknown_tags: bool,
+    /// Follow symbolic links out of the export directory.
+    pub links_outside: bool,
 }
 
 /// How a tag's samples are aggregated over an interval.
@@ -845,6 +858,9 @@ impl SiteConfig {
                 );
             }
         }
+        if state_dir == output_dir {
+            ck.err(&KeyPath::keys("site.output_dir"), "the output and state directories must differ");
+        }
         let mut checked = Vec::new();
         let mut names: HashMap<String, KeyPath> = HashMap::new();
         for (raw_unit, src, key) in &units {
@@ -855,6 +871,20 @@ impl SiteConfig {
                 uck.err(&key.key("name"), format!("unit name `{name}` is used twice (also at `{prev}`)"));
             }
             if let Some(u) = check_unit(&mut uck, raw_unit, src, key, &library, &site_tz, &site_tz_name) {
+                // The service must never read what it writes, nor write where it reads.
+                let d = &u.input.directory;
+                for (what, own) in [("output", &output_dir), ("state", &state_dir)] {
+                    if same_tree(d, own) {
+                        uck.err(
+                            &key.key("input").key("directory"),
+                            format!(
+                                "the export directory `{}` overlaps the {what} directory `{}`; keep them apart",
+                                d.display(),
+                                own.display()
+                            ),
+                        );
+                    }
+                }
                 checked.push(u);
             }
         }
@@ -1156,6 +1186,7 @@ fn check_unit(
         timestamp_format,
         time_zone: input_tz,
         reject_unknown_tags,
+        links_outside: inp.links_outside.unwrap_or(false),
     };
 
     // Timing.

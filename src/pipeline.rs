@@ -208,6 +208,8 @@ pub struct UnitRuntime {
     ingest: BTreeMap<String, IngestDay>,
     last_end_ms: Option<i64>,
     site: Arc<SiteInfo>,
+    /// Links refused at the last pass (warned about when the set changes).
+    refused_links: Vec<PathBuf>,
 }
 
 /// Site facts every unit runtime needs (reports).
@@ -245,6 +247,7 @@ impl UnitRuntime {
             pattern: cfg.input.pattern.clone(),
             max_record_bytes: service.max_record_bytes,
             seal_after_ms: service.seal_after_ms,
+            links_outside: cfg.input.links_outside,
             ..TailOptions::default()
         };
         let tailer = Tailer::new(cfg.input.directory.clone(), opts, Some(saved.tail));
@@ -275,6 +278,7 @@ impl UnitRuntime {
             ingest: saved.ingest,
             last_end_ms: saved.last_end_ms,
             site,
+            refused_links: Vec::new(),
         })
     }
 
@@ -346,6 +350,7 @@ impl UnitRuntime {
             ingest,
             last_end_ms,
             site,
+            refused_links,
         } = self;
         let site: &SiteInfo = site;
         let cfg: &UnitConfig = cfg;
@@ -505,6 +510,12 @@ impl UnitRuntime {
             }
         };
         counters.bytes += stats.bytes_read;
+        if tailer.refused_links() != refused_links.as_slice() {
+            for l in tailer.refused_links().iter().filter(|l| !refused_links.contains(l)) {
+                warn!(unit = %unit_name, file = %l.display(), "symbolic link to a file outside the export directory: not read (set `links_outside = true` under [unit.input] to allow)");
+            }
+            *refused_links = tailer.refused_links().to_vec();
+        }
         if got_data {
             *last_data_mono = Some(now_mono);
         }

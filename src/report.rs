@@ -286,7 +286,12 @@ pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> 
         effectiveness,
         events,
         ingest,
-        unit_symbol: unit.temperature_unit().symbol.to_string(),
+        unit_symbol: match unit.temperature_unit().symbol {
+            "degC" => "°C".to_string(),
+            "degF" => "°F".to_string(),
+            "degR" => "°R".to_string(),
+            other => other.to_string(),
+        },
         effectiveness_limit: unit.monitor.effectiveness_limit,
         tz,
         residual_limits,
@@ -658,7 +663,7 @@ pub fn plots(d: &ReportData) -> Vec<(String, String)> {
         "Residual (measured − predicted) with its alert limits",
         Axis { ..xa },
         ya,
-        &format!("residual / {}", d.unit_symbol),
+        &format!("residual / {}", if d.unit_symbol == "°C" { "K" } else { d.unit_symbol.as_str() }),
         &x_label,
     );
     p.x_ticks(&xt);

@@ -434,6 +434,7 @@ mod tests {
             timestamp_format: format,
             time_zone: TimeZone::get(tz).unwrap(),
             reject_unknown_tags: true,
+            links_outside: false,
         }
     }
 

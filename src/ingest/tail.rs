@@ -80,6 +80,11 @@ pub struct TailOptions {
     pub seal_after_ms: u64,
     /// Bytes per read call.
     pub read_chunk: usize,
+    /// Follow a symbolic link whose target lies outside the directory. Off by default: such
+    /// links are listed by [`Tailer::refused_links`] and not read. Links to files inside the
+    /// directory are always followed and keyed by their target (a link and its target are
+    /// read once).
+    pub links_outside: bool,
 }
 
 impl Default for TailOptions {
@@ -91,6 +96,7 @@ impl Default for TailOptions {
             marker_bytes: 64,
             seal_after_ms: 10 * 60 * 1000,
             read_chunk: 256 * 1024,
+            links_outside: false,
         }
     }
 }
@@ -348,6 +354,9 @@ pub struct PollStats {
     pub records: u64,
     /// Rejections reported.
     pub rejected: u64,
+    /// Matching names that are symbolic links to files outside the directory, not read (see
+    /// [`TailOptions::links_outside`]).
+    pub links_refused: usize,
 }
 
 /// Errors of the tailer.
@@ -785,6 +794,8 @@ pub struct Tailer {
     /// Candidates held back because they continue a live file: key → first seen.
     twins: HashMap<String, u64>,
     buf: Vec<u8>,
+    /// Matching links refused at the last listing.
+    refused: Vec<PathBuf>,
 }
 
 impl Tailer {
@@ -840,6 +851,7 @@ impl Tailer {
             last_header: state.last_header,
             tracked,
             twins: HashMap::new(),
+            refused: Vec::new(),
         }
     }
 
@@ -871,8 +883,9 @@ impl Tailer {
     /// Only when the directory cannot be listed; the state is then unchanged. Errors on single
     /// files are reported as [`Notice::Error`] and retried at the next poll.
     pub fn poll(&mut self, now_ms: u64, sink: &mut dyn FnMut(TailEvent<'_>)) -> Result<PollStats, TailError> {
-        let mut entries = self.list()?;
-        let Tailer { dir: _, opts, pattern: _, next_id, last_header, tracked, twins, buf } = self;
+        let (mut entries, refused) = self.list()?;
+        self.refused = refused;
+        let Tailer { dir: _, opts, pattern: _, next_id, last_header, tracked, twins, buf, refused } = self;
         let mut cx = Ctx { opts, buf, sink, last_header, stats: PollStats::default(), now: now_ms };
         for t in tracked.iter_mut() {
             t.present = false;
@@ -886,15 +899,24 @@ impl Tailer {
             t.cp.gone = !t.present;
         }
         let mut stats = cx.stats;
+        stats.links_refused = refused.len();
         stats.files = tracked.len();
         stats.open = tracked.iter().filter(|t| t.handle.is_some()).count();
         Ok(stats)
     }
 
-    /// The matching entries of the directory, sorted by name.
-    fn list(&self) -> Result<Vec<Entry>, TailError> {
+    /// Symbolic links in the directory that match the pattern but point outside it, refused at
+    /// the last poll (see [`TailOptions::links_outside`]).
+    pub fn refused_links(&self) -> &[PathBuf] {
+        &self.refused
+    }
+
+    /// The matching entries of the directory, sorted by name, and the refused links.
+    fn list(&self) -> Result<(Vec<Entry>, Vec<PathBuf>), TailError> {
         let err = |source| TailError::ListDir { dir: self.dir.clone(), source };
         let mut out = Vec::new();
+        let mut refused = Vec::new();
+        let canonical_dir = fs::canonicalize(&self.dir).unwrap_or_else(|_| self.dir.clone());
         for de in fs::read_dir(&self.dir).map_err(err)? {
             let de = de.map_err(err)?;
             let name = de.file_name().to_string_lossy().into_owned();
@@ -902,10 +924,21 @@ impl Tailer {
                 continue;
             }
             let path = de.path();
-            // Follows symbolic links: a link is read as its target.
+            // Follows symbolic links: a link is read as its target, if that is in the directory
+            // (or links out of it are allowed).
             let Ok(m) = fs::metadata(&path) else { continue };
             if !m.is_file() {
                 continue;
+            }
+            if !self.opts.links_outside && de.file_type().is_ok_and(|t| t.is_symlink()) {
+                let inside = fs::canonicalize(&path)
+                    .ok()
+                    .and_then(|t| t.parent().map(|p| p == canonical_dir))
+                    .unwrap_or(false);
+                if !inside {
+                    refused.push(path);
+                    continue;
+                }
             }
             out.push(Entry {
                 name,
@@ -918,7 +951,29 @@ impl Tailer {
             });
         }
         out.sort_by(|a, b| a.name.cmp(&b.name));
-        Ok(out)
+        // Symbolic links are followed and keyed by their target: a link and its target (or two
+        // links to one file) are one file, read once, under the name of the real file where it
+        // is listed, else under the first link name.
+        let is_link = |e: &Entry| fs::symlink_metadata(&e.path).is_ok_and(|m| m.file_type().is_symlink());
+        let mut keep = vec![true; out.len()];
+        for i in 0..out.len() {
+            let Some(id) = out[i].meta.id else { continue };
+            if !keep[i] {
+                continue;
+            }
+            for j in i + 1..out.len() {
+                if keep[j] && out[j].meta.id == Some(id) {
+                    if is_link(&out[i]) && !is_link(&out[j]) {
+                        keep[i] = false;
+                        break;
+                    }
+                    keep[j] = false;
+                }
+            }
+        }
+        let mut k = keep.into_iter();
+        out.retain(|_| k.next().unwrap_or(true));
+        Ok((out, refused))
     }
 }
 
@@ -1486,6 +1541,7 @@ mod tests {
             marker_bytes: 16,
             seal_after_ms: 1000,
             read_chunk: 7,
+            links_outside: false,
         }
     }
 
@@ -2053,6 +2109,45 @@ mod tests {
         let evs = fx.poll_after(1000);
         assert_eq!(notes(&evs), vec!["1:Ended(Removed,0)"]);
         assert_eq!(fx.tailer.state().files.len(), 0);
+    }
+
+    #[test]
+    fn a_symlink_and_its_target_are_read_once() {
+        let mut fx = Fixture::new();
+        fx.write("plant_b.csv", &format!("{HEADER}{}", rows(0..2)));
+        std::os::unix::fs::symlink(fx.path("plant_b.csv"), fx.path("plant_a_latest.csv")).unwrap();
+        assert_eq!(recs(&fx.poll()), want(1, 0..2));
+        fx.append("plant_b.csv", &rows(2..4));
+        assert_eq!(recs(&fx.poll()), want(1, 2..4));
+        assert_eq!(fx.tailer.state().files.len(), 1);
+        assert_eq!(fx.tailer.state().files[0].name, "plant_b.csv");
+        // Re-pointing the link at a new file does not re-read either file.
+        fx.write("plant_c.csv", &format!("{HEADER}{}", rows(10..11)));
+        fs::remove_file(fx.path("plant_a_latest.csv")).unwrap();
+        std::os::unix::fs::symlink(fx.path("plant_c.csv"), fx.path("plant_a_latest.csv")).unwrap();
+        assert_eq!(recs(&fx.poll()), want(2, 10..11));
+    }
+
+    #[test]
+    fn a_symlink_out_of_the_directory_is_refused_unless_allowed() {
+        let mut fx = Fixture::new();
+        let other = tempfile::tempdir().unwrap();
+        let target = other.path().join("export.csv");
+        fs::write(&target, format!("{HEADER}{}", rows(0..2))).unwrap();
+        std::os::unix::fs::symlink(&target, fx.path("plant_x.csv")).unwrap();
+        assert_eq!(fx.poll(), vec![]);
+        assert_eq!(fx.tailer.refused_links(), [fx.path("plant_x.csv")]);
+        let mut stats = PollStats::default();
+        let _ = fx.tailer.poll(fx.now, &mut |_| {}).map(|s| stats = s);
+        assert_eq!((stats.links_refused, stats.files), (1, 0));
+        // Allowed: read as its target.
+        let mut fx2 = Fixture::with(TailOptions { links_outside: true, ..opts() });
+        std::os::unix::fs::symlink(&target, fx2.path("plant_x.csv")).unwrap();
+        assert_eq!(recs(&fx2.poll()), want(1, 0..2));
+        let mut fx = fx2;
+        let mut f = OpenOptions::new().append(true).open(&target).unwrap();
+        f.write_all(rows(2..3).as_bytes()).unwrap();
+        assert_eq!(recs(&fx.poll()), want(1, 2..3));
     }
 
     #[test]

@@ -4,9 +4,11 @@
 mod util;
 
 mod cli;
+mod demo;
 mod handbook;
 mod monitor;
 mod physics;
 mod reference;
+mod report;
 mod service;
 mod tailer;

@@ -250,9 +250,16 @@ fn detection_figures_over_seeds() {
                 .iter()
                 .filter(|e| e.time_ms < start && e.cause.as_str() != "model_validity")
                 .count();
+            // The first alert (or update) that names the injected cause.
+            let expected = kind.expected_cause();
+            let named = r
+                .events
+                .iter()
+                .find(|e| e.time_ms >= start && e.cause.as_str() == expected && e.event != EventKind::Cleared)
+                .map_or("never".to_string(), |e| format!("{:.0} min", (e.time_ms - start) as f64 / 60_000.0));
             match first {
                 Some(e) => println!(
-                    "{name:<30} seed {seed}: {:>6.0} min  {} ({}) [alerts before the fault: {early}]",
+                    "{name:<30} seed {seed}: {:>6.0} min  {} ({}); named {expected} after {named} [alerts before the fault: {early}]",
                     (e.time_ms - start) as f64 / 60_000.0,
                     e.cause.as_str(),
                     e.subject

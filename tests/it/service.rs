@@ -58,6 +58,22 @@ fn check_reports_every_problem_with_file_line_and_key() {
 }
 
 #[test]
+fn export_directory_may_not_overlap_the_output_or_state_directory() {
+    let plant = TestPlant::new("");
+    let text = std::fs::read_to_string(&plant.config)
+        .unwrap()
+        .replace("directory = \"exports\"", "directory = \"output/x\"");
+    std::fs::write(&plant.config, text).unwrap();
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&plant.config).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("`unit[1].input.directory`") && err.contains("overlaps the output directory"),
+        "{err}"
+    );
+}
+
+#[test]
 fn includes_are_followed_and_located() {
     let dir = tempfile::tempdir().unwrap();
     let main = "include = [\"units.toml\"]\n[site]\ntime_zone = \"UTC\"\n";

@@ -418,6 +418,7 @@ fn options(chunk: usize, fp: usize, marker: usize) -> TailOptions {
         marker_bytes: marker,
         seal_after_ms: SEAL_MS,
         read_chunk: chunk,
+        links_outside: false,
     }
 }
 
