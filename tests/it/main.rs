@@ -4,6 +4,7 @@
 mod util;
 
 mod cli;
+mod forward;
 mod handbook;
 mod physics;
 mod reference;
