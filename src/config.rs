@@ -360,6 +360,46 @@ pub struct RawUnit {
     pub monitor: RawMonitor,
 }
 
+/// A syslog facility: a name (`"local0"`, `"daemon"`) or a number 0–23.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(untagged)]
+pub enum RawFacility {
+    /// A facility number.
+    Number(i64),
+    /// A facility name.
+    Name(String),
+}
+
+/// `[forward.syslog]`: alert events to a syslog collector (see [`crate::forward`]).
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawSyslog {
+    /// Collector `host:port`.
+    pub address: Option<String>,
+    /// `tcp` (default; framed, queued and resent) or `udp`.
+    pub transport: Option<String>,
+    /// Facility name or number (default `local0`).
+    pub facility: Option<RawFacility>,
+    /// APP-NAME (default `efftemp`).
+    pub app_name: Option<String>,
+    /// HOSTNAME (default: the machine's host name).
+    pub hostname: Option<String>,
+    /// Most events queued while the collector is unreachable (default 10000).
+    pub queue_max: Option<usize>,
+    /// First reconnect delay, e.g. "500ms".
+    pub reconnect_min: Option<String>,
+    /// Longest reconnect delay, e.g. "1m".
+    pub reconnect_max: Option<String>,
+}
+
+/// `[forward]`: where alert events are sent besides the alert file.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawForward {
+    /// Syslog collector.
+    pub syslog: Option<RawSyslog>,
+}
+
 /// The main site file.
 #[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -376,6 +416,9 @@ pub struct RawSite {
     /// Units.
     #[serde(default)]
     pub unit: Vec<RawUnit>,
+    /// Forwarding of alert events.
+    #[serde(default)]
+    pub forward: RawForward,
 }
 
 /// An included file: more units and includes only.
@@ -655,6 +698,8 @@ pub struct SiteConfig {
     pub shifts: Vec<jiff::civil::Time>,
     /// Write shift reports automatically.
     pub shift_reports: bool,
+    /// Syslog forwarding of alert events (`[forward.syslog]`), queue in `<state_dir>/syslog-queue`.
+    pub syslog: Option<crate::forward::SyslogConfig>,
 }
 
 /// Parse a duration like "90s", "5m", "1h 30m" or "PT1M".
@@ -824,6 +869,8 @@ impl SiteConfig {
             },
         };
 
+        let syslog = raw.forward.syslog.as_ref().and_then(|s| check_syslog(&mut ck, s, &state_dir));
+
         // Component library shared by the site.
         let mut library = Library::builtin()?;
         for (i, lib) in raw.site.libraries.iter().enumerate() {
@@ -905,8 +952,86 @@ impl SiteConfig {
             output_dir,
             service,
             units: checked,
+            syslog,
         })
     }
+}
+
+/// `[forward.syslog]`, checked; None when it has errors (they are in `ck`).
+fn check_syslog(ck: &mut Ck<'_>, raw: &RawSyslog, state_dir: &Path) -> Option<crate::forward::SyslogConfig> {
+    use crate::forward::{self, DEFAULT_FACILITY, SyslogConfig, Transport};
+    let key = KeyPath::keys("forward.syslog");
+    let before = ck.errors.len();
+    let address = match &raw.address {
+        Some(a) => {
+            if let Err(e) = forward::check_address(a) {
+                ck.err(&key.key("address"), e);
+            }
+            a.trim().to_string()
+        }
+        None => {
+            ck.err(&key, "address is required (host:port of the syslog collector)");
+            String::new()
+        }
+    };
+    let transport = match raw.transport.as_deref().map(str::trim) {
+        None | Some("tcp") => Transport::Tcp,
+        Some("udp") => Transport::Udp,
+        Some(other) => {
+            ck.err(
+                &key.key("transport"),
+                format!("unknown transport `{other}`; use \"tcp\" (framed, queued and resent) or \"udp\""),
+            );
+            Transport::Tcp
+        }
+    };
+    let facility = match &raw.facility {
+        None => DEFAULT_FACILITY,
+        Some(RawFacility::Number(n)) => match u8::try_from(*n) {
+            Ok(f) if f <= 23 => f,
+            _ => {
+                ck.err(&key.key("facility"), format!("facility {n} is out of range 0..=23"));
+                DEFAULT_FACILITY
+            }
+        },
+        Some(RawFacility::Name(name)) => forward::facility_from_name(name).unwrap_or_else(|| {
+            ck.err(
+                &key.key("facility"),
+                format!("unknown facility `{name}`; use local0 … local7, a name like \"daemon\", or 0..=23"),
+            );
+            DEFAULT_FACILITY
+        }),
+    };
+    let mut cfg = SyslogConfig::new(address, transport, state_dir.join("syslog-queue"));
+    cfg.facility = facility;
+    if let Some(a) = &raw.app_name {
+        if let Err(e) = forward::check_app_name(a) {
+            ck.err(&key.key("app_name"), e);
+        }
+        cfg.app_name = a.clone();
+    }
+    if let Some(h) = &raw.hostname
+        && let Err(e) = forward::check_hostname(h)
+    {
+        ck.err(&key.key("hostname"), e);
+    }
+    cfg.hostname = raw.hostname.clone();
+    match raw.queue_max {
+        Some(0) => ck.err(&key.key("queue_max"), "queue_max must be at least 1"),
+        Some(n) => cfg.queue_max = n,
+        None => {}
+    }
+    let min = ck.duration(&key.key("reconnect_min"), raw.reconnect_min.as_ref(), 500);
+    let max = ck.duration(&key.key("reconnect_max"), raw.reconnect_max.as_ref(), 60_000);
+    if min > max {
+        ck.err(
+            &key.key("reconnect_min"),
+            format!("reconnect_min ({min} ms) is above reconnect_max ({max} ms)"),
+        );
+    }
+    cfg.reconnect_min_ms = u64::try_from(min).unwrap_or(500);
+    cfg.reconnect_max_ms = u64::try_from(max).unwrap_or(60_000);
+    (ck.errors.len() == before).then_some(cfg)
 }
 
 /// Builds the tag table of a unit while signals are checked.

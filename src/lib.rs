@@ -24,6 +24,7 @@
 //! * [`model`]: the per-interval unit model (soft tags, flags, conditions).
 //! * [`alerts`]: the alert lifecycle (raise, update, clear; stable ids).
 //! * [`output`]: soft-tag CSV and alert JSON-lines writers (idempotent by key).
+//! * [`forward`]: alert events to a syslog collector (RFC 5424 over UDP or framed TCP, disk queue).
 //! * [`state`]: the locked state directory and the atomic checkpoint.
 //! * [`pipeline`]: tail → rows → intervals → model → alerts → outputs → checkpoint.
 //! * [`service`]: the async shell of `run` (events, ticks, shutdown) and the batch `replay`.
@@ -41,6 +42,7 @@ pub mod case;
 pub mod cli;
 pub mod config;
 pub mod demo;
+pub mod forward;
 pub mod hash;
 pub mod http;
 pub mod ingest;

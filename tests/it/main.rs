@@ -5,6 +5,7 @@ mod util;
 
 mod cli;
 mod demo;
+mod forward;
 mod handbook;
 mod monitor;
 mod physics;
