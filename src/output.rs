@@ -263,6 +263,11 @@ impl AlertWriter {
         })
     }
 
+    /// Whether an event is not yet on disk (it would be written).
+    pub fn is_new(&self, ev: &AlertEvent) -> bool {
+        ev.sequence > self.last_sequence
+    }
+
     /// Append an event unless its sequence number is already on disk. Returns whether it was
     /// written (callers forward only written events).
     pub fn write(&mut self, ev: &AlertEvent) -> io::Result<bool> {

@@ -210,6 +210,8 @@ pub struct UnitRuntime {
     site: Arc<SiteInfo>,
     /// Links refused at the last pass (warned about when the set changes).
     refused_links: Vec<PathBuf>,
+    /// Syslog forwarding of new alert events (live service only).
+    forward: Option<Arc<crate::forward::Forwarder>>,
 }
 
 /// Site facts every unit runtime needs (reports).
@@ -279,6 +281,7 @@ impl UnitRuntime {
             last_end_ms: saved.last_end_ms,
             site,
             refused_links: Vec::new(),
+            forward: None,
         })
     }
 
@@ -351,6 +354,7 @@ impl UnitRuntime {
             last_end_ms,
             site,
             refused_links,
+            forward,
         } = self;
         let site: &SiteInfo = site;
         let cfg: &UnitConfig = cfg;
@@ -395,6 +399,14 @@ impl UnitRuntime {
                     break;
                 }
                 for event in events {
+                    // Queue for syslog before the file write: the queue is durable at once and
+                    // the file at the next checkpoint, so a crash in between can repeat an
+                    // event downstream (alert_id + sequence identify it) but never lose one.
+                    if let Some(f) = forward.as_ref()
+                        && alert_out.is_new(&event)
+                    {
+                        f.send(&event);
+                    }
                     match alert_out.write(&event) {
                         Ok(true) => {
                             let k = (
@@ -701,6 +713,13 @@ impl Pipeline {
                 }
             })
             .collect()
+    }
+
+    /// Forward every new alert event to syslog through `f` (the live service).
+    pub fn set_forwarder(&mut self, f: &Arc<crate::forward::Forwarder>) {
+        for u in &mut self.units {
+            u.forward = Some(f.clone());
+        }
     }
 
     /// Checkpoint writes and failures so far.

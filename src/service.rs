@@ -133,6 +133,22 @@ pub async fn run(
     for note in &pipeline.notes {
         warn!("checkpoint: {note}");
     }
+    // Syslog forwarding: its disk queue is locked for the life of this run (a reload stops
+    // the old forwarder before the new run starts one).
+    let forwarder = match &site.syslog {
+        Some(cfg) => {
+            let cfg = cfg.clone();
+            let f = tokio::task::spawn_blocking(move || crate::forward::Forwarder::start(cfg))
+                .await
+                .map_err(|e| ServiceError::Internal(e.to_string()))?
+                .map_err(|e| ServiceError::Internal(format!("syslog forwarding: {e}")))?;
+            let f = Arc::new(f);
+            pipeline.set_forwarder(&f);
+            info!(address = %site.syslog.as_ref().map_or("", |c| c.address.as_str()), "forwarding alert events to syslog");
+            Some(f)
+        }
+        None => None,
+    };
     let notify = match &wake {
         Wake::External(n) => n.clone(),
         Wake::Watchers => Arc::new(Notify::new()),
@@ -202,9 +218,9 @@ pub async fn run(
                 watcher_errors: _watch
                     .as_ref()
                     .map_or(0, |w| w.errors.load(std::sync::atomic::Ordering::Relaxed)),
-                syslog_queue: None,
-                syslog_sent: None,
-                syslog_dropped: None,
+                syslog_queue: forwarder.as_ref().map(|f| f.stats().queued as u64),
+                syslog_sent: forwarder.as_ref().map(|f| f.stats().sent),
+                syslog_dropped: forwarder.as_ref().map(|f| f.stats().dropped),
                 passes,
                 last_pass_ms: Some(jiff::Timestamp::now().as_millisecond()),
                 ready_within_ms: i64::try_from(site.service.reconcile_ms.max(1_000) * 3).unwrap_or(i64::MAX),
@@ -226,9 +242,18 @@ pub async fn run(
     }
     notifier.notify("STOPPING=1");
     info!("shutting down: flushing outputs and the checkpoint");
-    let res = tokio::task::spawn_blocking(move || pipeline.checkpoint())
-        .await
-        .map_err(|e| ServiceError::Internal(e.to_string()))?;
+    let res = tokio::task::spawn_blocking(move || {
+        let r = pipeline.checkpoint();
+        drop(pipeline);
+        // Give the collector a moment for what is queued; the rest stays in the disk queue
+        // and is sent first at the next start.
+        if let Some(f) = forwarder.and_then(|f| Arc::try_unwrap(f).ok()) {
+            f.shutdown(Duration::from_millis(1_500));
+        }
+        r
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))?;
     res?;
     info!("stopped");
     Ok(())
