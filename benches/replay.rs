@@ -5,7 +5,8 @@
 //! day) under `target/bench-data/`, replays them in-process, and prints rows/s and the peak
 //! resident set size; also the bare `csv`-crate parse rate of the same files for comparison.
 //!
-//! Run: `cargo bench --bench replay` (add `-- --days N` for a shorter run).
+//! Run: `cargo bench --bench replay` (add `-- --days N` for a shorter run, `-- --interval 10m`
+//! for ten rows per interval instead of one).
 
 #![allow(missing_docs, clippy::unwrap_used)]
 
@@ -22,6 +23,15 @@ fn vm(field: &str) -> Option<u64> {
     let s = std::fs::read_to_string("/proc/self/status").ok()?;
     let line = s.lines().find(|l| l.starts_with(field))?;
     line.split_whitespace().nth(1)?.parse().ok()
+}
+
+/// CPU time (user + system) of this process so far, seconds.
+fn cpu_seconds() -> f64 {
+    let s = std::fs::read_to_string("/proc/self/stat").unwrap_or_default();
+    let after = s.rsplit_once(')').map_or("", |x| x.1);
+    let f: Vec<&str> = after.split_whitespace().collect();
+    let ticks = |i: usize| f.get(i).and_then(|v| v.parse::<f64>().ok()).unwrap_or(0.0);
+    (ticks(11) + ticks(12)) / 100.0
 }
 
 fn generate(dir: &Path, days: i64) -> u64 {
@@ -58,7 +68,7 @@ fn generate(dir: &Path, days: i64) -> u64 {
     rows
 }
 
-fn config(root: &Path, exports: &Path) -> PathBuf {
+fn config(root: &Path, exports: &Path, interval: &str) -> PathBuf {
     let cfg = root.join("site.toml");
     let text = format!(
         r#"[site]
@@ -77,7 +87,7 @@ pattern = "plant_*.csv"
 timestamp_column = "Timestamp"
 unknown_tags = "ignore"
 [unit.timing]
-interval = "1m"
+interval = "{interval}"
 max_wait = "3m"
 [[unit.feed]]
 flow = {{ tag = "FI-101", unit = "mol/s", uncertainty = "1 %" }}
@@ -92,7 +102,7 @@ pressure = {{ tag = "PI-110", unit = "bar" }}
 [unit.ambient]
 temperature = {{ tag = "TI-001", unit = "degC" }}
 "#,
-        exports.display()
+        exports.display(),
     );
     std::fs::write(&cfg, text).unwrap();
     cfg
@@ -120,6 +130,7 @@ fn main() {
 
     // Bare csv-crate parse of the same files (records and float fields), for comparison.
     let t = Instant::now();
+    let c = cpu_seconds();
     let mut n = 0u64;
     let mut sum = 0.0;
     let mut files: Vec<PathBuf> = std::fs::read_dir(&exports).unwrap().flatten().map(|e| e.path()).collect();
@@ -135,21 +146,38 @@ fn main() {
         }
     }
     let dt = t.elapsed().as_secs_f64();
-    println!("csv crate alone: {n} rows in {dt:.2} s = {:.0} rows/s (checksum {sum:.0})", n as f64 / dt);
+    let cpu = cpu_seconds() - c;
+    println!(
+        "csv crate alone: {n} rows in {dt:.2} s = {:.0} rows/s; {cpu:.2} CPU-s = {:.0} rows per CPU-second (checksum {sum:.0})",
+        n as f64 / dt,
+        n as f64 / cpu.max(0.01)
+    );
 
     let work = tempfile::tempdir().unwrap();
-    let cfg = config(work.path(), &exports);
+    let interval = args
+        .iter()
+        .position(|a| a == "--interval")
+        .and_then(|i| args.get(i + 1))
+        .map_or("1m", String::as_str);
+    println!(
+        "interval {interval} (each 1-minute row {})",
+        if interval == "1m" { "closes an interval: model-bound" } else { "is aggregated: ingest-bound" }
+    );
+    let cfg = config(work.path(), &exports, interval);
     let site = efftemp::config::SiteConfig::load(&cfg).unwrap();
     let before = vm("VmHWM:").unwrap_or(0);
     let t = Instant::now();
+    let c = cpu_seconds();
     let sum = efftemp::service::replay(&site, Some(work.path().join("output"))).unwrap();
     let dt = t.elapsed().as_secs_f64();
+    let cpu = cpu_seconds() - c;
     let peak = vm("VmHWM:").unwrap_or(0);
     println!(
-        "efftemp replay: {} rows, {} intervals in {dt:.2} s = {:.0} rows/s; peak RSS {:.1} MiB (before the replay {:.1} MiB)",
+        "efftemp replay: {} rows, {} intervals in {dt:.2} s = {:.0} rows/s; {cpu:.2} CPU-s = {:.0} rows per CPU-second; peak RSS {:.1} MiB (before the replay {:.1} MiB)",
         sum.records,
         sum.intervals,
         sum.records as f64 / dt,
+        sum.records as f64 / cpu.max(0.01),
         peak as f64 / 1024.0,
         before as f64 / 1024.0
     );

@@ -523,6 +523,8 @@ fn solve_all(
     // Heater effectiveness: the duty needed to reach the measured temperature / reported duty.
     let mut at_measured = inputs.clone();
     at_measured.effluent_temperature = Some(t_meas);
+    // Only the duty and the conversion are used from these solves: skip the bubble point.
+    at_measured.pressure = None;
     if let (Ok(o), Some(reported)) = (sys.solve(&at_measured, Unknown::Duty), inputs.duty) {
         eval.signals.needed_duty_w = Some(o.duty);
         if reported.abs() > 1.0 {

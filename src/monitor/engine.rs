@@ -597,10 +597,16 @@ impl Monitor {
         // The centre of the window is judged (a step is not a spike: after it the window's
         // median follows).
         if self.recent_resid.len() == 7 {
-            let v: Vec<f64> = self.recent_resid.iter().copied().collect();
-            let med = stats::median(&v);
-            let mad = stats::mad_sigma(&v).max(sigma_i);
+            let mut v = [0.0; 7];
+            for (d, s) in v.iter_mut().zip(&self.recent_resid) {
+                *d = *s;
+            }
             let centre = v[3];
+            v.sort_unstable_by(f64::total_cmp);
+            let med = v[3];
+            let mut dev = v.map(|x| (x - med).abs());
+            dev.sort_unstable_by(f64::total_cmp);
+            let mad = (1.4826 * dev[3]).max(sigma_i);
             if (centre - med).abs() > 3.0 * mad && self.baseline.is_some() {
                 let tag = &unit.tags[unit.effluent_temperature].name;
                 out.flags.push(format!("spike:{tag}"));
@@ -641,12 +647,14 @@ impl Monitor {
             if tag.kind != TagKind::Continuous || !tag.required {
                 continue;
             }
-            let vals: Vec<f64> =
-                self.recent_tags.iter().filter_map(|t| t.get(i).copied().flatten()).collect();
-            if vals.len() < w {
+            let (n, lo, hi) = self
+                .recent_tags
+                .iter()
+                .filter_map(|t| t.get(i).copied().flatten())
+                .fold((0usize, f64::MAX, f64::MIN), |(n, a, b), x| (n + 1, a.min(x), b.max(x)));
+            if n < w {
                 continue;
             }
-            let (lo, hi) = vals.iter().fold((f64::MAX, f64::MIN), |(a, b), x| (a.min(*x), b.max(*x)));
             let flat = hi - lo <= 1e-9 * hi.abs().max(1.0);
             // A live transmitter shows its noise: zero variation over the window where the
             // baseline saw noise is already improbable (s < 0.3 σ_ref over 30 samples has
@@ -658,6 +666,14 @@ impl Monitor {
                 .and_then(|b| b.tag_noise.get(i).copied().flatten())
                 .is_some_and(|n| n > 1e-9 * hi.abs().max(1.0));
             let moved = noisy || if i == unit.effluent_temperature { pred_moved } else { meas_moved };
+            if !flat
+                && !self.active.iter().any(|a| {
+                    a.cause == Cause::InstrumentFault
+                        && a.subject.strip_suffix(":stuck").is_some_and(|s| s == tag.name)
+                })
+            {
+                continue;
+            }
             let subject = format!("{}:stuck", tag.name);
             if flat && moved {
                 let minutes = (w as i64 * unit.interval_ms) as f64 / 60_000.0;
@@ -926,7 +942,7 @@ impl Monitor {
         meas: f64,
         r: f64,
     ) {
-        let Some(b) = self.baseline.clone() else { return };
+        let Some(b) = self.baseline.as_ref() else { return };
         push_bounded(&mut self.steps, (e.end_ms, r, pred, meas, e.signals.tag_values_si.clone()), 30);
         if self.steps.len() < 30 {
             return;

@@ -114,8 +114,25 @@ fn shift_fraction(fractions: &mut [f64], i: usize, h: f64) {
     }
 }
 
-fn perturbed(inputs: &Inputs, input: InputRef, h: f64) -> Inputs {
-    let mut p = inputs.clone();
+/// Undo [`perturb`] on `p` (a copy of `base` with one input perturbed), without allocating.
+fn restore(p: &mut Inputs, base: &Inputs, input: InputRef) {
+    match input {
+        InputRef::FeedFlow(j) | InputRef::FeedTemperature(j) | InputRef::FeedFraction(j, _) => {
+            if let (Some(f), Some(b)) = (p.feeds.get_mut(j), base.feeds.get(j)) {
+                f.flow = b.flow;
+                f.temperature = b.temperature;
+                f.fractions.copy_from_slice(&b.fractions);
+            }
+        }
+        InputRef::Duty => p.duty = base.duty,
+        InputRef::HeatLoss => p.heat_loss = base.heat_loss,
+        InputRef::Conversion(_) | InputRef::EffluentFraction(_) => p.effluent.clone_from(&base.effluent),
+        InputRef::EffluentTemperature => p.effluent_temperature = base.effluent_temperature,
+    }
+}
+
+/// Perturb one input of `p` by `h`.
+fn perturb(p: &mut Inputs, input: InputRef, h: f64) {
     match input {
         InputRef::FeedFlow(j) => {
             if let Some(f) = p.feeds.get_mut(j) {
@@ -152,7 +169,6 @@ fn perturbed(inputs: &Inputs, input: InputRef, h: f64) -> Inputs {
         }
         InputRef::EffluentTemperature => p.effluent_temperature = p.effluent_temperature.map(|t| t + h),
     }
-    p
 }
 
 fn scale_of(input: InputRef) -> f64 {
@@ -178,13 +194,19 @@ pub fn propagate(
         super::balance::Unknown::Conversion(r) => outcome.conversions[r],
     };
     let slope = system.residual_slope(outcome);
+    // One scratch copy, perturbed and restored in place for each input.
+    let mut scratch = inputs.clone();
     let mut contributions: Vec<Contribution> = uncertain
         .iter()
         .map(|item| {
             let x = value_of(inputs, item.input);
             let h = 1e-4 * x.abs().max(scale_of(item.input));
-            let f_plus = system.residual(&perturbed(inputs, item.input, h), unknown, y);
-            let f_minus = system.residual(&perturbed(inputs, item.input, -h), unknown, y);
+            perturb(&mut scratch, item.input, h);
+            let f_plus = system.residual(&scratch, unknown, y);
+            restore(&mut scratch, inputs, item.input);
+            perturb(&mut scratch, item.input, -h);
+            let f_minus = system.residual(&scratch, unknown, y);
+            restore(&mut scratch, inputs, item.input);
             let df = (f_plus - f_minus) / (2.0 * h);
             let sensitivity = if slope != 0.0 && df.is_finite() { -df / slope } else { 0.0 };
             Contribution {
