@@ -704,11 +704,19 @@ pub struct SiteConfig {
 
 /// Parse a duration like "90s", "5m", "1h 30m" or "PT1M".
 pub fn parse_duration_ms(text: &str) -> Result<i64, String> {
-    let d: jiff::SignedDuration = text
-        .trim()
-        .parse()
-        .map_err(|e| format!("`{text}` is not a duration (e.g. \"60s\", \"5m\", \"1h 30m\"): {e}"))?;
-    let ms = d.as_millis();
+    let bad = |e: &dyn std::fmt::Display| {
+        format!("`{text}` is not a duration (e.g. \"60s\", \"5m\", \"1h 30m\", \"7d\"): {e}")
+    };
+    let span: jiff::Span = text.trim().parse().map_err(|e| bad(&e))?;
+    // Days (and weeks) are 24 h here: durations in the configuration are elapsed times.
+    let ms = span
+        .total((jiff::Unit::Millisecond, jiff::SpanRelativeTo::days_are_24_hours()))
+        .map_err(|e| bad(&e))?;
+    if !ms.is_finite() || ms.fract() != 0.0 {
+        return Err(format!("duration `{text}` must be a whole number of milliseconds"));
+    }
+    #[allow(clippy::cast_possible_truncation)]
+    let ms = ms as i128;
     if ms <= 0 {
         return Err(format!("duration `{text}` must be positive"));
     }
@@ -1842,6 +1850,9 @@ mod tests {
         assert_eq!(parse_duration_ms("5m"), Ok(300_000));
         assert_eq!(parse_duration_ms("1h 30m"), Ok(5_400_000));
         assert!(parse_duration_ms("soon").is_err());
+        assert_eq!(parse_duration_ms("7d"), Ok(7 * 86_400_000));
+        assert_eq!(parse_duration_ms("2w"), Ok(14 * 86_400_000));
+        assert!(parse_duration_ms("1 month").is_err());
         assert!(parse_duration_ms("0s").is_err());
     }
 }

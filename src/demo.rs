@@ -43,6 +43,9 @@ pub struct Score {
     pub right_cause: bool,
     /// Detection delay, minutes.
     pub delay_min: Option<f64>,
+    /// Minutes until an alert named the expected cause (it may first have been raised as
+    /// `undetermined` and attributed later), if it did within the event's window.
+    pub named_after_min: Option<f64>,
 }
 
 /// The demo's results.
@@ -126,10 +129,16 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
                     || (c == "undetermined" && matches!(expected, "conversion_drift" | "heater_fouling"))
             };
             let right = raised.iter().filter(in_window).find(|a| a.cause.as_str() == expected).copied();
+            let named = events
+                .iter()
+                .filter(|a| a.event != AlertKind::Cleared && a.time_ms >= start)
+                .filter(|a| a.time_ms <= start + window_ms(inj))
+                .find(|a| a.cause.as_str() == expected);
             Score {
                 event: inj.clone(),
                 right_cause: first.is_some_and(|a| acceptable(a.cause.as_str())),
                 delay_min: first.map(|a| (a.time_ms - start) as f64 / 60_000.0),
+                named_after_min: named.map(|a| (a.time_ms - start) as f64 / 60_000.0),
                 first_alert: first.or(right).cloned(),
             }
         })
@@ -332,9 +341,12 @@ pub fn scorecard(r: &DemoResult) -> String {
     for sc in &r.scores {
         let verdict = match (&sc.first_alert, sc.right_cause) {
             (Some(a), true) if a.cause.as_str() == "undetermined" => format!(
-                "detected after {:.0} min as undetermined (without an effluent analyzer; expected {} if separable)",
+                "detected after {:.0} min as undetermined (no effluent analyzer){}",
                 sc.delay_min.unwrap_or(0.0),
-                sc.event.kind.expected_cause()
+                match sc.named_after_min {
+                    Some(m) => format!("; named {} after {:.1} h", sc.event.kind.expected_cause(), m / 60.0),
+                    None => format!("; not yet separable as {}", sc.event.kind.expected_cause()),
+                }
             ),
             (Some(a), true) => format!(
                 "detected after {:.0} min as {} ({})",
@@ -352,10 +364,9 @@ pub fn scorecard(r: &DemoResult) -> String {
         };
         let _ = writeln!(
             s,
-            "  {}  {:<62} {}",
+            "  {}  {}\n      -> {verdict}",
             day_label(sc.event.start_s * 1000),
-            sc.event.description.chars().take(62).collect::<String>(),
-            verdict
+            sc.event.description
         );
     }
     let _ = writeln!(s, "  alerts outside the event windows (false alerts): {}", r.false_alerts.len());

@@ -536,6 +536,10 @@ impl UnitRuntime {
                 now_mono.saturating_sub(t) >= u64::try_from(cfg.max_wait_ms).unwrap_or(u64::MAX)
             });
         process(assembler, quiet, &mut io_error, counters, last, ingest);
+        if quiet {
+            // Flushed: nothing more to do until new data arrive (no timer keeps firing).
+            *last_data_mono = None;
+        }
         if let Some(e) = io_error {
             return Err(e);
         }

@@ -446,3 +446,24 @@ fn sighup_reload_and_sigterm() {
     assert!(status.success() && t.elapsed() < Duration::from_secs(5), "{status:?} after {:?}", t.elapsed());
     assert!(plant.state.join("state.json").exists());
 }
+
+/// No CPU without data: once a stalled stream has been flushed after `max_wait`, the service
+/// has no deadline left to wake up for (only file events or the reconcile tick wake it).
+#[test]
+fn a_flushed_quiet_stream_leaves_no_timer_running() {
+    let plant = TestPlant::new("");
+    plant.append("plant_20261201.csv", &TestPlant::rows(0, 125));
+    let site = SiteConfig::load(&plant.config).unwrap();
+    let mut p = efftemp::pipeline::Pipeline::new(&site, &efftemp::pipeline::Mode::Live).unwrap();
+    p.pass(1_000, false).unwrap();
+    // Data arrived: the quiet deadline is max_wait (3 min) after it.
+    assert_eq!(p.next_quiet_deadline(), Some(1_000 + 180_000));
+    p.pass(100_000, false).unwrap();
+    assert_eq!(p.next_quiet_deadline(), Some(181_000), "no new data: same deadline");
+    p.pass(181_000, false).unwrap();
+    assert_eq!(p.next_quiet_deadline(), None, "flushed: nothing left to wait for");
+    // New data re-arm it.
+    plant.append("plant_20261201.csv", &TestPlant::rows(130, 200));
+    p.pass(200_000, false).unwrap();
+    assert_eq!(p.next_quiet_deadline(), Some(380_000));
+}
