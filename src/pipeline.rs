@@ -212,6 +212,8 @@ pub struct UnitRuntime {
     refused_links: Vec<PathBuf>,
     /// Syslog forwarding of new alert events (live service only).
     forward: Option<Arc<crate::forward::Forwarder>>,
+    /// Whether a pass has run since this runtime was created.
+    started: bool,
 }
 
 /// Site facts every unit runtime needs (reports).
@@ -282,6 +284,7 @@ impl UnitRuntime {
             site,
             refused_links: Vec::new(),
             forward: None,
+            started: false,
         })
     }
 
@@ -355,6 +358,7 @@ impl UnitRuntime {
             site,
             refused_links,
             forward,
+            started,
         } = self;
         let site: &SiteInfo = site;
         let cfg: &UnitConfig = cfg;
@@ -530,6 +534,14 @@ impl UnitRuntime {
         }
         if got_data {
             *last_data_mono = Some(now_mono);
+        }
+        if !*started {
+            // Intervals restored open from the checkpoint wait for late data like any others:
+            // without new data they close after max_wait from this start.
+            *started = true;
+            if last_data_mono.is_none() && assembler.has_open() {
+                *last_data_mono = Some(now_mono);
+            }
         }
         let quiet = flush
             || last_data_mono.is_some_and(|t| {

@@ -218,3 +218,23 @@ temperature = {{ tag = "TI-109", unit = "degC", uncertainty = "0.3 K" }}
         names.iter().map(|p| std::fs::read_to_string(p).expect("read soft tags")).collect()
     }
 }
+
+/// Assert two texts are equal; on failure show the line counts and the first differing lines
+/// instead of both texts whole.
+pub fn assert_same_lines(got: &str, want: &str, what: &str) {
+    if got == want {
+        return;
+    }
+    let (g, w): (Vec<&str>, Vec<&str>) = (got.lines().collect(), want.lines().collect());
+    let i = g.iter().zip(&w).position(|(a, b)| a != b).unwrap_or(g.len().min(w.len()));
+    let show =
+        |v: &[&str]| v.iter().skip(i.saturating_sub(1)).take(4).copied().collect::<Vec<_>>().join("\n    ");
+    panic!(
+        "{what}: {} lines vs {} expected; first difference at line {}:\n  got:\n    {}\n  expected:\n    {}",
+        g.len(),
+        w.len(),
+        i + 1,
+        show(&g),
+        show(&w)
+    );
+}
