@@ -5,6 +5,7 @@ mod util;
 
 mod cli;
 mod handbook;
+mod hostile;
 mod physics;
 mod reference;
 mod service;
