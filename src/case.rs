@@ -852,9 +852,41 @@ impl Case {
         let uncertainty = if self.uncertain.is_empty() {
             None
         } else {
-            Some(propagate(&self.system, &self.inputs, &outcome, &self.uncertain))
+            let u = propagate(&self.system, &self.inputs, &outcome, &self.uncertain);
+            // An absurd input uncertainty (e.g. `flow_uncertainty = "1e308 %"`) overflows the
+            // propagation; the report must not carry infinities (JSON `null`): refuse it at the
+            // input that contributes most.
+            // (Contributions are in the order of `self.uncertain`.)
+            if !u.u.is_finite()
+                && let Some((c, item)) = u
+                    .contributions
+                    .iter()
+                    .zip(&self.uncertain)
+                    .max_by(|a, b| a.0.contribution.total_cmp(&b.0.contribution))
+            {
+                let msg = format!(
+                    "the uncertainty of the result cannot be propagated: the standard uncertainty of {} ({:e}) is too large",
+                    c.label, c.u
+                );
+                return Err(LocatedErrors::from(self.source.error_at(&uncertainty_key(item.input), msg)));
+            }
+            Some(u)
         };
         Ok(Report::new(self, &outcome, uncertainty.as_ref()))
+    }
+}
+
+/// The key of the case file that sets an input's uncertainty.
+fn uncertainty_key(input: InputRef) -> KeyPath {
+    match input {
+        InputRef::FeedFlow(j) => KeyPath::keys("feed").index(j).key("flow_uncertainty"),
+        InputRef::FeedTemperature(j) => KeyPath::keys("feed").index(j).key("temperature_uncertainty"),
+        InputRef::FeedFraction(j, _) => KeyPath::keys("feed").index(j).key("composition_uncertainty"),
+        InputRef::Duty => KeyPath::keys("heater.duty_uncertainty"),
+        InputRef::HeatLoss => KeyPath::keys("heater.heat_loss_uncertainty"),
+        InputRef::Conversion(r) => KeyPath::keys("reaction").index(r).key("conversion_uncertainty"),
+        InputRef::EffluentFraction(_) => KeyPath::keys("effluent.composition_uncertainty"),
+        InputRef::EffluentTemperature => KeyPath::keys("effluent.temperature_uncertainty"),
     }
 }
 
@@ -1334,5 +1366,38 @@ impl Report {
         }
         let _ = write!(s, "\nCaution: {}\n", self.caution);
         s
+    }
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    fn run(text: &str) -> Result<Report, LocatedErrors> {
+        Case::check(Arc::new(SourceText::new("case.toml", text)))?.run()
+    }
+
+    /// Found by the hostile-input property test (tests/it/hostile.rs): an absurd relative
+    /// uncertainty overflowed the propagation and the JSON report carried `null` for the
+    /// combined uncertainty. It is now an error located at the input.
+    #[test]
+    fn overflowing_uncertainty_is_a_located_error() {
+        let case = |u: &str| {
+            format!(
+                "[[feed]]\nflow = \"38.5 kmol/h\"\ntemperature = \"46.5 degC\"\ncomposition = {{ water = 1.0 }}\nflow_uncertainty = \"{u}\"\n[effluent]\ntemperature = \"63.4 degC\"\n[heater]\nheat_loss = \"6 kW\"\n[solve]\nunknown = \"duty\"\n"
+            )
+        };
+        let ok = run(&case("1 %")).unwrap();
+        assert!(ok.uncertainty.as_ref().is_some_and(|u| u.standard_uncertainty.is_finite()));
+        let err = run(&case("1e308 %")).unwrap_err();
+        assert_eq!(err.0.len(), 1);
+        let e = &err.0[0];
+        assert_eq!(
+            e.location.key.as_ref().map(ToString::to_string).as_deref(),
+            Some("feed[1].flow_uncertainty")
+        );
+        assert_eq!(e.location.line_col.map(|(l, _)| l), Some(5));
+        assert!(e.message.contains("too large"), "{e}");
     }
 }

@@ -794,7 +794,15 @@ impl System {
             }
         }
         let mut streams = self.streams(inputs, true)?;
+        // Finite inputs can still overflow on the way (a flow of 1e308 t/h is about 1e309
+        // mol/s of water): never go on with infinities, which would end as a NaN result.
+        if streams.feed_flows.iter().flatten().any(|n| !n.is_finite()) {
+            return Err(SolveError::NotFinite("feed flow (in mol/s)"));
+        }
         let h_in = self.inlet_enthalpy(inputs, &streams);
+        if !h_in.is_finite() {
+            return Err(SolveError::NotFinite("feed enthalpy flow"));
+        }
         let need_t = |what: &str| {
             inputs.effluent_temperature.ok_or_else(|| {
                 SolveError::MissingInput(format!("solving for the {what} needs the effluent temperature"))
@@ -866,6 +874,11 @@ impl System {
         let out_mass =
             streams.out_flows.iter().zip(&self.components).map(|(n, c)| n * c.molar_mass).sum::<f64>()
                 / 1000.0;
+        if ![t_out, duty, h_out, cp_out, out_total, out_mass].iter().all(|x| x.is_finite())
+            || !streams.conversions.iter().chain(&streams.extents).all(|x| x.is_finite())
+        {
+            return Err(SolveError::NotFinite("result (an input is too large)"));
+        }
         let heats_of_reaction = (0..self.reactions.len())
             .map(|r| (self.heat_of_reaction(r, T_REF), self.heat_of_reaction(r, t_out)))
             .collect();
@@ -1047,5 +1060,46 @@ impl System {
             }
         }
         outcome.flags.extend(flags);
+    }
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::thermo::component::Library;
+
+    fn water() -> System {
+        let water = Library::builtin().unwrap().resolve("water").unwrap();
+        System::new(vec![water], &[PathChoice::Auto], None, Vec::new(), DEFAULT_BOUNDS).unwrap()
+    }
+
+    fn inputs(flow: FlowValue, duty: Option<f64>) -> Inputs {
+        Inputs {
+            feeds: vec![FeedInput { flow, temperature: 301.15, fractions: vec![1.0], basis: Basis::Mole }],
+            effluent: Effluent::Mixed,
+            duty,
+            heat_loss: 6000.0,
+            effluent_temperature: Some(336.55),
+            pressure: None,
+            bubble_margin: 10.0,
+        }
+    }
+
+    /// Found by the hostile-input property test (tests/it/hostile.rs): a feed of `1e308 t/h`
+    /// is finite in kg/s but not in mol/s, and solving for the duty returned Ok with a NaN
+    /// duty. It is now an error.
+    #[test]
+    fn overflowing_flows_are_errors_not_nan() {
+        let sys = water();
+        let ok = sys.solve(&inputs(FlowValue::Mass(0.72), None), Unknown::Duty).unwrap();
+        assert!(ok.duty.is_finite() && ok.duty > 0.0);
+        let huge = 1e308 * 1000.0 / 3600.0;
+        for unknown in [Unknown::Duty, Unknown::Temperature] {
+            let r = sys.solve(&inputs(FlowValue::Mass(huge), Some(1e5)), unknown);
+            assert!(matches!(r, Err(SolveError::NotFinite(_))), "{unknown:?}: {r:?}");
+        }
+        let r = sys.solve(&inputs(FlowValue::Molar(1e308), Some(f64::MAX)), Unknown::Temperature);
+        assert!(r.is_err(), "{r:?}");
     }
 }

@@ -7,6 +7,7 @@ mod cli;
 mod demo;
 mod forward;
 mod handbook;
+mod hostile;
 mod monitor;
 mod physics;
 mod reference;
