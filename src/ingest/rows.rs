@@ -64,6 +64,8 @@ pub enum Reject {
     BadQuality(String),
     /// The file's header lacks a needed column.
     MissingColumn(String),
+    /// The file's header names a mapped tag twice (which column is right is unknowable).
+    DuplicateColumn(String),
     /// A record longer than the configured limit.
     TooLong,
     /// Not valid UTF-8.
@@ -81,6 +83,7 @@ impl Reject {
             Reject::UnknownTag(_) => "unknown_tag",
             Reject::BadQuality(_) => "bad_quality",
             Reject::MissingColumn(_) => "missing_column",
+            Reject::DuplicateColumn(_) => "duplicate_column",
             Reject::TooLong => "line_too_long",
             Reject::NotUtf8 => "not_utf8",
         }
@@ -103,6 +106,9 @@ impl fmt::Display for Reject {
             Reject::UnknownTag(t) => write!(f, "unknown tag `{t}`"),
             Reject::BadQuality(q) => write!(f, "unknown quality `{q}` (expected good, uncertain or bad)"),
             Reject::MissingColumn(c) => write!(f, "the file's header has no column `{c}`"),
+            Reject::DuplicateColumn(c) => {
+                write!(f, "the file's header has the column `{c}` twice; the file is not used")
+            }
             Reject::TooLong => f.write_str("record longer than the configured limit"),
             Reject::NotUtf8 => f.write_str("record is not valid UTF-8"),
         }
@@ -274,10 +280,21 @@ impl RowParser {
                         .filter(|(t, _)| !cols.iter().any(|(_, c)| c == t))
                         .map(|(_, n)| n.clone())
                         .collect();
-                    (
-                        Plan::Wide { ts, cols, width: fields.len() },
-                        HeaderInfo::Mapped { missing_tags, ignored_columns: ignored },
-                    )
+                    let twice = cols
+                        .iter()
+                        .enumerate()
+                        .find(|(k, (_, t))| cols[..*k].iter().any(|(_, u)| u == t))
+                        .map(|(_, (_, t))| self.tag_names[*t].clone());
+                    match twice {
+                        Some(name) => {
+                            let r = Reject::DuplicateColumn(name);
+                            (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
+                        }
+                        None => (
+                            Plan::Wide { ts, cols, width: fields.len() },
+                            HeaderInfo::Mapped { missing_tags, ignored_columns: ignored },
+                        ),
+                    }
                 }
                 Layout::Long { tag, value, quality } => match (find(tag), find(value)) {
                     (Some(tc), Some(vc)) => {
@@ -464,6 +481,18 @@ mod tests {
         assert_eq!(r[0].code(), "bad_timestamp");
         let (_, r) = parse(&mut p, 1, "1,2026-12-01T10:00:00Z");
         assert_eq!(r[0].code(), "short_row");
+    }
+
+    #[test]
+    fn a_wide_header_naming_a_tag_twice_makes_the_file_unusable() {
+        let tags = vec!["FI-1".to_string(), "TI-2".to_string()];
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let header: Vec<String> = ["time", "FI-1", "TI-2", "FI-1"].iter().map(|s| s.to_string()).collect();
+        assert_eq!(p.header(1, &header), HeaderInfo::Unusable(Reject::DuplicateColumn("FI-1".into())));
+        let (s, r) = parse(&mut p, 1, "2026-12-01T10:00:00Z,1,2,3");
+        assert!(s.is_empty());
+        assert_eq!(r[0].code(), "duplicate_column");
+        assert!(r[0].to_string().contains("`FI-1` twice"), "{}", r[0]);
     }
 
     #[test]
