@@ -114,6 +114,9 @@ impl Notifier {
     }
 }
 
+/// How long after a file event the service waits for more before it runs a pass.
+const EVENT_COALESCE_MS: u64 = 25;
+
 /// Run the service until `shutdown` completes. Outputs and the checkpoint are flushed on exit.
 pub async fn run(
     site: Arc<SiteConfig>,
@@ -172,12 +175,17 @@ pub async fn run(
     loop {
         let quiet = pipeline.next_quiet_deadline().map(|t| t.saturating_sub(clock.now_ms()));
         let quiet_sleep = tokio::time::sleep(Duration::from_millis(quiet.unwrap_or(3_600_000)));
-        tokio::select! {
+        let woken_by_event = tokio::select! {
             biased;
             () = &mut shutdown => break,
-            () = notify.notified() => {}
-            _ = tick.tick() => {}
-            () = quiet_sleep, if quiet.is_some() => {}
+            () = notify.notified() => true,
+            _ = tick.tick() => false,
+            () = quiet_sleep, if quiet.is_some() => false,
+        };
+        if woken_by_event {
+            // A writer appending to many files sends a burst of events: let them gather so one
+            // pass serves them all (a few tens of ms against a latency budget of a second).
+            tokio::time::sleep(Duration::from_millis(EVENT_COALESCE_MS)).await;
         }
         let now = clock.now_ms();
         let (p, res) = tokio::task::spawn_blocking(move || {

@@ -59,6 +59,10 @@ fn handler(
             Ok(ev) => {
                 if ev.need_rescan() {
                     rescans.fetch_add(1, Ordering::Relaxed);
+                } else if !wakes(&ev.kind) {
+                    // Our own reads open and close the export files: waking on those would
+                    // make every pass cause the next one (a busy loop with no data).
+                    return;
                 }
             }
             Err(_) => {
@@ -67,6 +71,18 @@ fn handler(
         }
         // Never block the watcher's thread: just wake the service.
         wake.notify_one();
+    }
+}
+
+/// Whether an event can mean new data: creation, modification (data, size, name, metadata),
+/// removal. Access events (open, read, close without writing) cannot.
+fn wakes(kind: &notify::EventKind) -> bool {
+    use notify::EventKind as K;
+    use notify::event::AccessKind;
+    match kind {
+        K::Access(AccessKind::Close(notify::event::AccessMode::Write)) => true,
+        K::Access(_) => false,
+        K::Any | K::Create(_) | K::Modify(_) | K::Remove(_) | K::Other => true,
     }
 }
 
@@ -124,4 +140,22 @@ pub fn start(dirs: &[PathBuf], mode: WatchMode, poll_ms: u64, wake: Arc<Notify>)
     };
     info!(mode = status.as_str(), "watching export directories");
     Watch { _watcher: watcher, status, rescans, errors }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use notify::event::{AccessKind, AccessMode, CreateKind, DataChange, ModifyKind};
+    use notify::EventKind as K;
+
+    #[test]
+    fn only_events_that_can_mean_new_data_wake_the_service() {
+        assert!(!wakes(&K::Access(AccessKind::Open(AccessMode::Any))));
+        assert!(!wakes(&K::Access(AccessKind::Close(AccessMode::Read))));
+        assert!(!wakes(&K::Access(AccessKind::Read)));
+        assert!(wakes(&K::Access(AccessKind::Close(AccessMode::Write))));
+        assert!(wakes(&K::Modify(ModifyKind::Data(DataChange::Any))));
+        assert!(wakes(&K::Create(CreateKind::File)));
+        assert!(wakes(&K::Any));
+    }
 }
