@@ -145,8 +145,8 @@ pub fn start(dirs: &[PathBuf], mode: WatchMode, poll_ms: u64, wake: Arc<Notify>)
 #[cfg(test)]
 mod tests {
     use super::*;
-    use notify::event::{AccessKind, AccessMode, CreateKind, DataChange, ModifyKind};
     use notify::EventKind as K;
+    use notify::event::{AccessKind, AccessMode, CreateKind, DataChange, ModifyKind};
 
     #[test]
     fn only_events_that_can_mean_new_data_wake_the_service() {
