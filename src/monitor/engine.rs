@@ -177,6 +177,9 @@ pub struct Baseline {
     pub learned_ms: i64,
     /// Blocks used.
     pub blocks: usize,
+    /// Robust scatter of the step statistic on the learning data (0: not known).
+    #[serde(default)]
+    pub step_sigma: f64,
     /// Lag-1 autocorrelation of the block means.
     pub acf1: f64,
     /// CUSUM decision interval for the false-alert target.
@@ -299,6 +302,10 @@ pub struct Monitor {
     spikes: VecDeque<i64>,
     /// Start of the current deviation episode (the first chart signal after a quiet spell).
     episode_ms: Option<i64>,
+    /// The separation regression's latest verdict and how many evaluations in a row gave it
+    /// (a cause is named only when the data keep saying the same thing).
+    #[serde(default)]
+    verdict_run: Option<(Cause, u32)>,
     /// Recent intervals for the step test: (end, residual, predicted, measured, tag values).
     steps: VecDeque<StepRow>,
     /// The last computed effectiveness trend, for reports.
@@ -371,6 +378,7 @@ impl Monitor {
             spikes: VecDeque::new(),
             steps: VecDeque::new(),
             episode_ms: None,
+            verdict_run: None,
             trend: None,
         }
     }
@@ -751,6 +759,14 @@ impl Monitor {
         let inflate = ((1.0 + rho) / (1.0 - rho)).sqrt();
         let sigma = (stats::mad_sigma(&means).max(0.8 * stats::std_dev(&means)) * inflate).max(0.01);
         let sigma_interval = stats::mad_sigma(&resid).max(0.01);
+        // Scatter of the step statistic itself (median of 10 intervals against the 20 before)
+        // on the steady learning data: slow wander of the residual makes it larger than the
+        // interval noise suggests, and the step test is judged against it.
+        let steps: Vec<f64> = (20..resid.len().saturating_sub(10))
+            .step_by(3)
+            .map(|t| stats::median(&resid[t..t + 10]) - stats::median(&resid[t - 20..t]))
+            .collect();
+        let step_sigma = if steps.len() >= 30 { stats::mad_sigma(&steps) } else { 0.0 };
         let series = |f: &dyn Fn(&LearnRow) -> Option<f64>| -> Option<(f64, f64)> {
             let v: Vec<f64> = self.learning.iter().filter_map(f).collect();
             if v.len() < block * 10 {
@@ -800,6 +816,7 @@ impl Monitor {
             tag_noise,
             learned_ms: now,
             blocks: means.len(),
+            step_sigma,
             acf1: stats::acf1(&means),
             h,
             l,
@@ -898,11 +915,19 @@ impl Monitor {
         let conv_ok = zc.is_none_or(|v| v.abs() < cfg.clear_z);
         let resid_ok = z.abs() < cfg.clear_z;
         let mut cleared = false;
+        let level = rec.residual;
         for a in &mut self.active {
+            let num = |k: &str| a.evidence.get(k).and_then(serde_json::Value::as_f64);
             let ok = match a.cause {
                 Cause::HeaterFouling => eff_ok && resid_ok,
                 Cause::ConversionDrift => conv_ok && resid_ok,
                 Cause::InstrumentFault if a.subject.ends_with(":stuck") => false,
+                // A step clears when the residual is back near where it was before the step
+                // (not when it merely looks ordinary against the baseline's scatter).
+                Cause::InstrumentFault => match (num("residual_k"), num("step_k")) {
+                    (Some(after), Some(step)) => (level - (after - step)).abs() < step.abs() / 3.0,
+                    _ => resid_ok,
+                },
                 _ => resid_ok,
             };
             a.clean = if ok { a.clean + 1 } else { 0 };
@@ -956,7 +981,14 @@ impl Monitor {
         let sig_i = b.sigma_interval.max(1e-3);
         let quiet = stats::mad_sigma(&rb) <= 3.0 * sig_i && stats::mad_sigma(&ra) <= 3.0 * sig_i;
         let away = (ma - b.mu).abs() > (mb - b.mu).abs();
-        if dr.abs() < (cfg.step_z * b.sigma).max(4.0 * b.sigma).max(0.3) || !quiet || !away {
+        // A step must stand out from what the step statistic does on steady data (six times
+        // its robust scatter), or, for baselines without that figure, four block σ.
+        let threshold = if b.step_sigma > 0.0 {
+            (6.0 * b.step_sigma).max(0.3)
+        } else {
+            (cfg.step_z * b.sigma).max(4.0 * b.sigma).max(0.3)
+        };
+        if dr.abs() < threshold || !quiet || !away {
             return;
         }
         let dp = stats::median(&col(&|x| x.2, 20..30)) - stats::median(&col(&|x| x.2, 0..20));
@@ -988,30 +1020,45 @@ impl Monitor {
                 moved = Some((i, d));
             }
         }
-        // With the prediction's dynamics compensated, a real input move does not step the
-        // residual, and neither does a stepping input meter (the compensated prediction then
-        // ramps away from a flat measurement, so the windows are not quiet): a clean step is
-        // the thermometer's. Without dynamics an input meter step is also clean.
-        let dynamics = cfg.dead_time_ms + cfg.lag_ms > 0;
+        // Where is the change, and which side made it? A thermometer fault moves the
+        // measurement within an interval or two while the (compensated) prediction stays put;
+        // an input — a stepping meter, or an analyzer whose held value updates — moves the
+        // prediction instead; a real process change moves both together (and, with the
+        // dynamics compensated, not abruptly). The change over a point is the difference of the
+        // medians of the three intervals after and the three before it (robust to the noise of
+        // single intervals; a step inside an interval is still seen whole), at the point where
+        // the residual changes most.
+        let rs: Vec<f64> = self.steps.iter().map(|x| x.1).collect();
+        let ms: Vec<f64> = self.steps.iter().map(|x| x.3).collect();
+        let jump = |v: &[f64], k: usize| stats::median(&v[k..k + 3]) - stats::median(&v[k - 3..k]);
+        let k = (12..=27).max_by(|&i, &j| jump(&rs, i).abs().total_cmp(&jump(&rs, j).abs())).unwrap_or(20);
+        let jr = jump(&rs, k);
+        let jm = jump(&ms, k);
+        let abrupt = jr.abs() >= 0.7 * dr.abs() && jr.signum() == dr.signum();
+        let measurement_side = abrupt && (jm - jr).abs() <= 0.4 * jr.abs();
         let suspect = match (frozen, moved) {
             (Some(i), _) => {
                 Some((i, format!("{} shows no noise at all since then (frozen)", unit.tags[i].name)))
             }
-            (None, None) => Some((unit.effluent_temperature, "no input moved".to_string())),
-            (None, Some(_)) if dynamics => Some((
+            _ if measurement_side => Some((
                 unit.effluent_temperature,
-                "the step is abrupt although the temperature responds to inputs with a lag".to_string(),
+                if moved.is_none() {
+                    "no input moved".to_string()
+                } else {
+                    "the measurement jumped within two intervals while the prediction did not".to_string()
+                },
             )),
             // An input meter that stepped while the plant temperature did not follow.
-            (None, Some((i, d))) if dm.abs() < dr.abs() / 3.0 => Some((
+            (None, Some((i, d))) if abrupt && dm.abs() < dr.abs() / 3.0 => Some((
                 i,
                 format!(
                     "{} moved by {d:+.0} times its noise while the plant temperature did not follow",
                     unit.tags[i].name
                 ),
             )),
-            // Inputs and plant both moved: an operating change, not an instrument step.
-            (None, Some(_)) => None,
+            // A gradual change, an operating change, or the prediction stepping on an analyzer
+            // update: not an instrument step (the drift charts judge what persists).
+            _ => None,
         };
         let _ = dp;
         let Some((tag_idx, why)) = suspect else { return };
@@ -1058,12 +1105,25 @@ impl Monitor {
     ) {
         let last = self.history.back().cloned();
         let Some(last) = last else { return };
+        // An active instrument fault (the thermometer, or a frozen input) already explains the
+        // deviation: no second explanation of the same thing.
+        let thermometer = &unit.tags[unit.effluent_temperature].name;
+        if self.active.iter().any(|a| {
+            a.cause == Cause::InstrumentFault && (a.subject == *thermometer || a.subject.ends_with(":stuck"))
+        }) {
+            return;
+        }
         let dev_k = last.residual - b.mu;
         // Heat loss: the residual follows the ambient temperature. Both series are detrended
         // first (a fault's slow drift correlates with a daily cycle by chance), the window must
         // hold at least a day and a half, and the sign must be physical: a warmer ambient loses
         // less heat, so the residual rises with it.
-        let amb = self.window(cfg.ambient_window_ms, now);
+        // Only the current deviation episode: blocks from before it dilute the relation.
+        let span = match self.episode_ms {
+            Some(ep) => cfg.ambient_window_ms.min(now - ep),
+            None => cfg.ambient_window_ms,
+        };
+        let amb = self.window(span, now);
         let rows: Vec<(f64, f64, f64)> =
             amb.iter().filter_map(|h| h.ambient.map(|a| (h.end_ms as f64 / 3.6e6, h.residual, a))).collect();
         let span_h = rows.last().map_or(0.0, |l| l.0) - rows.first().map_or(0.0, |f| f.0);
@@ -1078,8 +1138,18 @@ impl Monitor {
             let ra = detrend(rows.iter().map(|r| r.1).collect());
             let aa = detrend(rows.iter().map(|r| r.2).collect());
             let rho = stats::correlation(&ra, &aa);
-            if stats::std_dev(&aa) > 1.0 && rho > cfg.ambient_correlation {
-                let slope = LineFit::fit(&aa, &ra).map_or(0.0, |f| f.b);
+            let slope = LineFit::fit(&aa, &ra).map_or(0.0, |f| f.b);
+            // Physical consistency: an extra loss UA·(T − T_amb) shifts the residual by
+            // −UA·(T − T_amb)/C and makes it rise by UA/C per kelvin of ambient, so the shift
+            // must be about −slope·(T − T_amb). A correlation that explains a small part of the
+            // deviation (or has the wrong sign) is not a heat loss.
+            let te = unit.effluent_temperature;
+            let gaps: Vec<f64> =
+                amb.iter().filter_map(|h| Some(h.tags.get(te).copied().flatten()? - h.ambient?)).collect();
+            let expected_dev = -slope * stats::mean(&gaps);
+            let ratio = if expected_dev.abs() > 1e-9 { dev_k / expected_dev } else { 0.0 };
+            let consistent = !gaps.is_empty() && (0.5..=2.0).contains(&ratio);
+            if stats::std_dev(&aa) > 1.0 && rho > cfg.ambient_correlation && consistent {
                 let message = format!(
                     "The residual follows the ambient temperature (correlation {rho:+.2} over {:.0} days, {slope:+.3} K per K of ambient): heat is being lost to the surroundings; check the insulation and cladding of the heater and reactor.",
                     cfg.ambient_window_ms as f64 / 86_400_000.0
@@ -1123,27 +1193,55 @@ impl Monitor {
             })
             .collect();
         let verdict = if rows.len() >= 12 {
+            // A fouling deficit is a fixed fraction of the duty, a conversion deficit a fixed
+            // fraction of the key reactant's feed, whatever the operating point. So the
+            // deficit per unit of duty stays put when the feed-to-duty ratio moves if the
+            // heater is fouling, and follows that ratio if the conversion changed (and the
+            // other way round for the deficit per unit of feed). Only the ratio's movement
+            // separates them: if the duty followed the feed, nothing can. Both fits carry a
+            // time term for the fault's growth; their t-statistics are deflated for the
+            // autocorrelation of the fit residuals (effective sample size).
             let y: Vec<f64> = rows.iter().map(|r| r.0).collect();
             let q: Vec<f64> = rows.iter().map(|r| r.1).collect();
             let f: Vec<f64> = rows.iter().map(|r| r.2).collect();
             let t: Vec<f64> = rows.iter().map(|r| r.3).collect();
             let cv = |v: &[f64]| stats::std_dev(v) / stats::mean(v).abs().max(1e-12);
-            let r12 = stats::correlation(&q, &f);
-            if cv(&q) < 0.02 || cv(&f) < 0.02 {
-                Err("the duty and the feed rate hardly varied in the last day")
-            } else if r12.abs() > 0.8 {
-                Err("the duty and the feed rate moved together in the last day")
+            let u: Vec<f64> = f.iter().zip(&q).map(|(f, q)| f / q).collect();
+            if q.iter().chain(&f).any(|v| *v <= 0.0) {
+                Err("the duty or the feed rate was not positive throughout")
+            } else if cv(&u) < 0.03 {
+                Err("the duty followed the feed rate (their ratio hardly varied)")
             } else {
-                // A fouling deficit grows with the duty (negative coefficient: more duty, more
-                // heat not delivered); a conversion change scales with the key feed.
-                match stats::ols(&y, &[&q, &f, &t]) {
-                    Some((_, ts)) if ts[0] <= -3.0 && ts[1].abs() < 1.5 => Ok(Cause::HeaterFouling),
-                    Some((_, ts)) if ts[1].abs() >= 3.0 && ts[0].abs() < 1.5 => Ok(Cause::ConversionDrift),
+                let per_duty: Vec<f64> = y.iter().zip(&q).map(|(y, q)| y / q).collect();
+                let per_feed: Vec<f64> = y.iter().zip(&f).map(|(y, f)| y / f).collect();
+                let inv_u: Vec<f64> = u.iter().map(|u| 1.0 / u).collect();
+                match (deflated_slope_t(&per_duty, &u, &t), deflated_slope_t(&per_feed, &inv_u, &t)) {
+                    (Some(te), Some(tf)) if te.abs() < 1.5 && tf.abs() >= 5.0 => Ok(Cause::HeaterFouling),
+                    (Some(te), Some(tf)) if tf.abs() < 1.5 && te.abs() >= 5.0 => Ok(Cause::ConversionDrift),
                     _ => Err("the deficit is explained equally well by the duty and by the feed rate"),
                 }
             }
         } else {
             Err("there are too few steady blocks since the change")
+        };
+        // A cause is named only when three evaluations in a row (three blocks) agree.
+        let verdict = match verdict {
+            Ok(c) => {
+                let n = match self.verdict_run {
+                    Some((prev, n)) if prev == c => n + 1,
+                    _ => 1,
+                };
+                self.verdict_run = Some((c, n));
+                if n >= 3 {
+                    Ok(c)
+                } else {
+                    Err("the separation of heater fouling from a conversion change is not yet stable")
+                }
+            }
+            Err(e) => {
+                self.verdict_run = None;
+                Err(e)
+            }
         };
         // An attribution already made stands until the data positively support the other cause.
         let attributed = self
@@ -1154,6 +1252,13 @@ impl Monitor {
         let verdict = match (verdict, attributed) {
             (Err(_), Some(c)) => Ok(c),
             (v, _) => v,
+        };
+        // A fouled heater delivers less heat: it cannot make the effluent hotter.
+        let verdict = match verdict {
+            Ok(Cause::HeaterFouling) if dev_k > 0.0 => {
+                Err("the effluent runs hotter than expected, which a fouled heater cannot cause")
+            }
+            v => v,
         };
         match verdict {
             Ok(Cause::HeaterFouling) => self.raise_fouling(
@@ -1370,6 +1475,19 @@ impl Monitor {
 
 fn day(ms: i64, unit: &UnitConfig) -> String {
     crate::output::day_of(ms + 1, &unit.time_zone)
+}
+
+/// The t-statistic of `x`'s coefficient in the least-squares fit of `y` on `x` and `t` (with an
+/// intercept), deflated by √((1 − ρ)/(1 + ρ)) for the lag-1 autocorrelation ρ of the fit
+/// residuals (effective sample size of autocorrelated errors).
+fn deflated_slope_t(y: &[f64], x: &[f64], t: &[f64]) -> Option<f64> {
+    let (coef, ts) = stats::ols(y, &[x, t])?;
+    let (my, mx, mt) = (stats::mean(y), stats::mean(x), stats::mean(t));
+    let resid: Vec<f64> = (0..y.len().min(x.len()).min(t.len()))
+        .map(|i| y[i] - my - coef[0] * (x[i] - mx) - coef[1] * (t[i] - mt))
+        .collect();
+    let rho = stats::acf1(&resid).clamp(0.0, 0.95);
+    Some(ts[0] * ((1.0 - rho) / (1.0 + rho)).sqrt())
 }
 
 fn push_bounded<T>(q: &mut VecDeque<T>, v: T, n: usize) {
