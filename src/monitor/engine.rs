@@ -911,9 +911,25 @@ impl Monitor {
             self.attribute_drift(cfg, unit, &b, now, eff_signal, conv_signal);
         }
         // 3. Hysteresis: conditions clear after clean blocks.
-        let eff_ok = ze.is_none_or(|v| v.abs() < cfg.clear_z);
-        let conv_ok = zc.is_none_or(|v| v.abs() < cfg.clear_z);
-        let resid_ok = z.abs() < cfg.clear_z;
+        // An active instrument step (a thermometer or meter offset) is taken out of the residual
+        // before judging whether a process condition has cleared: otherwise a drift alert raised
+        // before the step could never clear while the instrument alert stands.
+        let step_offset: f64 = self
+            .active
+            .iter()
+            .filter(|a| {
+                a.cause == Cause::InstrumentFault
+                    && !a.subject.ends_with(":stuck")
+                    && !a.subject.starts_with("spike")
+            })
+            .filter_map(|a| a.evidence.get("step_k").and_then(serde_json::Value::as_f64))
+            .sum();
+        let resid_ok = ((rec.residual - step_offset - b.mu) / b.sigma).abs() < cfg.clear_z;
+        // Heater effectiveness and apparent conversion are computed from the same measurements,
+        // so they carry the instrument's offset too: while a step stands, only the corrected
+        // residual can tell that a process condition is over.
+        let eff_ok = step_offset != 0.0 || ze.is_none_or(|v| v.abs() < cfg.clear_z);
+        let conv_ok = step_offset != 0.0 || zc.is_none_or(|v| v.abs() < cfg.clear_z);
         let mut cleared = false;
         let level = rec.residual;
         for a in &mut self.active {

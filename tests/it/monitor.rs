@@ -269,3 +269,39 @@ fn detection_figures_over_seeds() {
         }
     }
 }
+
+/// A process alert raised before an instrument step clears when the process recovers, although
+/// the instrument alert still stands (the step is taken out of the residual for the clearing).
+#[test]
+fn a_drift_alert_clears_while_a_later_thermometer_step_stands() {
+    let drift = Scenario::event(Fault::ConversionDrift, 2.0, 20.0, -0.05, None);
+    let bias = Scenario::event(Fault::ThermometerBias, 2.6, 24.0 * 4.0, 2.0, Some("TI-2050"));
+    let s = Scenario {
+        seed: 71,
+        days: 4.6,
+        events: vec![drift, bias],
+        conversion_analyzer: false,
+        operating_changes: true,
+    };
+    let r = replay(&s);
+    let process =
+        |e: &&AlertEvent| matches!(e.cause.as_str(), "conversion_drift" | "undetermined" | "heater_fouling");
+    let raised_drift: Vec<_> = raised(&r).into_iter().filter(process).collect();
+    assert!(!raised_drift.is_empty(), "the drift was not seen:\n{}", describe(&r));
+    let last_raise = raised_drift.iter().map(|e| e.time_ms).max().unwrap_or(0);
+    let cleared =
+        r.events.iter().filter(|e| process(e) && e.event == EventKind::Cleared).map(|e| e.time_ms).max();
+    assert!(cleared.is_some_and(|t| t > last_raise), "the drift alert never cleared:\n{}", describe(&r));
+    let fault = r
+        .events
+        .iter()
+        .filter(|e| e.cause.as_str() == "instrument_fault" && e.subject == "TI-2050")
+        .map(|e| e.event)
+        .collect::<Vec<_>>();
+    assert_eq!(fault.first(), Some(&EventKind::Raised), "{}", describe(&r));
+    assert!(
+        !fault.contains(&EventKind::Cleared),
+        "the thermometer alert cleared while the bias stands:\n{}",
+        describe(&r)
+    );
+}
