@@ -605,10 +605,22 @@ fn identify(path: &std::path::Path, unit: &str, max_dead_time: &str) -> ExitCode
                 id.fit_sd
             );
             println!(
-                "put into [unit.monitor]: dead_time = \"{:.0}s\", lag = \"{:.0}s\"",
-                id.delay as f64 * s,
-                id.tau * s
+                "dead time consistent with the data: {:.0}-{:.0} s; the fitted dynamics remove {:.0} % of the squared error of the uncompensated prediction",
+                id.delay_range.0 as f64 * s,
+                id.delay_range.1 as f64 * s,
+                100.0 * id.improvement
             );
+            if id.trustworthy {
+                println!(
+                    "put into [unit.monitor]: dead_time = \"{:.0}s\", lag = \"{:.0}s\"",
+                    id.delay as f64 * s,
+                    id.tau * s
+                );
+            } else {
+                eprintln!(
+                    "warning: weak estimate (the peak correlation is not clearly above chance or several dead times fit about as well): keep the configured values, or run this on a period with clear duty or feed-rate moves"
+                );
+            }
             ExitCode::SUCCESS
         }
         None => {

@@ -67,6 +67,15 @@ pub struct Identified {
     pub correlation: f64,
     /// Residual standard deviation of the fit, K.
     pub fit_sd: f64,
+    /// Dead times (intervals) whose correlation is within two standard errors of the peak
+    /// (standard error of a sample correlation of white series ≈ 1/√n): the estimate's range.
+    pub delay_range: (usize, usize),
+    /// Fraction of the squared error of the uncompensated prediction that the fitted dead time
+    /// and lag remove (0 when the dynamics explain nothing).
+    pub improvement: f64,
+    /// Whether the estimate can be used: the peak correlation is at least four standard errors
+    /// and the dead-time range is at most 2 intervals wide.
+    pub trustworthy: bool,
 }
 
 /// Estimate dead time and lag from aligned series of the steady-state prediction and the
@@ -86,13 +95,18 @@ pub fn identify(predicted: &[f64], measured: &[f64], max_delay: usize) -> Option
     // Dead time: the lag with the largest cross-correlation (a lag spreads the response, but
     // its onset still comes after the dead time; the peak of the differenced series is the
     // customary estimate).
+    let corr: Vec<f64> = (0..=max_delay)
+        .map(|d| dp.iter().zip(dm.iter().skip(d)).map(|(a, b)| a * b).sum::<f64>() / (np * nm))
+        .collect();
     let mut best = (0usize, f64::MIN);
-    for d in 0..=max_delay {
-        let c: f64 = dp.iter().zip(dm.iter().skip(d)).map(|(a, b)| a * b).sum::<f64>() / (np * nm);
-        if c > best.1 {
-            best = (d, c);
+    for (d, c) in corr.iter().enumerate() {
+        if *c > best.1 {
+            best = (d, *c);
         }
     }
+    let se = 1.0 / ((n - 1) as f64).sqrt();
+    let near: Vec<usize> = (0..corr.len()).filter(|d| corr[*d] >= best.1 - 2.0 * se).collect();
+    let delay_range = (near.first().copied().unwrap_or(best.0), near.last().copied().unwrap_or(best.0));
     // Lag: grid search over a with the dead time fixed, minimizing the squared error.
     let mut best_fit = (0.0, f64::MAX);
     for i in 0..200 {
@@ -104,7 +118,18 @@ pub fn identify(predicted: &[f64], measured: &[f64], max_delay: usize) -> Option
         }
     }
     let tau = if best_fit.0 > 0.0 { -1.0 / best_fit.0.ln() } else { 0.0 };
-    Some(Identified { delay: best.0, tau, correlation: best.1, fit_sd: (best_fit.1 / n as f64).sqrt() })
+    let sse_static: f64 = predicted[..n].iter().zip(&measured[..n]).map(|(p, m)| (p - m).powi(2)).sum();
+    let improvement = if sse_static > 0.0 { (1.0 - best_fit.1 / sse_static).max(0.0) } else { 0.0 };
+    let trustworthy = best.1 >= 4.0 * se && delay_range.1 - delay_range.0 <= 2;
+    Some(Identified {
+        delay: best.0,
+        tau,
+        correlation: best.1,
+        fit_sd: (best_fit.1 / n as f64).sqrt(),
+        delay_range,
+        improvement,
+        trustworthy,
+    })
 }
 
 #[cfg(test)]
@@ -139,5 +164,19 @@ mod tests {
         let id = identify(&pred, &meas, 10).unwrap();
         assert_eq!(id.delay, 3, "{id:?}");
         assert!((id.tau - 4.0).abs() < 0.5, "{id:?}");
+        assert!(id.trustworthy && id.improvement > 0.5, "{id:?}");
+    }
+
+    #[test]
+    fn noise_without_moves_is_not_trusted() {
+        // A prediction that never moves beyond noise, and a measurement that is independent
+        // noise: any peak is chance, and the estimate must say so.
+        let mut rng = crate::rng::Rng::new(5);
+        let pred: Vec<f64> = (0..2000).map(|_| 330.0 + 0.05 * rng.normal()).collect();
+        let meas: Vec<f64> = (0..2000).map(|_| 330.0 + 0.05 * rng.normal()).collect();
+        let id = identify(&pred, &meas, 15).unwrap();
+        // (The lag still "improves" the fit here, by averaging the prediction's noise: that is
+        // why the improvement alone does not make an estimate trustworthy.)
+        assert!(!id.trustworthy, "{id:?}");
     }
 }
