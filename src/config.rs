@@ -166,6 +166,10 @@ pub struct RawUnitModel {
     pub temperature_range: Option<[Number; 2]>,
     /// Which reaction's conversion the apparent-conversion soft tag reports (1-based).
     pub apparent_conversion_reaction: Option<usize>,
+    /// Correlation-range flags an engineer has reviewed and accepted (e.g.
+    /// `"range_cp_liq:ethylene_oxide"`): still shown in the soft tags, but no alert.
+    #[serde(default)]
+    pub accepted_flags: Vec<String>,
 }
 
 /// `[[unit.feed]]`.
@@ -673,6 +677,9 @@ pub struct UnitConfig {
     pub bubble_margin: f64,
     /// Reaction of the apparent-conversion soft tag.
     pub apparent_reaction: Option<usize>,
+    /// Validity flags that are shown but raise no `model_validity` alert (reviewed
+    /// extrapolations of a correlation beyond its published range).
+    pub accepted_flags: Vec<String>,
     /// Alert lifecycle.
     pub alerts: AlertConfig,
     /// Monitoring.
@@ -1675,6 +1682,26 @@ fn check_unit(
             None
         }
     };
+    // Only extrapolations of a correlation can be accepted: a liquid beyond its critical
+    // temperature or a two-phase risk is never a reviewed, steady condition.
+    let mut accepted_flags = Vec::new();
+    for (i, f) in m.accepted_flags.iter().enumerate() {
+        let k = mk.key("accepted_flags").index(i);
+        match f.split_once(':') {
+            Some(("range_cp_liq" | "range_cp_ig" | "range_psat", id)) if index_of(id).is_some() => {
+                accepted_flags.push(f.clone());
+            }
+            Some(("range_cp_liq" | "range_cp_ig" | "range_psat", id)) => {
+                ck.err(&k, format!("component `{id}` is not used by this unit"));
+            }
+            _ => ck.err(
+                &k,
+                format!(
+                    "`{f}` cannot be accepted: only correlation-range flags (range_cp_liq:<id>, range_cp_ig:<id>, range_psat:<id>) can; two-phase, critical-temperature and balance flags always raise an alert"
+                ),
+            ),
+        }
+    }
     let ak = key.key("alerts");
     let alerts = AlertConfig {
         on_delay: raw.alerts.on_delay.unwrap_or(2).max(1),
@@ -1722,6 +1749,7 @@ fn check_unit(
         ambient,
         bubble_margin,
         apparent_reaction,
+        accepted_flags,
         alerts,
         monitor,
     })

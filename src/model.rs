@@ -502,6 +502,10 @@ fn solve_all(
     }
     for f in &outcome.flags {
         let code = f.code();
+        if unit.accepted_flags.contains(&code) {
+            flags.push(code);
+            continue;
+        }
         let severity = match f {
             crate::thermo::Flag::TwoPhaseRisk { .. } | crate::thermo::Flag::AboveCritical { .. } => {
                 Severity::Medium

@@ -613,3 +613,47 @@ fn an_interval_open_at_restart_closes_without_new_data() {
     p.pass(185_000, false).unwrap();
     assert_eq!(rows_in(&TestPlant::soft_tags(&plant.output)), 3, "the last interval closed");
 }
+
+/// A correlation used beyond its published range is flagged on every row; an engineer who has
+/// reviewed the extrapolation can accept that flag, which then stays in the soft tags but
+/// raises no alert. Conditions that are never routine (two-phase risk) cannot be accepted.
+#[test]
+fn reviewed_range_flags_can_be_accepted_but_two_phase_risk_cannot() {
+    // The test plant heats water from about 30 to 70 degC; narrowing the water liquid-Cp range
+    // to 310 K makes every interval an extrapolation.
+    let narrow = "[unit.components.water]\ncp_liq_range = [273.16, 310.0]\n";
+    let alerts_of = |dir: &Path| -> String {
+        let mut text = String::new();
+        for e in std::fs::read_dir(dir.join("T-1")).unwrap().flatten() {
+            if e.file_name().to_string_lossy().starts_with("alerts-") {
+                text.push_str(&std::fs::read_to_string(e.path()).unwrap());
+            }
+        }
+        text
+    };
+    let plain = TestPlant::new(narrow);
+    plain.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
+    let out = tempfile::tempdir().unwrap();
+    let soft = replay(&plain, out.path());
+    assert!(soft.lines().skip(1).all(|l| l.contains("range_cp_liq:water")), "{soft}");
+    assert!(alerts_of(out.path()).contains("\"model_validity\""), "no alert for the extrapolation");
+
+    let accepted =
+        TestPlant::new(&format!("{narrow}[unit.model]\naccepted_flags = [\"range_cp_liq:water\"]\n"));
+    accepted.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
+    let out = tempfile::tempdir().unwrap();
+    let soft = replay(&accepted, out.path());
+    assert!(soft.lines().skip(1).all(|l| l.contains("range_cp_liq:water")), "{soft}");
+    assert!(!alerts_of(out.path()).contains("\"model_validity\""), "{}", alerts_of(out.path()));
+
+    let refused =
+        TestPlant::new("[unit.model]\naccepted_flags = [\"two_phase_risk\", \"range_psat:benzene\"]\n");
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&refused.config).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("unit[1].model.accepted_flags[1]") && err.contains("cannot be accepted"), "{err}");
+    assert!(
+        err.contains("unit[1].model.accepted_flags[2]") && err.contains("`benzene` is not used"),
+        "{err}"
+    );
+}
