@@ -1140,17 +1140,22 @@ impl Monitor {
             None => cfg.ambient_window_ms,
         };
         let amb = self.window(span, now);
-        let rows: Vec<(f64, f64, f64)> =
-            amb.iter().filter_map(|h| h.ambient.map(|a| (h.end_ms as f64 / 3.6e6, h.residual, a))).collect();
+        let rows: Vec<(f64, f64, f64, Option<f64>)> = amb
+            .iter()
+            .filter_map(|h| h.ambient.map(|a| (h.end_ms as f64 / 3.6e6, h.residual, a, h.duty)))
+            .collect();
         let span_h = rows.last().map_or(0.0, |l| l.0) - rows.first().map_or(0.0, |f| f.0);
         if rows.len() >= 24 && span_h >= 36.0 {
+            // Partial correlation: time and (when reported) the duty are taken out of both
+            // series first. A fouling deficit scales with the duty, and where the duty follows
+            // the weather (colder feed, more steam) it would otherwise pass for a heat loss.
             let t: Vec<f64> = rows.iter().map(|r| r.0).collect();
-            let detrend = |v: Vec<f64>| -> Vec<f64> {
-                match LineFit::fit(&t, &v) {
-                    Some(f) => t.iter().zip(&v).map(|(x, y)| y - f.a - f.b * x).collect(),
-                    None => v,
-                }
-            };
+            let duty: Option<Vec<f64>> = rows.iter().map(|r| r.3).collect();
+            let mut covariates: Vec<&[f64]> = vec![&t];
+            if let Some(q) = duty.as_deref().filter(|q| stats::std_dev(q) > 1e-6 * stats::mean(q).abs()) {
+                covariates.push(q);
+            }
+            let detrend = |v: Vec<f64>| -> Vec<f64> { partial_out(&v, &covariates).unwrap_or(v) };
             let ra = detrend(rows.iter().map(|r| r.1).collect());
             let aa = detrend(rows.iter().map(|r| r.2).collect());
             let rho = stats::correlation(&ra, &aa);
@@ -1496,6 +1501,18 @@ fn day(ms: i64, unit: &UnitConfig) -> String {
 /// The t-statistic of `x`'s coefficient in the least-squares fit of `y` on `x` and `t` (with an
 /// intercept), deflated by √((1 − ρ)/(1 + ρ)) for the lag-1 autocorrelation ρ of the fit
 /// residuals (effective sample size of autocorrelated errors).
+/// What is left of `y` after a least-squares fit on `xs` (with an intercept).
+fn partial_out(y: &[f64], xs: &[&[f64]]) -> Option<Vec<f64>> {
+    let (coef, _) = stats::ols(y, xs)?;
+    let my = stats::mean(y);
+    let mx: Vec<f64> = xs.iter().map(|x| stats::mean(x)).collect();
+    Some(
+        (0..y.len())
+            .map(|i| y[i] - my - xs.iter().zip(&coef).zip(&mx).map(|((x, c), m)| c * (x[i] - m)).sum::<f64>())
+            .collect(),
+    )
+}
+
 fn deflated_slope_t(y: &[f64], x: &[f64], t: &[f64]) -> Option<f64> {
     let (coef, ts) = stats::ols(y, &[x, t])?;
     let (my, mx, mt) = (stats::mean(y), stats::mean(x), stats::mean(t));
