@@ -124,8 +124,12 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
                 .copied();
             // Without an effluent analyzer, "undetermined" is the honest answer for a chemistry
             // or heater drift the data cannot separate.
-            let acceptable = |c: &str| {
-                c == expected
+            // An instrument fault must also name the instrument.
+            let acceptable = |a: &AlertEvent| {
+                let c = a.cause.as_str();
+                let tag_ok = expected != "instrument_fault"
+                    || inj.tag.as_deref().is_none_or(|t| a.subject.split(':').next() == Some(t));
+                (c == expected && tag_ok)
                     || (c == "undetermined" && matches!(expected, "conversion_drift" | "heater_fouling"))
             };
             let right = raised.iter().filter(in_window).find(|a| a.cause.as_str() == expected).copied();
@@ -136,7 +140,7 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
                 .find(|a| a.cause.as_str() == expected);
             Score {
                 event: inj.clone(),
-                right_cause: first.is_some_and(|a| acceptable(a.cause.as_str())),
+                right_cause: first.is_some_and(acceptable),
                 delay_min: first.map(|a| (a.time_ms - start) as f64 / 60_000.0),
                 named_after_min: named.map(|a| (a.time_ms - start) as f64 / 60_000.0),
                 first_alert: first.or(right).cloned(),
@@ -355,10 +359,12 @@ pub fn scorecard(r: &DemoResult) -> String {
                 a.subject
             ),
             (Some(a), false) => format!(
-                "alert after {:.0} min but as {} (expected {})",
+                "alert after {:.0} min but as {} ({}) (expected {}{})",
                 sc.delay_min.unwrap_or(0.0),
                 a.cause.as_str(),
-                sc.event.kind.expected_cause()
+                a.subject,
+                sc.event.kind.expected_cause(),
+                sc.event.tag.as_deref().map(|t| format!(" on {t}")).unwrap_or_default()
             ),
             (None, _) => "NOT detected".to_string(),
         };

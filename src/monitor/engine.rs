@@ -1051,7 +1051,27 @@ impl Monitor {
         let jr = jump(&rs, k);
         let jm = jump(&ms, k);
         let abrupt = jr.abs() >= 0.7 * dr.abs() && jr.signum() == dr.signum();
-        let measurement_side = abrupt && (jm - jr).abs() <= 0.4 * jr.abs();
+        // A thermometer that steps while the plant is still answering an earlier move: the
+        // measurement and the prediction both move, but the residual steps within two
+        // intervals (the one the step fell in and the next). An input step reaches the
+        // residual only through the lag compensation of the prediction, which lets through
+        // 1 − a² of it in two intervals; when that is well below the residual's two-interval
+        // share, the step came from the measurement side.
+        let sharp = |v: &[f64], k: usize| v[k + 1] - v[k - 1];
+        let k2 = (12..=27).max_by(|&i, &j| sharp(&rs, i).abs().total_cmp(&sharp(&rs, j).abs())).unwrap_or(20);
+        let jr2 = sharp(&rs, k2);
+        let lag_share = 1.0 - self.fopdt.a * self.fopdt.a;
+        // A residual change that is a small part of a concurrent prediction move is more
+        // likely a gain error of the model (a fouled heater's deficit grows with the duty, a
+        // meter's span) than an instrument offset.
+        let sharp_measurement = lag_share <= 0.6
+            && jr2.signum() == dr.signum()
+            && jr2.abs() >= 0.85 * dr.abs()
+            && dr.abs() >= 0.25 * dp.abs();
+        let measurement_side = abrupt && ((jm - jr).abs() <= 0.4 * jr.abs() || sharp_measurement);
+        // A meter fault moves the prediction by the residual's step (the other way) while the
+        // measurement stays: a step much smaller than the prediction change is something else.
+        let meter_consistent = (dr + dp).abs() <= 0.5 * dr.abs();
         let suspect = match (frozen, moved) {
             (Some(i), _) => {
                 Some((i, format!("{} shows no noise at all since then (frozen)", unit.tags[i].name)))
@@ -1061,11 +1081,12 @@ impl Monitor {
                 if moved.is_none() {
                     "no input moved".to_string()
                 } else {
-                    "the measurement jumped within two intervals while the prediction did not".to_string()
+                    "the measurement jumped within two intervals, faster than the prediction can move"
+                        .to_string()
                 },
             )),
             // An input meter that stepped while the plant temperature did not follow.
-            (None, Some((i, d))) if abrupt && dm.abs() < dr.abs() / 3.0 => Some((
+            (None, Some((i, d))) if abrupt && meter_consistent && dm.abs() < dr.abs() / 3.0 => Some((
                 i,
                 format!(
                     "{} moved by {d:+.0} times its noise while the plant temperature did not follow",
@@ -1076,7 +1097,6 @@ impl Monitor {
             // update: not an instrument step (the drift charts judge what persists).
             _ => None,
         };
-        let _ = dp;
         let Some((tag_idx, why)) = suspect else { return };
         // A frozen input explains a residual that moves while the prediction does not.
         if tag_idx == unit.effluent_temperature && self.active.iter().any(|a| a.subject.ends_with(":stuck")) {

@@ -305,3 +305,19 @@ fn a_drift_alert_clears_while_a_later_thermometer_step_stands() {
         describe(&r)
     );
 }
+
+/// A thermometer step while the plant is still answering a duty move (in the demo's default
+/// run the duty drops 2.5 min before the thermometer starts reading 2 K high): the duty meter
+/// moved, but the residual stepped within two intervals, faster than the lag-compensated
+/// prediction can move, so the thermometer is the suspect.
+#[test]
+fn a_thermometer_step_during_a_duty_move_names_the_thermometer() {
+    let r = replay(&Scenario::demo(2026, 2.3));
+    let start = day_ms(2.0);
+    let fault = r.events.iter().find(|e| {
+        e.cause.as_str() == "instrument_fault" && e.event == EventKind::Raised && e.time_ms >= start
+    });
+    let fault = fault.unwrap_or_else(|| panic!("no instrument fault:\n{}", describe(&r)));
+    assert_eq!(fault.subject, "TI-2050", "{}", describe(&r));
+    assert!(fault.time_ms - start <= 3_600_000, "{}", describe(&r));
+}
