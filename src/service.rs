@@ -13,7 +13,7 @@ use std::time::Duration;
 
 use tokio::sync::Notify;
 use tokio::time::Instant;
-use tracing::{error, info, warn};
+use tracing::{debug, error, info, warn};
 
 use crate::config::{SiteConfig, name_matches};
 use crate::ingest::watch::{self, WatchStatus};
@@ -117,6 +117,9 @@ impl Notifier {
 /// How long after a file event the service waits for more before it runs a pass.
 const EVENT_COALESCE_MS: u64 = 25;
 
+/// Checkpoint writing may take at most 1/CHECKPOINT_DUTY of the service's time.
+const CHECKPOINT_DUTY: u64 = 20;
+
 /// Run the service until `shutdown` completes. Outputs and the checkpoint are flushed on exit.
 pub async fn run(
     site: Arc<SiteConfig>,
@@ -170,6 +173,11 @@ pub async fn run(
     let mut tick = tokio::time::interval(Duration::from_millis(site.service.reconcile_ms.max(100)));
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
     let mut last_checkpoint = clock.now_ms();
+    // The gap between checkpoints: the configured interval, stretched so that writing the
+    // checkpoint takes at most 1/CHECKPOINT_DUTY of the time (a site with many units and weeks
+    // of monitor history writes megabytes; a crash then re-reads a little more data, nothing
+    // is lost).
+    let mut checkpoint_gap = site.service.checkpoint_ms;
     let mut dirty = false;
     tokio::pin!(shutdown);
     loop {
@@ -235,7 +243,8 @@ pub async fn run(
             };
             let _ = tx.send(snap);
         }
-        if dirty && clock.now_ms().saturating_sub(last_checkpoint) >= site.service.checkpoint_ms {
+        if dirty && clock.now_ms().saturating_sub(last_checkpoint) >= checkpoint_gap {
+            let started = std::time::Instant::now();
             let (p, res) = tokio::task::spawn_blocking(move || {
                 let r = pipeline.checkpoint();
                 (pipeline, r)
@@ -244,6 +253,11 @@ pub async fn run(
             .map_err(|e| ServiceError::Internal(e.to_string()))?;
             pipeline = p;
             res?;
+            let took_ms = u64::try_from(started.elapsed().as_millis()).unwrap_or(u64::MAX);
+            checkpoint_gap = site.service.checkpoint_ms.max(took_ms.saturating_mul(CHECKPOINT_DUTY));
+            if checkpoint_gap > site.service.checkpoint_ms {
+                debug!(took_ms, gap_ms = checkpoint_gap, "checkpoint is large: next one after a longer gap");
+            }
             last_checkpoint = clock.now_ms();
             dirty = false;
         }
