@@ -254,6 +254,19 @@ struct Active {
     evidence: serde_json::Map<String, serde_json::Value>,
 }
 
+/// What the charts said in this block, for the attribution.
+#[derive(Debug, Clone, Copy)]
+struct ChartSignals {
+    /// Heater-effectiveness charts.
+    eff: Option<Side>,
+    /// Apparent-conversion charts.
+    conv: Option<Side>,
+    /// The measured conversion has shifted (large at once, or accumulated by its charts).
+    conv_measured_shift: bool,
+    /// The residual (or effectiveness, apparent conversion) deviation is material.
+    residual_material: bool,
+}
+
 /// The charts on one standardized statistic.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 struct ChartPair {
@@ -292,6 +305,9 @@ pub struct Monitor {
     resid: Option<ChartPair>,
     eff: Option<ChartPair>,
     conv: Option<ChartPair>,
+    /// Charts on the measured conversion (with an effluent analyzer).
+    #[serde(default)]
+    conv_measured: Option<ChartPair>,
     /// Completed blocks while watching (bounded).
     pub history: VecDeque<BlockRecord>,
     active: Vec<Active>,
@@ -369,6 +385,7 @@ impl Monitor {
             resid: None,
             eff: None,
             conv: None,
+            conv_measured: None,
             history: VecDeque::new(),
             active: Vec::new(),
             recent_resid: VecDeque::new(),
@@ -390,6 +407,7 @@ impl Monitor {
         self.resid = None;
         self.eff = None;
         self.conv = None;
+        self.conv_measured = None;
         self.history.clear();
         self.active.clear();
         self.acc = Acc::default();
@@ -465,7 +483,10 @@ impl Monitor {
             }
             self.settle_until_ms = None;
             // Resume with a head start: a shift that persisted through the transient shows fast.
-            for c in [&mut self.resid, &mut self.eff, &mut self.conv].into_iter().flatten() {
+            for c in [&mut self.resid, &mut self.eff, &mut self.conv, &mut self.conv_measured]
+                .into_iter()
+                .flatten()
+            {
                 c.restart();
             }
         }
@@ -828,6 +849,7 @@ impl Monitor {
         self.resid = Some(ChartPair::new(&baseline, cfg));
         self.eff = baseline.eff.map(|_| ChartPair::new(&baseline, cfg));
         self.conv = baseline.conv.map(|_| ChartPair::new(&baseline, cfg));
+        self.conv_measured = baseline.conv_measured.map(|_| ChartPair::new(&baseline, cfg));
         self.baseline = Some(baseline);
         self.learning.clear();
         self.state = MonitorState::Watching;
@@ -888,14 +910,22 @@ impl Monitor {
             .take(3)
             .filter_map(|h| Some((h.conv_measured? - b.conv_measured?.0) / b.conv_measured?.1))
             .collect();
-        let conv_measured_shift = zxm.len() == 3 && (zxm.iter().sum::<f64>() / 3.0).abs() >= cfg.enter_z;
-        let signal = conv_measured_shift
-            || material
-                && (resid_signal.is_some()
-                    || (eff_signal.is_some() && eff_material)
-                    || (conv_signal.is_some() && conv_material)
-                    || shewhart
-                    || z.abs() >= cfg.enter_z);
+        let zxm_mean = if zxm.len() == 3 { zxm.iter().sum::<f64>() / 3.0 } else { 0.0 };
+        // A large shift at once, or a smaller one that the charts accumulate (a CUSUM sees a
+        // sustained 3σ shift within a few blocks), as long as it is material now.
+        let conv_measured_signal = match (rec.conv_measured, b.conv_measured, self.conv_measured.as_mut()) {
+            (Some(x), Some((m, s)), Some(c)) => c.step((x - m) / s),
+            _ => None,
+        };
+        let conv_measured_shift = zxm_mean.abs() >= cfg.enter_z
+            || (conv_measured_signal.is_some() && zxm_mean.abs() >= cfg.clear_z);
+        let signal_residual = material
+            && (resid_signal.is_some()
+                || (eff_signal.is_some() && eff_material)
+                || (conv_signal.is_some() && conv_material)
+                || shewhart
+                || z.abs() >= cfg.enter_z);
+        let signal = conv_measured_shift || signal_residual;
         let step_active = self.active.iter().any(|a| {
             a.cause == Cause::InstrumentFault
                 && !a.subject.ends_with(":stuck")
@@ -908,7 +938,10 @@ impl Monitor {
             self.episode_ms = Some(start - b.block as i64 * unit.interval_ms);
         }
         if signal && !step_active {
-            self.attribute_drift(cfg, unit, &b, now, eff_signal, conv_signal);
+            let residual_material = signal_residual;
+            let signals =
+                ChartSignals { eff: eff_signal, conv: conv_signal, conv_measured_shift, residual_material };
+            self.attribute_drift(cfg, unit, &b, now, signals);
         }
         // 3. Hysteresis: conditions clear after clean blocks.
         // An active instrument step (a thermometer or meter offset) is taken out of the residual
@@ -936,7 +969,14 @@ impl Monitor {
             let num = |k: &str| a.evidence.get(k).and_then(serde_json::Value::as_f64);
             let ok = match a.cause {
                 Cause::HeaterFouling => eff_ok && resid_ok,
-                Cause::ConversionDrift => conv_ok && resid_ok,
+                // With an analyzer, the measured conversion decides, with a deadband below the
+                // level a chart may raise at (clear_z): back within clear_z − 1 σ.
+                Cause::ConversionDrift => match (rec.conv_measured, b.conv_measured) {
+                    (Some(x), Some((m, sd))) => {
+                        ((x - m) / sd).abs() < (cfg.clear_z - 1.0).max(1.0) && resid_ok
+                    }
+                    _ => conv_ok && resid_ok,
+                },
                 Cause::InstrumentFault if a.subject.ends_with(":stuck") => false,
                 // A step clears when the residual is back near where it was before the step
                 // (not when it merely looks ordinary against the baseline's scatter).
@@ -960,7 +1000,10 @@ impl Monitor {
                 self.episode_ms = None;
             }
             if self.active.is_empty() {
-                for c in [&mut self.resid, &mut self.eff, &mut self.conv].into_iter().flatten() {
+                for c in [&mut self.resid, &mut self.eff, &mut self.conv, &mut self.conv_measured]
+                    .into_iter()
+                    .flatten()
+                {
                     c.restart();
                 }
             }
@@ -1136,9 +1179,10 @@ impl Monitor {
         unit: &UnitConfig,
         b: &Baseline,
         now: i64,
-        eff_signal: Option<Side>,
-        conv_signal: Option<Side>,
+        signals: ChartSignals,
     ) {
+        let ChartSignals { eff: eff_signal, conv: conv_signal, conv_measured_shift, residual_material } =
+            signals;
         let last = self.history.back().cloned();
         let Some(last) = last else { return };
         // An active instrument fault (the thermometer, or a frozen input) already explains the
@@ -1212,8 +1256,11 @@ impl Monitor {
         // With a measured conversion the chemistry side is observed directly.
         if let (Some(xm), Some((m, s))) = (last.conv_measured, b.conv_measured) {
             let zx = (xm - m) / s;
-            if zx.abs() >= cfg.enter_z {
+            if zx.abs() >= cfg.enter_z || (conv_measured_shift && zx.abs() >= cfg.clear_z) {
                 self.raise_conversion(unit, b, now, xm - m, "the conversion analyzer confirms it", zx);
+            } else if !residual_material {
+                // Only the conversion charts spoke, and the conversion is back inside its band
+                // now: nothing to explain in the energy balance.
             } else if eff_drop {
                 self.raise_fouling(cfg, unit, b, now, "the measured conversion is steady");
             } else {

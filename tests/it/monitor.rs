@@ -321,3 +321,28 @@ fn a_thermometer_step_during_a_duty_move_names_the_thermometer() {
     assert_eq!(fault.subject, "TI-2050", "{}", describe(&r));
     assert!(fault.time_ms - start <= 3_600_000, "{}", describe(&r));
 }
+
+/// With a conversion analyzer, a conversion drift alert stays raised while the measured
+/// conversion stays low, and clears (with a deadband) after the conversion is restored.
+#[test]
+fn an_analyzer_confirmed_drift_stays_until_the_conversion_is_restored() {
+    let ev = Scenario::event(Fault::ConversionDrift, 2.0, 30.0, -0.05, None);
+    let mut s = Scenario::single(43, 4.6, ev);
+    s.conversion_analyzer = true;
+    let r = replay(&s);
+    let drift: Vec<&AlertEvent> =
+        r.events.iter().filter(|e| e.cause.as_str() == "conversion_drift").collect();
+    let first = drift.iter().find(|e| e.event == EventKind::Raised);
+    let first = first.unwrap_or_else(|| panic!("not raised:\n{}", describe(&r)));
+    let restored = day_ms(2.0) + 30 * 3_600_000;
+    assert!(first.time_ms < restored, "{}", describe(&r));
+    let cleared = drift.iter().find(|e| e.event == EventKind::Cleared);
+    let cleared = cleared.unwrap_or_else(|| panic!("never cleared:\n{}", describe(&r)));
+    assert!(cleared.time_ms > restored, "cleared while the conversion was still low:\n{}", describe(&r));
+    assert!(cleared.time_ms - restored <= 12 * 3_600_000, "{}", describe(&r));
+    assert!(
+        raised(&r).iter().all(|e| matches!(e.cause.as_str(), "conversion_drift" | "model_validity")),
+        "{}",
+        describe(&r)
+    );
+}
