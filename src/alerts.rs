@@ -9,47 +9,17 @@ use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
+use crate::config::AlertConfig;
 use crate::hash::fnv1a64;
 use crate::model::{Cause, Condition, Severity};
 
-/// Lifecycle settings.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Lifecycle {
-    /// Consecutive intervals a data-quality or model-validity condition must be present
-    /// before raising (statistical conditions carry their own hysteresis and use 1).
-    pub on_delay: u32,
-    /// Consecutive intervals such a condition must be absent before clearing.
-    pub off_delay: u32,
-    /// After a clear, the same alert is not raised again within this time unless its
-    /// magnitude grew by half, ms.
-    pub realert_suppress_ms: i64,
-    /// More raises than this within `flood_window_ms` are grouped into one alert.
-    pub flood_count: u32,
-    /// Flood window, ms.
-    pub flood_window_ms: i64,
-    /// Remind about alerts active longer than this (and every such period after), ms.
-    pub reminder_ms: i64,
-}
-
-impl Lifecycle {
-    /// Delays for a cause.
+impl AlertConfig {
+    /// Delays for a cause: data-quality and model-validity conditions use the configured on-
+    /// and off-delays; statistical conditions carry their own hysteresis and use 1.
     fn delays(&self, cause: Cause) -> (u32, u32) {
         match cause {
             Cause::DataQuality | Cause::ModelValidity => (self.on_delay, self.off_delay),
             _ => (1, 1),
-        }
-    }
-}
-
-impl From<crate::config::AlertConfig> for Lifecycle {
-    fn from(c: crate::config::AlertConfig) -> Self {
-        Lifecycle {
-            on_delay: c.on_delay,
-            off_delay: c.off_delay,
-            realert_suppress_ms: c.realert_suppress_ms,
-            flood_count: c.flood_count,
-            flood_window_ms: c.flood_window_ms,
-            reminder_ms: c.reminder_ms,
         }
     }
 }
@@ -259,7 +229,7 @@ impl AlertBook {
         end_ms: i64,
         time: &str,
         conditions: &[Condition],
-        cfg: Lifecycle,
+        cfg: AlertConfig,
     ) -> (Vec<AlertEvent>, Vec<String>) {
         let mut events = Vec::new();
         let mut notes = Vec::new();
@@ -516,13 +486,14 @@ fn event(
 mod tests {
     use super::*;
 
-    const LC: Lifecycle = Lifecycle {
+    const LC: AlertConfig = AlertConfig {
         on_delay: 2,
         off_delay: 3,
         realert_suppress_ms: 12 * 3_600_000,
         flood_count: 10,
         flood_window_ms: 600_000,
         reminder_ms: 86_400_000,
+        shelve_max_ms: 7 * 86_400_000,
     };
 
     fn cond(subject: &str, severity: Severity) -> Condition {
@@ -538,7 +509,7 @@ mod tests {
 
     #[test]
     fn on_and_off_delays_and_stable_ids() {
-        let cfg = Lifecycle { on_delay: 2, off_delay: 3, ..LC };
+        let cfg = AlertConfig { on_delay: 2, off_delay: 3, ..LC };
         let mut book = AlertBook::default();
         let c = [cond("TI-1", Severity::Medium)];
         assert!(book.step("R-1", 60_000, "t1", &c, cfg).0.is_empty());
@@ -566,7 +537,7 @@ mod tests {
 
     #[test]
     fn the_same_data_gives_the_same_events_after_a_restart() {
-        let cfg = Lifecycle { on_delay: 1, off_delay: 1, ..LC };
+        let cfg = AlertConfig { on_delay: 1, off_delay: 1, ..LC };
         let mut a = AlertBook::default();
         a.step("R-1", 60_000, "t1", &[cond("X", Severity::Low)], cfg);
         let saved = serde_json::to_string(&a).unwrap();
@@ -578,7 +549,7 @@ mod tests {
 
     #[test]
     fn floods_are_grouped_reminders_sent_and_shelves_respected() {
-        let cfg = Lifecycle { on_delay: 1, off_delay: 1, flood_count: 3, ..LC };
+        let cfg = AlertConfig { on_delay: 1, off_delay: 1, flood_count: 3, ..LC };
         let mut book = AlertBook::default();
         let conds: Vec<Condition> = (0..6).map(|i| cond(&format!("T-{i}"), Severity::Medium)).collect();
         let ev = book.step("R-1", 60_000, "t", &conds, cfg).0;

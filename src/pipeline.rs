@@ -14,7 +14,7 @@ use std::sync::Arc;
 use serde::{Deserialize, Serialize};
 use tracing::{debug, info, warn};
 
-use crate::alerts::{AlertBook, AlertEvent, Lifecycle};
+use crate::alerts::{AlertBook, AlertEvent};
 use crate::assembly::{Added, Assembler, TagRule};
 use crate::config::{SiteConfig, UnitConfig};
 use crate::ingest::rows::{HeaderInfo, Reject, RowParser};
@@ -393,8 +393,7 @@ impl UnitRuntime {
                 }
                 let state = mo.state.as_str();
                 let time = rfc3339(ev.end_ms, &cfg.time_zone);
-                let (events, notes) =
-                    alerts.step(&cfg.name, ev.end_ms, &time, &ev.conditions, Lifecycle::from(cfg.alerts));
+                let (events, notes) = alerts.step(&cfg.name, ev.end_ms, &time, &ev.conditions, cfg.alerts);
                 for n in notes {
                     info!(target: "efftemp::audit", unit = %cfg.name, "{n}");
                 }

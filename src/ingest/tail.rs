@@ -1581,6 +1581,11 @@ mod tests {
             fs::rename(self.path(".tmp-export"), self.path(name)).unwrap();
         }
 
+        /// Truncate `name` in place (same inode), as a copy-truncate rotation does.
+        fn truncate(&self, name: &str) {
+            OpenOptions::new().write(true).open(self.path(name)).unwrap().set_len(0).unwrap();
+        }
+
         fn rename(&self, from: &str, to: &str) {
             fs::rename(self.path(from), self.path(to)).unwrap();
         }
@@ -1828,9 +1833,7 @@ mod tests {
         assert_eq!(recs(&fx.poll()), want(1, 0..3));
         fx.append("plant_x.csv", &rows(3..5));
         fs::copy(fx.path("plant_x.csv"), fx.path("plant_x_20261201.csv")).unwrap();
-        let f = OpenOptions::new().write(true).open(fx.path("plant_x.csv")).unwrap();
-        f.set_len(0).unwrap();
-        drop(f);
+        fx.truncate("plant_x.csv");
         fx.append("plant_x.csv", &format!("{HEADER}{}", rows(5..6)));
         let evs = fx.poll();
         assert_eq!(notes(&evs), vec!["1:Continued", "2:NewGeneration(Truncated)"]);
@@ -1846,9 +1849,7 @@ mod tests {
         fs::copy(fx.path("plant_x.csv"), fx.path("plant_x_20261201.csv")).unwrap();
         // Poll between the copy and the truncation: the copy is not read as a new file.
         assert_eq!(recs(&fx.poll()), want(1, 3..5));
-        let f = OpenOptions::new().write(true).open(fx.path("plant_x.csv")).unwrap();
-        f.set_len(0).unwrap();
-        drop(f);
+        fx.truncate("plant_x.csv");
         fx.append("plant_x.csv", &format!("{HEADER}{}", rows(5..6)));
         let evs = fx.poll();
         assert_eq!(notes(&evs), vec!["1:Continued", "2:NewGeneration(Truncated)"]);
@@ -1871,9 +1872,7 @@ mod tests {
         let mut fx = Fixture::new();
         fx.write("plant_x.csv", &format!("{HEADER}{}", rows(0..5)));
         assert_eq!(recs(&fx.poll()), want(1, 0..5));
-        let f = OpenOptions::new().write(true).open(fx.path("plant_x.csv")).unwrap();
-        f.set_len(0).unwrap();
-        drop(f);
+        fx.truncate("plant_x.csv");
         fx.append("plant_x.csv", HEADER);
         let evs = fx.poll();
         assert_eq!(notes(&evs), vec!["1:Ended(Overwritten,0)", "2:NewGeneration(Truncated)"]);
@@ -1887,9 +1886,7 @@ mod tests {
         fx.write("plant_x.csv", &format!("{HEADER}{}", rows(0..3)));
         assert_eq!(recs(&fx.poll()), want(1, 0..3));
         // Same inode, longer, different content.
-        let f = OpenOptions::new().write(true).open(fx.path("plant_x.csv")).unwrap();
-        f.set_len(0).unwrap();
-        drop(f);
+        fx.truncate("plant_x.csv");
         fx.append("plant_x.csv", &format!("{HEADER}{}", rows(10..15)));
         let evs = fx.poll();
         assert_eq!(notes(&evs), vec!["1:Ended(Overwritten,0)", "2:NewGeneration(Truncated)"]);
