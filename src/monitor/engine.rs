@@ -254,6 +254,17 @@ struct Active {
     evidence: serde_json::Map<String, serde_json::Value>,
 }
 
+impl Active {
+    /// The offset of an instrument step alert (its `step_k` evidence); `None` for every other
+    /// alert, including frozen tags and spikes.
+    fn step_k(&self) -> Option<f64> {
+        if self.cause != Cause::InstrumentFault {
+            return None;
+        }
+        self.evidence.get("step_k").and_then(serde_json::Value::as_f64)
+    }
+}
+
 /// What the charts said in this block, for the attribution.
 #[derive(Debug, Clone, Copy)]
 struct ChartSignals {
@@ -926,11 +937,7 @@ impl Monitor {
                 || shewhart
                 || z.abs() >= cfg.enter_z);
         let signal = conv_measured_shift || signal_residual;
-        let step_active = self.active.iter().any(|a| {
-            a.cause == Cause::InstrumentFault
-                && !a.subject.ends_with(":stuck")
-                && !a.subject.starts_with("spike")
-        });
+        let step_active = self.active.iter().any(|a| a.step_k().is_some());
         if signal && self.episode_ms.is_none() {
             // The episode began when the residual first left its band, not at the signal.
             let start =
@@ -938,25 +945,19 @@ impl Monitor {
             self.episode_ms = Some(start - b.block as i64 * unit.interval_ms);
         }
         if signal && !step_active {
-            let residual_material = signal_residual;
-            let signals =
-                ChartSignals { eff: eff_signal, conv: conv_signal, conv_measured_shift, residual_material };
+            let signals = ChartSignals {
+                eff: eff_signal,
+                conv: conv_signal,
+                conv_measured_shift,
+                residual_material: signal_residual,
+            };
             self.attribute_drift(cfg, unit, &b, now, signals);
         }
         // 3. Hysteresis: conditions clear after clean blocks.
         // An active instrument step (a thermometer or meter offset) is taken out of the residual
         // before judging whether a process condition has cleared: otherwise a drift alert raised
         // before the step could never clear while the instrument alert stands.
-        let step_offset: f64 = self
-            .active
-            .iter()
-            .filter(|a| {
-                a.cause == Cause::InstrumentFault
-                    && !a.subject.ends_with(":stuck")
-                    && !a.subject.starts_with("spike")
-            })
-            .filter_map(|a| a.evidence.get("step_k").and_then(serde_json::Value::as_f64))
-            .sum();
+        let step_offset: f64 = self.active.iter().filter_map(Active::step_k).sum();
         let resid_ok = ((rec.residual - step_offset - b.mu) / b.sigma).abs() < cfg.clear_z;
         // Heater effectiveness and apparent conversion are computed from the same measurements,
         // so they carry the instrument's offset too: while a step stands, only the corrected
@@ -1236,8 +1237,8 @@ impl Monitor {
             let consistent = !gaps.is_empty() && (0.5..=2.0).contains(&ratio);
             if stats::std_dev(&aa) > 1.0 && rho > cfg.ambient_correlation && consistent {
                 let message = format!(
-                    "The residual follows the ambient temperature (correlation {rho:+.2} over {:.0} days, {slope:+.3} K per K of ambient): heat is being lost to the surroundings; check the insulation and cladding of the heater and reactor.",
-                    cfg.ambient_window_ms as f64 / 86_400_000.0
+                    "The residual follows the ambient temperature (correlation {rho:+.2} over {:.1} days, {slope:+.3} K per K of ambient): heat is being lost to the surroundings; check the insulation and cladding of the heater and reactor.",
+                    span_h / 24.0
                 );
                 let evidence = ev(&[
                     ("correlation", round(rho, 3)),
