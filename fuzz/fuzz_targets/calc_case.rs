@@ -15,22 +15,11 @@ use std::sync::{Arc, OnceLock};
 use efftemp::case::Case;
 use efftemp::source::{LocatedErrors, SourceText};
 use libfuzzer_sys::fuzz_target;
-use serde_json::Value;
+use oracles::stray_null;
 
-/// Keys whose value may be `null` in a solved report (optional by design).
-const OPTIONAL: &[&str] = &[
-    "measured_temperature_k",
-    "residual_k",
-    "conversion",
-    "bubble_point_k",
-    "pressure_pa",
-    "bubble_margin_k",
-    "element_balance",
-    "solver",
-    "temperature_uncertainty_k",
-    "uncertainty",
-    "dominant_input",
-];
+#[path = "../../tests/shared/oracles.rs"]
+mod oracles;
+use serde_json::Value;
 
 fn dir() -> &'static PathBuf {
     static DIR: OnceLock<PathBuf> = OnceLock::new();
@@ -46,29 +35,6 @@ fn check_errors(errors: &LocatedErrors) {
     for e in &errors.0 {
         assert!(e.location.line_col.is_some(), "error without a line: {e}");
         assert!(!e.message.trim().is_empty(), "error without a message: {e:?}");
-    }
-}
-
-/// A `null` under a key that is not optional, with its path.
-fn stray_null(v: &Value, path: &mut Vec<String>) -> Option<String> {
-    match v {
-        Value::Null => {
-            let key = path.last().map(String::as_str).unwrap_or("");
-            (!OPTIONAL.contains(&key)).then(|| path.join("."))
-        }
-        Value::Array(items) => items.iter().enumerate().find_map(|(i, x)| {
-            path.push(i.to_string());
-            let r = stray_null(x, path);
-            path.pop();
-            r
-        }),
-        Value::Object(map) => map.iter().find_map(|(k, x)| {
-            path.push(k.clone());
-            let r = stray_null(x, path);
-            path.pop();
-            r
-        }),
-        _ => None,
     }
 }
 

@@ -12,26 +12,17 @@
 //!   one sample.
 #![no_main]
 
-use efftemp::config::{InputConfig, Layout, TimestampFormat};
+use efftemp::config::{Layout, TimestampFormat};
 use efftemp::ingest::rows::{HeaderInfo, Quality, Reject, RowParser};
 use efftemp::ingest::split::{Item, Splitter};
 use jiff::tz::TimeZone;
 use libfuzzer_sys::fuzz_target;
+use oracles::input_config;
+
+#[path = "../../tests/shared/oracles.rs"]
+mod oracles;
 
 const TAGS: [&str; 5] = ["FI-2011", "TI-2012", "TI-2050", "AI-2013A", "JI-2040"];
-
-fn input(layout: Layout, format: TimestampFormat, tz: TimeZone, reject_unknown: bool) -> InputConfig {
-    InputConfig {
-        directory: ".".into(),
-        pattern: "*.csv".into(),
-        layout,
-        timestamp_column: "Timestamp".into(),
-        timestamp_format: format,
-        time_zone: tz,
-        reject_unknown_tags: reject_unknown,
-        links_outside: false,
-    }
-}
 
 fn check_reject(r: &Reject) {
     assert!(!r.code().is_empty());
@@ -43,10 +34,10 @@ fuzz_target!(|bytes: &[u8]| {
     let long_q = Layout::Long { tag: "Tag".into(), value: "Value".into(), quality: Some("Quality".into()) };
     let long = Layout::Long { tag: "Tag".into(), value: "Value".into(), quality: None };
     let configs = [
-        input(Layout::Wide, TimestampFormat::Rfc3339, TimeZone::UTC, true),
-        input(Layout::Wide, TimestampFormat::Local("%d.%m.%Y %H:%M:%S".into()), london.clone(), true),
-        input(long_q, TimestampFormat::Rfc3339, TimeZone::UTC, true),
-        input(long, TimestampFormat::Local("%Y-%m-%d %H:%M".into()), london, false),
+        input_config(Layout::Wide, TimestampFormat::Rfc3339, TimeZone::UTC, true),
+        input_config(Layout::Wide, TimestampFormat::Local("%d.%m.%Y %H:%M:%S".into()), london.clone(), true),
+        input_config(long_q, TimestampFormat::Rfc3339, TimeZone::UTC, true),
+        input_config(long, TimestampFormat::Local("%Y-%m-%d %H:%M".into()), london, false),
     ];
     let tags: Vec<String> = TAGS.iter().map(|s| s.to_string()).collect();
     let mut parsers: Vec<RowParser> = configs.iter().map(|c| RowParser::new(c, &tags)).collect();

@@ -11,47 +11,12 @@
 #![no_main]
 
 use efftemp::hash::fnv1a64;
-use efftemp::ingest::split::{Held, Item, Position, Splitter};
+use efftemp::ingest::split::{Held, Position, Splitter};
 use libfuzzer_sys::fuzz_target;
+use oracles::{Got, own};
 
-/// An owned copy of an item, for comparisons.
-#[derive(Clone, Debug, PartialEq, Eq)]
-enum Got {
-    Record { start: u64, end: u64, line: u64, next: Position, fields: Vec<Vec<u8>> },
-    TooLong { start: u64, end: u64, line: u64, next: Position },
-    Nul { start: u64, end: u64, line: u64, next: Position },
-}
-
-impl Got {
-    fn span(&self) -> (u64, u64) {
-        match self {
-            Got::Record { start, end, .. }
-            | Got::TooLong { start, end, .. }
-            | Got::Nul { start, end, .. } => (*start, *end),
-        }
-    }
-    fn next(&self) -> Position {
-        match self {
-            Got::Record { next, .. } | Got::TooLong { next, .. } | Got::Nul { next, .. } => *next,
-        }
-    }
-}
-
-fn own(item: Item<'_>) -> Got {
-    match item {
-        Item::Record(r) => Got::Record {
-            start: r.start,
-            end: r.end,
-            line: r.line,
-            next: r.next_position(),
-            fields: r.iter().map(<[u8]>::to_vec).collect(),
-        },
-        Item::TooLong(s) => {
-            Got::TooLong { start: s.start, end: s.end, line: s.line, next: s.next_position() }
-        }
-        Item::NulRun(s) => Got::Nul { start: s.start, end: s.end, line: s.line, next: s.next_position() },
-    }
-}
+#[path = "../../tests/shared/oracles.rs"]
+mod oracles;
 
 /// Feed `input[from..]` to the splitter restarted at `from`, in pieces ending at `cuts`. (One
 /// splitter is reused through `reset`, which must forget everything: building csv-core's DFA

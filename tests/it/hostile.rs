@@ -16,42 +16,21 @@ use std::path::Path;
 use std::sync::Arc;
 
 use efftemp::case::Case;
-use efftemp::config::{InputConfig, Layout, SiteConfig, TimestampFormat};
+use efftemp::config::{Layout, SiteConfig, TimestampFormat};
 use efftemp::ingest::rows::{HeaderInfo, Quality, Reject, RowParser};
-use efftemp::ingest::split::{Item, Position, Splitter};
+use efftemp::ingest::split::{Position, Splitter};
 use efftemp::source::{LocatedErrors, SourceText};
 use jiff::tz::TimeZone;
 use proptest::prelude::*;
 use proptest::sample::Index;
 use serde_json::Value;
 
+use crate::oracles::{Got, input_config, own, stray_null};
 use crate::util;
 
 // ---------------------------------------------------------------------------------------------
 // Splitter
 
-/// An owned copy of a splitter item.
-#[derive(Clone, Debug, PartialEq, Eq)]
-enum Got {
-    Record { start: u64, end: u64, line: u64, fields: Vec<Vec<u8>> },
-    TooLong { start: u64, end: u64, line: u64 },
-    Nul { start: u64, end: u64, line: u64 },
-}
-
-fn own(item: Item<'_>) -> Got {
-    match item {
-        Item::Record(r) => Got::Record {
-            start: r.start,
-            end: r.end,
-            line: r.line,
-            fields: r.iter().map(<[u8]>::to_vec).collect(),
-        },
-        Item::TooLong(s) => Got::TooLong { start: s.start, end: s.end, line: s.line },
-        Item::NulRun(s) => Got::Nul { start: s.start, end: s.end, line: s.line },
-    }
-}
-
-/// Feed `input` cut at `cuts` (sorted, deduplicated by the feeding); items and checkpoint.
 fn split(input: &[u8], cuts: &[usize], max: usize) -> (Vec<Got>, Position) {
     let mut s = Splitter::new(max);
     let mut got = Vec::new();
@@ -77,19 +56,6 @@ fn hostile_byte() -> impl Strategy<Value = u8> {
 // Row parser
 
 const TAGS: [&str; 4] = ["FI-2011", "TI-2012", "TI-2050", "AI-2013A"];
-
-fn input_config(layout: Layout, format: TimestampFormat, tz: &str, reject_unknown: bool) -> InputConfig {
-    InputConfig {
-        directory: ".".into(),
-        pattern: "*.csv".into(),
-        layout,
-        timestamp_column: "Timestamp".into(),
-        timestamp_format: format,
-        time_zone: TimeZone::get(tz).unwrap(),
-        reject_unknown_tags: reject_unknown,
-        links_outside: false,
-    }
-}
 
 /// A header cell: a known column name (sometimes padded), or anything.
 fn header_cell() -> impl Strategy<Value = String> {
@@ -130,44 +96,6 @@ fn assert_located(errors: &LocatedErrors, text: &str) -> Result<(), TestCaseErro
         prop_assert!(!e.message.trim().is_empty(), "no message: {:?}", e);
     }
     Ok(())
-}
-
-/// Keys whose value may be `null` in a solved report.
-const OPTIONAL: &[&str] = &[
-    "measured_temperature_k",
-    "residual_k",
-    "conversion",
-    "bubble_point_k",
-    "pressure_pa",
-    "bubble_margin_k",
-    "element_balance",
-    "solver",
-    "temperature_uncertainty_k",
-    "uncertainty",
-    "dominant_input",
-];
-
-/// The path of a `null` under a key that is not optional (serde_json writes NaN as `null`).
-fn stray_null(v: &Value, path: &mut Vec<String>) -> Option<String> {
-    match v {
-        Value::Null => {
-            let key = path.last().map(String::as_str).unwrap_or("");
-            (!OPTIONAL.contains(&key)).then(|| path.join("."))
-        }
-        Value::Array(items) => items.iter().enumerate().find_map(|(i, x)| {
-            path.push(i.to_string());
-            let r = stray_null(x, path);
-            path.pop();
-            r
-        }),
-        Value::Object(map) => map.iter().find_map(|(k, x)| {
-            path.push(k.clone());
-            let r = stray_null(x, path);
-            path.pop();
-            r
-        }),
-        _ => None,
-    }
 }
 
 /// A mutation of a TOML text, applied line-wise so that the result stays valid UTF-8.
@@ -466,10 +394,10 @@ proptest! {
         let long_q = Layout::Long { tag: "Tag".into(), value: "Value".into(), quality: Some("Quality".into()) };
         let long = Layout::Long { tag: "Tag".into(), value: "Value".into(), quality: None };
         let setups = [
-            (input_config(Layout::Wide, TimestampFormat::Rfc3339, "UTC", true), true),
-            (input_config(Layout::Wide, TimestampFormat::Local("%d.%m.%Y %H:%M:%S".into()), "Europe/London", true), true),
-            (input_config(long_q, TimestampFormat::Rfc3339, "UTC", true), false),
-            (input_config(long, TimestampFormat::Local("%d.%m.%Y %H:%M:%S".into()), "Europe/London", false), false),
+            (input_config(Layout::Wide, TimestampFormat::Rfc3339, TimeZone::UTC, true), true),
+            (input_config(Layout::Wide, TimestampFormat::Local("%d.%m.%Y %H:%M:%S".into()), TimeZone::get("Europe/London").unwrap(), true), true),
+            (input_config(long_q, TimestampFormat::Rfc3339, TimeZone::UTC, true), false),
+            (input_config(long, TimestampFormat::Local("%d.%m.%Y %H:%M:%S".into()), TimeZone::get("Europe/London").unwrap(), false), false),
         ];
         let tags: Vec<String> = TAGS.iter().map(|s| s.to_string()).collect();
         let ts_col = header.iter().position(|h| h.trim() == "Timestamp");

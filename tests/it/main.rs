@@ -1,6 +1,8 @@
 //! The one integration-test binary. Modules share the helpers in `util`.
 #![allow(clippy::unwrap_used, clippy::format_push_string, missing_docs, unreachable_pub, dead_code)]
 
+#[path = "../shared/oracles.rs"]
+mod oracles;
 mod util;
 
 mod cli;
