@@ -77,6 +77,17 @@ fn cpu_ticks(pid: u32) -> u64 {
         + f.get(12).and_then(|v| v.parse::<u64>().ok()).unwrap_or(0)
 }
 
+/// Intervals (minutes) written by the slowest of the load test's units.
+fn processed(root: &Path, units: usize) -> usize {
+    (0..units)
+        .map(|u| {
+            count_lines(&root.join(format!("output/U-{u:03}/softtags-U-{u:03}-2026-12-01.csv")))
+                .saturating_sub(1)
+        })
+        .min()
+        .unwrap_or(0)
+}
+
 fn count_lines(path: &Path) -> usize {
     std::fs::read(path).map(|b| b.iter().filter(|c| **c == b'\n').count()).unwrap_or(0)
 }
@@ -162,13 +173,7 @@ fn load(units: usize, speed: f64) {
         if last_report.elapsed() > Duration::from_secs(2) || t == sim_seconds {
             peak_rss = peak_rss.max(proc_field(pid, "status", "VmRSS:").unwrap_or(0));
             // Backlog: simulated minutes written minus minutes processed by the slowest unit.
-            let done = (0..units)
-                .map(|u| {
-                    count_lines(&dir.path().join(format!("output/U-{u:03}/softtags-U-{u:03}-2026-12-01.csv")))
-                        .saturating_sub(1)
-                })
-                .min()
-                .unwrap_or(0);
+            let done = processed(dir.path(), units);
             let lag = t as f64 / 60.0 - done as f64;
             max_lag = max_lag.max(lag);
             println!(
@@ -183,13 +188,7 @@ fn load(units: usize, speed: f64) {
     // Drain.
     let drain = Instant::now();
     loop {
-        let done = (0..units)
-            .map(|u| {
-                count_lines(&dir.path().join(format!("output/U-{u:03}/softtags-U-{u:03}-2026-12-01.csv")))
-                    .saturating_sub(1)
-            })
-            .min()
-            .unwrap_or(0);
+        let done = processed(dir.path(), units);
         if done >= 59 || drain.elapsed() > Duration::from_secs(60) {
             println!(
                 "load: {units} units, 1-s data, simulated hour at {speed}x: drained to minute {done} {:.1} s after the writer stopped; max backlog {max_lag:.1} simulated min; peak RSS {:.1} MiB; CPU {:.1} s",
