@@ -1566,27 +1566,29 @@ fn day(ms: i64, unit: &UnitConfig) -> String {
     crate::output::day_of(ms + 1, &unit.time_zone)
 }
 
+/// What is left of `y` after a least-squares fit on `xs` (with an intercept).
+fn partial_out(y: &[f64], xs: &[&[f64]]) -> Option<Vec<f64>> {
+    ols_residuals(y, xs).map(|(_, r)| r)
+}
+
+/// Least squares of `y` on `xs` (with an intercept): the t-statistics of the coefficients and
+/// the residuals.
+fn ols_residuals(y: &[f64], xs: &[&[f64]]) -> Option<(Vec<f64>, Vec<f64>)> {
+    let (coef, ts) = stats::ols(y, xs)?;
+    let n = xs.iter().map(|x| x.len()).min().unwrap_or(0).min(y.len());
+    let my = stats::mean(&y[..n]);
+    let mx: Vec<f64> = xs.iter().map(|x| stats::mean(&x[..n])).collect();
+    let resid = (0..n)
+        .map(|i| y[i] - my - xs.iter().zip(&coef).zip(&mx).map(|((x, c), m)| c * (x[i] - m)).sum::<f64>())
+        .collect();
+    Some((ts, resid))
+}
+
 /// The t-statistic of `x`'s coefficient in the least-squares fit of `y` on `x` and `t` (with an
 /// intercept), deflated by √((1 − ρ)/(1 + ρ)) for the lag-1 autocorrelation ρ of the fit
 /// residuals (effective sample size of autocorrelated errors).
-/// What is left of `y` after a least-squares fit on `xs` (with an intercept).
-fn partial_out(y: &[f64], xs: &[&[f64]]) -> Option<Vec<f64>> {
-    let (coef, _) = stats::ols(y, xs)?;
-    let my = stats::mean(y);
-    let mx: Vec<f64> = xs.iter().map(|x| stats::mean(x)).collect();
-    Some(
-        (0..y.len())
-            .map(|i| y[i] - my - xs.iter().zip(&coef).zip(&mx).map(|((x, c), m)| c * (x[i] - m)).sum::<f64>())
-            .collect(),
-    )
-}
-
 fn deflated_slope_t(y: &[f64], x: &[f64], t: &[f64]) -> Option<f64> {
-    let (coef, ts) = stats::ols(y, &[x, t])?;
-    let (my, mx, mt) = (stats::mean(y), stats::mean(x), stats::mean(t));
-    let resid: Vec<f64> = (0..y.len().min(x.len()).min(t.len()))
-        .map(|i| y[i] - my - coef[0] * (x[i] - mx) - coef[1] * (t[i] - mt))
-        .collect();
+    let (ts, resid) = ols_residuals(y, &[x, t])?;
     let rho = stats::acf1(&resid).clamp(0.0, 0.95);
     Some(ts[0] * ((1.0 - rho) / (1.0 + rho)).sqrt())
 }
