@@ -113,21 +113,19 @@ fn repair_and_last_line(path: &Path) -> io::Result<Option<String>> {
     Ok(text.lines().rev().find(|l| !l.trim().is_empty()).map(str::to_string))
 }
 
-/// Files in `dir` named `<prefix><date><suffix>`, newest date first.
-fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<PathBuf> {
-    let mut v: Vec<PathBuf> = fs::read_dir(dir)
+/// Files in `dir` named `<prefix><YYYY-MM-DD><suffix>`, with their date, oldest first.
+pub(crate) fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<(String, PathBuf)> {
+    let mut v: Vec<(String, PathBuf)> = fs::read_dir(dir)
         .into_iter()
         .flatten()
         .flatten()
-        .map(|e| e.path())
-        .filter(|p| {
-            p.file_name().and_then(|n| n.to_str()).is_some_and(|n| {
-                n.starts_with(prefix) && n.ends_with(suffix) && n.len() == prefix.len() + 10 + suffix.len()
-            })
+        .filter_map(|e| {
+            let name = e.file_name();
+            let date = name.to_str()?.strip_prefix(prefix)?.strip_suffix(suffix)?;
+            (date.len() == 10).then(|| (date.to_string(), e.path()))
         })
         .collect();
     v.sort();
-    v.reverse();
     v
 }
 
@@ -172,7 +170,7 @@ impl SoftTagWriter {
     ) -> io::Result<SoftTagWriter> {
         let prefix = format!("softtags-{unit}-");
         let mut last = None;
-        for path in dated_files(dir, &prefix, ".csv") {
+        for (_, path) in dated_files(dir, &prefix, ".csv").into_iter().rev() {
             if let Some(line) = repair_and_last_line(&path)? {
                 if line == SOFT_TAG_HEADER {
                     continue;
@@ -277,7 +275,7 @@ impl AlertWriter {
     pub fn open(dir: &Path, unit: &str, tz: TimeZone, stdout: bool) -> io::Result<AlertWriter> {
         let prefix = format!("alerts-{unit}-");
         let mut last = 0;
-        for path in dated_files(dir, &prefix, ".jsonl") {
+        for (_, path) in dated_files(dir, &prefix, ".jsonl").into_iter().rev() {
             if let Some(line) = repair_and_last_line(&path)?
                 && let Ok(v) = serde_json::from_str::<serde_json::Value>(&line)
             {

@@ -136,20 +136,11 @@ pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone
     let first = crate::output::day_of(from_ms.saturating_add(1), tz);
     let last =
         if to_ms >= i64::MAX / 2 { "9999-12-31".to_string() } else { crate::output::day_of(to_ms, tz) };
-    let mut files: Vec<PathBuf> = std::fs::read_dir(dir)
+    let files: Vec<PathBuf> = crate::output::dated_files(dir, &prefix, ".csv")
         .into_iter()
-        .flatten()
-        .flatten()
-        .map(|e| e.path())
-        .filter(|p| {
-            p.file_name().and_then(|n| n.to_str()).is_some_and(|n| {
-                n.strip_prefix(&prefix)
-                    .and_then(|r| r.strip_suffix(".csv"))
-                    .is_some_and(|d| d.len() == 10 && *d >= *first.as_str() && *d <= *last.as_str())
-            })
-        })
+        .filter(|(d, _)| *d >= first && *d <= last)
+        .map(|(_, p)| p)
         .collect();
-    files.sort();
     let mut rows: Vec<Row> = files
         .iter()
         .filter_map(|f| std::fs::read_to_string(f).ok())
@@ -165,20 +156,9 @@ pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone
 
 /// Every alert event of a unit up to `to_ms` (all files: active alerts may be old).
 pub fn load_events(dir: &Path, unit: &str, to_ms: i64) -> Vec<AlertEvent> {
-    let mut files: Vec<PathBuf> = std::fs::read_dir(dir)
-        .into_iter()
-        .flatten()
-        .flatten()
-        .map(|e| e.path())
-        .filter(|p| {
-            p.file_name()
-                .and_then(|n| n.to_str())
-                .is_some_and(|n| n.starts_with(&format!("alerts-{unit}-")) && n.ends_with(".jsonl"))
-        })
-        .collect();
-    files.sort();
+    let files = crate::output::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
     let mut out = Vec::new();
-    for f in files {
+    for (_, f) in files {
         for line in std::fs::read_to_string(&f).unwrap_or_default().lines() {
             if let Ok(mut e) = serde_json::from_str::<AlertEvent>(line) {
                 e.time_ms = e.time.parse::<Timestamp>().map(|t| t.as_millisecond()).unwrap_or(0);
