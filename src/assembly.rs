@@ -150,6 +150,11 @@ impl Assembler {
         self.open_from
     }
 
+    /// Newest sample time accepted (kept in the checkpoint), ms.
+    pub fn max_event(&self) -> Option<i64> {
+        self.max_event
+    }
+
     /// Whether samples are waiting in an open interval.
     pub fn has_open(&self) -> bool {
         self.bufs.iter().any(|b| !b.samples.is_empty())

@@ -132,7 +132,6 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
                 (c == expected && tag_ok)
                     || (c == "undetermined" && matches!(expected, "conversion_drift" | "heater_fouling"))
             };
-            let right = raised.iter().filter(in_window).find(|a| a.cause.as_str() == expected).copied();
             let named = events
                 .iter()
                 .filter(|a| a.event != AlertKind::Cleared && a.time_ms >= start)
@@ -143,7 +142,7 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
                 right_cause: first.is_some_and(acceptable),
                 delay_min: first.map(|a| (a.time_ms - start) as f64 / 60_000.0),
                 named_after_min: named.map(|a| (a.time_ms - start) as f64 / 60_000.0),
-                first_alert: first.or(right).cloned(),
+                first_alert: first.cloned(),
             }
         })
         .collect();
@@ -259,7 +258,6 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
         ));
         // The writer: the plant in accelerated time.
         let mut plant = Plant::new(scenario.clone());
-        let mut pending: Option<String> = None;
         let mut last_draw = Instant::now();
         loop {
             let target = sim::START_S + (started.elapsed().as_secs_f64() * speed) as i64;
@@ -284,7 +282,6 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
                     writeln!(f, "{}", Plant::header())?;
                 }
                 f.write_all(text.as_bytes())?;
-                pending = Some(name);
             }
             if tty && opts.verbose && last_draw.elapsed() > Duration::from_millis(250) {
                 let done = (plant.time_s() - sim::START_S) as f64 / total_s as f64;
@@ -306,7 +303,6 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
             }
             tokio::time::sleep(Duration::from_millis(20)).await;
         }
-        let _ = pending;
         // Let the service catch up with the last complete interval.
         let goal = (scenario.end_s() - 120) * 1000;
         let deadline = Instant::now() + Duration::from_secs(120);

@@ -166,8 +166,6 @@ pub struct Counters {
     pub solver_failures: u64,
     /// Alert events by (cause, event).
     pub alert_events: BTreeMap<(String, String), u64>,
-    /// Newest data time seen, ms.
-    pub last_data_ms: Option<i64>,
     /// Bytes read from export files.
     pub bytes: u64,
 }
@@ -470,27 +468,34 @@ impl UnitRuntime {
             },
             TailEvent::Record { file, record } => {
                 counters.records += 1;
-                let day = day_of(counters.last_data_ms.unwrap_or(0) + 1, &cfg.time_zone);
-                ingest.entry(day.clone()).or_default().records += 1;
                 rejects.clear();
+                let mut late = 0;
                 parser.record(file.id, record.len(), &|i| record.field(i), &mut |s| {
                     match assembler.add(&s) {
                         Added::Accepted => {
                             counters.samples += 1;
                             got_data = true;
-                            counters.last_data_ms = Some(counters.last_data_ms.map_or(s.t_ms, |l| l.max(s.t_ms)));
                         }
                         Added::Late => {
                             counters.late += 1;
-                            ingest.entry(day.clone()).or_default().late += 1;
+                            late += 1;
                             warn!(unit = %unit_name, file = %file.path.display(), line = record.line, tag = %cfg.tags[s.tag].name, "late sample for an interval already closed: counted, not used");
                         }
                     }
                 }, &mut rejects);
                 for r in &rejects {
                     *counters.rejected.entry(r.code()).or_default() += 1;
-                    *ingest.entry(day.clone()).or_default().rejected.entry(r.code().to_string()).or_default() += 1;
                     warn!(unit = %unit_name, file = %file.path.display(), line = record.line, reason = r.code(), "rejected: {r}");
+                }
+                // Per-day data-quality counts go to the day of the newest data (this record's,
+                // or the checkpointed newest before it); none before any data was ever seen.
+                if let Some(t) = assembler.max_event() {
+                    let d = ingest.entry(day_of(t + 1, &cfg.time_zone)).or_default();
+                    d.records += 1;
+                    d.late += late;
+                    for r in &rejects {
+                        *d.rejected.entry(r.code().to_string()).or_default() += 1;
+                    }
                 }
                 if assembler.ready(false) {
                     process(assembler, false, &mut io_error, counters, last, ingest);
@@ -499,8 +504,10 @@ impl UnitRuntime {
             TailEvent::Rejected { file, line, reason } => {
                 let (code, text) = describe_reject(&reason);
                 *counters.rejected.entry(code).or_default() += 1;
-                let day = day_of(counters.last_data_ms.unwrap_or(0) + 1, &cfg.time_zone);
-                *ingest.entry(day).or_default().rejected.entry(code.to_string()).or_default() += 1;
+                if let Some(t) = assembler.max_event() {
+                    let day = day_of(t + 1, &cfg.time_zone);
+                    *ingest.entry(day).or_default().rejected.entry(code.to_string()).or_default() += 1;
+                }
                 warn!(unit = %unit_name, file = %file.path.display(), line, reason = code, "rejected: {text}");
             }
             TailEvent::Notice { file, notice } => {
@@ -722,7 +729,7 @@ impl Pipeline {
                     solver_failures: u.counters.solver_failures,
                     alert_events: u.counters.alert_events.clone(),
                     active_alerts: active,
-                    last_data_ms: u.counters.last_data_ms,
+                    last_data_ms: u.assembler.max_event(),
                     monitor_state: u.monitor.state.as_str().to_string(),
                     bytes: u.counters.bytes,
                 }

@@ -14,7 +14,7 @@ use jiff::{Timestamp, ToSpan};
 use crate::alerts::{AlertEvent, EventKind};
 use crate::config::UnitConfig;
 use crate::monitor::stats::LineFit;
-use crate::output::{SOFT_TAG_HEADER, rfc3339};
+use crate::output::SOFT_TAG_HEADER;
 
 /// A shift: [start, end) in ms, with a label in local time.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -23,6 +23,8 @@ pub struct Shift {
     pub start_ms: i64,
     /// End, ms.
     pub end_ms: i64,
+    /// Start of the shift before this one, ms (the same shift pattern).
+    pub prev_start_ms: i64,
     /// E.g. `2026-11-20 06:00 to 14:00 (Europe/London)`.
     pub label: String,
     /// For file names, e.g. `20261120-0600`.
@@ -54,6 +56,7 @@ pub fn shift_containing(t_ms: i64, starts: &[Time], tz: &TimeZone) -> Option<Shi
     all.dedup();
     let start = *all.iter().rev().find(|s| **s <= t_ms)?;
     let end = *all.iter().find(|s| **s > start)?;
+    let prev_start = *all.iter().rev().find(|s| **s < start)?;
     let fmt = |ms: i64, f: &str| {
         Timestamp::from_millisecond(ms)
             .map(|t| t.to_zoned_datetime(tz.clone()).strftime(f).to_string())
@@ -62,6 +65,7 @@ pub fn shift_containing(t_ms: i64, starts: &[Time], tz: &TimeZone) -> Option<Shi
     Some(Shift {
         start_ms: start,
         end_ms: end,
+        prev_start_ms: prev_start,
         label: format!(
             "{} to {} ({})",
             fmt(start, "%Y-%m-%d %H:%M"),
@@ -220,16 +224,17 @@ pub struct ReportData {
 pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> ReportData {
     let dir = output_dir.join(&unit.name);
     let tz = unit.time_zone.clone();
-    let rows = load_rows(&dir, &unit.name, shift.start_ms, shift.end_ms, &tz);
-    let prev = shift_containing(shift.start_ms - 1, &shift_starts(&[]), &tz)
-        .map(|p| load_rows(&dir, &unit.name, p.start_ms, p.end_ms, &tz))
-        .unwrap_or_default();
-    let window = unit.monitor.trend_window_ms;
-    let effectiveness = load_rows(&dir, &unit.name, shift.end_ms - window, shift.end_ms, &tz)
-        .into_iter()
+    // One read covers the previous shift (same shift pattern), this shift and the trend window.
+    let window_start = shift.end_ms - unit.monitor.trend_window_ms;
+    let all = load_rows(&dir, &unit.name, shift.prev_start_ms.min(window_start), shift.end_ms, &tz);
+    let effectiveness = all
+        .iter()
+        .filter(|r| r.t_ms > window_start)
         .filter(|r| r.state == "watching" || r.state == "learning")
         .filter_map(|r| r.effectiveness.map(|e| (r.t_ms, e)))
         .collect();
+    let (prev, rows): (Vec<Row>, Vec<Row>) =
+        all.into_iter().filter(|r| r.t_ms > shift.prev_start_ms).partition(|r| r.t_ms <= shift.start_ms);
     let events = load_events(&dir, &unit.name, shift.end_ms);
     let mut ingest = IngestDay::default();
     let mut days: Vec<String> =
@@ -702,12 +707,10 @@ pub fn plots(d: &ReportData) -> Vec<(String, String)> {
         "effectiveness",
     );
     if let Some((fit, proj)) = &trend {
-        let a = day(t0);
         let to_days = |ms: i64| ms as f64 / 86_400_000.0;
         let end = proj.map_or(d.shift.end_ms, |p| p.0);
         let line: Vec<(f64, Option<f64>)> =
             [t0, end].iter().map(|ms| (day(*ms), Some(fit.a + fit.b * to_days(*ms)))).collect();
-        let _ = a;
         p.line(&line, INK, 1.4, Some("6 4"), "trend");
         if let Some((at, lo, hi)) = proj {
             p.marker(
@@ -957,7 +960,6 @@ pub fn render_text(d: &ReportData) -> String {
     let _ =
         writeln!(s, "  data: {} records read, {rejected} rejected, {} late", d.ingest.records, d.ingest.late);
     let _ = writeln!(s, "  {}", crate::CAUTION);
-    let _ = rfc3339;
     s
 }
 
@@ -1002,6 +1004,19 @@ mod tests {
         assert_eq!(day.label, "2026-11-20 06:00 to 14:00 (Europe/Berlin)");
         let last = last_completed(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
         assert_eq!(last.end_ms, day.start_ms);
+    }
+
+    /// The previous shift follows the site's own pattern (two 12-hour shifts here), not the
+    /// default three.
+    #[test]
+    fn the_previous_shift_uses_the_configured_pattern() {
+        let tz = TimeZone::get("Europe/London").unwrap();
+        let starts = shift_starts(&["07:00".into(), "19:00".into()]);
+        let day = shift_containing(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
+        assert_eq!(day.start_ms, ms("2026-11-20T07:00:00Z"));
+        assert_eq!(day.prev_start_ms, ms("2026-11-19T19:00:00Z"));
+        let last = last_completed(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
+        assert_eq!(last.start_ms, day.prev_start_ms);
     }
 
     #[test]
