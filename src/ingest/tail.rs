@@ -721,13 +721,14 @@ impl Tracked {
 
     /// Forget held bytes and read again from the checkpoint.
     fn rewind(&mut self) {
-        let at = self.cp.resume;
-        if let Some(s) = self.split.as_mut() {
-            s.reset(at);
-        }
-        self.read_end = at.offset;
-        self.recent = self.commit_tail.clone();
-        self.prefix.truncate(usize::try_from(at.offset - self.cp.data_start).unwrap_or(usize::MAX));
+        rewind_to_checkpoint(
+            &self.cp,
+            self.split.as_mut(),
+            &mut self.read_end,
+            &mut self.recent,
+            &self.commit_tail,
+            &mut self.prefix,
+        );
     }
 
     /// Drop the handle and buffers (sealing, detaching).
@@ -1116,6 +1117,25 @@ fn report_header_problems(t: &Tracked, h: &HeaderInfo, cx: &mut Ctx<'_>) {
 
 /// Read from `read_end` to the end of the file, delivering complete records, then update the
 /// checkpoint, marker and fingerprint.
+/// Forget what was read after the checkpoint: the splitter, the read position, the bytes kept
+/// for the marker and the fingerprint prefix all go back to `cp.resume`.
+fn rewind_to_checkpoint(
+    cp: &FileCheckpoint,
+    split: Option<&mut Splitter>,
+    read_end: &mut u64,
+    recent: &mut Vec<u8>,
+    commit_tail: &[u8],
+    prefix: &mut Vec<u8>,
+) {
+    let at = cp.resume;
+    if let Some(s) = split {
+        s.reset(at);
+    }
+    *read_end = at.offset;
+    *recent = commit_tail.to_vec();
+    prefix.truncate(usize::try_from(at.offset - cp.data_start).unwrap_or(usize::MAX));
+}
+
 fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
     let Tracked {
         cp,
@@ -1198,9 +1218,7 @@ fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
     }
     // A NUL run at the end may be a preallocated region that the writer will fill: re-read it.
     if split.held().is_some_and(|h| h.kind == HeldKind::NulRun) {
-        split.reset(cp.resume);
-        *read_end = cp.resume.offset;
-        *recent = commit_tail.clone();
+        rewind_to_checkpoint(cp, Some(split), read_end, recent, commit_tail, prefix);
     }
     cp.size = cp.size.max(*read_end);
     cp.marker_len = commit_tail.len() as u64;
@@ -2083,6 +2101,9 @@ mod tests {
             .unwrap();
         drop(f);
         assert_eq!(recs(&fx.poll()), want(1, 1..2));
+        // The fingerprint kept no NULs: the next row continues the same file.
+        fx.append("plant_x.csv", &row(2));
+        assert_eq!(recs(&fx.poll()), want(1, 2..3));
     }
 
     #[test]
