@@ -761,19 +761,29 @@ fn resolve_path(base: &Path, rel: &str) -> PathBuf {
     if p.is_absolute() { p.to_path_buf() } else { base.join(p) }
 }
 
-/// Glob match on a file name with `*` (any run) and `?` (one character).
+/// Glob match on a file name with `*` (any run) and `?` (one character), in linear time
+/// (backtracking only to the last `*`). The tailer, `replay` and `check` all use it.
 pub fn name_matches(pattern: &str, name: &str) -> bool {
-    fn go(p: &[char], n: &[char]) -> bool {
-        match p.split_first() {
-            None => n.is_empty(),
-            Some(('*', rest)) => (0..=n.len()).any(|i| go(rest, &n[i..])),
-            Some(('?', rest)) => !n.is_empty() && go(rest, &n[1..]),
-            Some((c, rest)) => n.first() == Some(c) && go(rest, &n[1..]),
+    let pat: Vec<char> = pattern.chars().collect();
+    let s: Vec<char> = name.chars().collect();
+    let (mut p, mut i) = (0, 0);
+    let mut star: Option<(usize, usize)> = None;
+    while i < s.len() {
+        if p < pat.len() && (pat[p] == '?' || (pat[p] != '*' && pat[p] == s[i])) {
+            p += 1;
+            i += 1;
+        } else if p < pat.len() && pat[p] == '*' {
+            star = Some((p, i));
+            p += 1;
+        } else if let Some((sp, si)) = star {
+            p = sp + 1;
+            i = si + 1;
+            star = Some((sp, si + 1));
+        } else {
+            return false;
         }
     }
-    let p: Vec<char> = pattern.chars().collect();
-    let n: Vec<char> = name.chars().collect();
-    go(&p, &n)
+    pat[p..].iter().all(|&c| c == '*')
 }
 
 impl SiteConfig {

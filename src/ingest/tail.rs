@@ -451,29 +451,6 @@ fn read_span(file: &File, off: u64, len: u64, stats: &mut PollStats) -> io::Resu
     Ok(out)
 }
 
-/// Whether `name` matches the glob `pat` (`*` and `?`).
-fn glob_match(pat: &[char], name: &str) -> bool {
-    let s: Vec<char> = name.chars().collect();
-    let (mut p, mut i) = (0, 0);
-    let mut star: Option<(usize, usize)> = None;
-    while i < s.len() {
-        if p < pat.len() && (pat[p] == '?' || (pat[p] != '*' && pat[p] == s[i])) {
-            p += 1;
-            i += 1;
-        } else if p < pat.len() && pat[p] == '*' {
-            star = Some((p, i));
-            p += 1;
-        } else if let Some((sp, si)) = star {
-            p = sp + 1;
-            i = si + 1;
-            star = Some((sp, si + 1));
-        } else {
-            return false;
-        }
-    }
-    pat[p..].iter().all(|&c| c == '*')
-}
-
 /// Hash of header fields (order and content; independent of quoting, BOM and line endings).
 fn header_hash(fields: &[String]) -> u64 {
     let mut bytes = Vec::new();
@@ -787,7 +764,6 @@ impl Ctx<'_> {
 pub struct Tailer {
     dir: PathBuf,
     opts: TailOptions,
-    pattern: Vec<char>,
     next_id: u64,
     last_header: Option<Vec<String>>,
     /// Tracked generations, sorted by id.
@@ -844,7 +820,6 @@ impl Tailer {
         }
         let max_id = tracked.iter().map(|t| t.cp.id).max().unwrap_or(0);
         Tailer {
-            pattern: opts.pattern.chars().collect(),
             buf: vec![0; opts.read_chunk],
             dir,
             opts,
@@ -886,7 +861,7 @@ impl Tailer {
     pub fn poll(&mut self, now_ms: u64, sink: &mut dyn FnMut(TailEvent<'_>)) -> Result<PollStats, TailError> {
         let (mut entries, refused) = self.list()?;
         self.refused = refused;
-        let Tailer { dir: _, opts, pattern: _, next_id, last_header, tracked, twins, buf, refused } = self;
+        let Tailer { dir: _, opts, next_id, last_header, tracked, twins, buf, refused } = self;
         let mut cx = Ctx { opts, buf, sink, last_header, stats: PollStats::default(), now: now_ms };
         for t in tracked.iter_mut() {
             t.present = false;
@@ -921,7 +896,7 @@ impl Tailer {
         for de in fs::read_dir(&self.dir).map_err(err)? {
             let de = de.map_err(err)?;
             let name = de.file_name().to_string_lossy().into_owned();
-            if !glob_match(&self.pattern, &name) {
+            if !crate::config::name_matches(&self.opts.pattern, &name) {
                 continue;
             }
             let path = de.path();
@@ -2309,14 +2284,14 @@ mod tests {
 
     #[test]
     fn glob_matches_names() {
-        let p = |s: &str| s.chars().collect::<Vec<_>>();
-        assert!(glob_match(&p("plant_*.csv"), "plant_20261201.csv"));
-        assert!(glob_match(&p("plant_*.csv"), "plant_.csv"));
-        assert!(!glob_match(&p("plant_*.csv"), "plant_x.csv.tmp"));
-        assert!(glob_match(&p("p?ant_*_*.csv"), "plant_a_b.csv"));
-        assert!(!glob_match(&p("p?ant"), "pant"));
-        assert!(glob_match(&p("*"), ""));
-        assert!(glob_match(&p("*a*b"), "xxaxxbxb"));
-        assert!(glob_match(&p("?.csv"), "é.csv"));
+        let glob_match = crate::config::name_matches;
+        assert!(glob_match("plant_*.csv", "plant_20261201.csv"));
+        assert!(glob_match("plant_*.csv", "plant_.csv"));
+        assert!(!glob_match("plant_*.csv", "plant_x.csv.tmp"));
+        assert!(glob_match("p?ant_*_*.csv", "plant_a_b.csv"));
+        assert!(!glob_match("p?ant", "pant"));
+        assert!(glob_match("*", ""));
+        assert!(glob_match("*a*b", "xxaxxbxb"));
+        assert!(glob_match("?.csv", "é.csv"));
     }
 }
