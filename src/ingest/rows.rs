@@ -248,13 +248,15 @@ impl RowParser {
     /// Read a file's header row and build its column plan.
     pub fn header(&mut self, file: u64, fields: &[String]) -> HeaderInfo {
         let find = |name: &str| fields.iter().position(|f| f.trim() == name.trim());
-        let clock = Clock {
+        // The tailer sends a file's header again when it re-attaches to the same file (a
+        // continuation): its clock keeps where the file had got to in a repeated local hour.
+        let clock = self.files.remove(&file).map(|(_, c)| c).unwrap_or_else(|| Clock {
             format: self.format.clone(),
             tz: self.tz.clone(),
             last_text: String::new(),
             last_ms: 0,
             latest_ms: None,
-        };
+        });
         let (plan, info) = match find(&self.ts_column) {
             None => {
                 let r = Reject::MissingColumn(self.ts_column.clone());
@@ -542,5 +544,24 @@ mod tests {
         );
         let (_, r) = parse(&mut p, 1, "2026-03-29 01:30,1");
         assert_eq!(r[0].code(), "nonexistent_local_time");
+    }
+
+    /// The header of a file sent again in the repeated hour (the tailer re-attached to the
+    /// same file) does not make the next row's wall time read as the first occurrence.
+    #[test]
+    fn a_repeated_header_keeps_the_position_in_the_repeated_hour() {
+        let tags = vec!["TI-2".to_string()];
+        let fmt = TimestampFormat::Local("%Y-%m-%d %H:%M".into());
+        let mut p = RowParser::new(&input(Layout::Wide, fmt, "Europe/London"), &tags);
+        let header = ["time".to_string(), "TI-2".to_string()];
+        p.header(1, &header);
+        for t in ["2026-10-25 01:00", "2026-10-25 01:30", "2026-10-25 01:00"] {
+            parse(&mut p, 1, &format!("{t},1"));
+        }
+        p.header(1, &header);
+        let got = parse(&mut p, 1, "2026-10-25 01:30,1").0[0].t_ms;
+        // Source: IANA tz database, Europe/London: BST ends at 02:00 BST = 01:00 GMT on
+        // 2026-10-25, so the second 01:30 is 01:30 UTC.
+        assert_eq!(got, "2026-10-25T01:30:00Z".parse::<Timestamp>().unwrap().as_millisecond());
     }
 }
