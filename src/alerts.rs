@@ -36,6 +36,17 @@ pub enum EventKind {
     Cleared,
 }
 
+impl EventKind {
+    /// The name used in the JSON lines, syslog and metrics.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            EventKind::Raised => "raised",
+            EventKind::Updated => "updated",
+            EventKind::Cleared => "cleared",
+        }
+    }
+}
+
 /// One alert event (a JSON line).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct AlertEvent {

@@ -340,11 +340,7 @@ fn prefix(
         header_field(&cfg.app_name, APP_NAME_MAX),
         msgid(ev.event),
     );
-    let event = match ev.event {
-        EventKind::Raised => "raised",
-        EventKind::Updated => "updated",
-        EventKind::Cleared => "cleared",
-    };
+    let event = ev.event.as_str();
     for (name, value) in [
         ("unit", ev.unit.as_str()),
         ("alert_id", ev.alert_id.as_str()),

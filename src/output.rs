@@ -132,7 +132,6 @@ pub(crate) fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<(String
 /// An append-only dated file with a header.
 struct DayFile {
     day: String,
-    path: PathBuf,
     out: BufWriter<File>,
 }
 
@@ -145,7 +144,38 @@ fn open_day(dir: &Path, name: &str, day: &str, header: Option<&str>) -> io::Resu
     if fresh && let Some(h) = header {
         writeln!(out, "{h}")?;
     }
-    Ok(DayFile { day: day.to_string(), path, out })
+    Ok(DayFile { day: day.to_string(), out })
+}
+
+/// The file of `day` (`<prefix><day><suffix>`), switching to it from the current one (which
+/// is flushed and synced first) when the day changed.
+fn day_file<'a>(
+    current: &'a mut Option<DayFile>,
+    dir: &Path,
+    prefix: &str,
+    suffix: &str,
+    day: String,
+    header: Option<&str>,
+) -> io::Result<&'a mut DayFile> {
+    if current.as_ref().is_some_and(|c| c.day != day) {
+        flush_day(current, true)?;
+        *current = None;
+    }
+    match current {
+        Some(c) => Ok(c),
+        None => Ok(current.insert(open_day(dir, &format!("{prefix}{day}{suffix}"), &day, header)?)),
+    }
+}
+
+/// Flush the current file, and fsync it when `sync`.
+fn flush_day(current: &mut Option<DayFile>, sync: bool) -> io::Result<()> {
+    if let Some(c) = current.as_mut() {
+        c.out.flush()?;
+        if sync {
+            c.out.get_ref().sync_all()?;
+        }
+    }
+    Ok(())
 }
 
 /// Soft-tag CSV writer of one unit.
@@ -195,25 +225,14 @@ impl SoftTagWriter {
         })
     }
 
-    /// Path of the file an interval end goes to.
-    pub fn path_for(&self, end_ms: i64) -> PathBuf {
-        self.dir.join(format!("softtags-{}-{}.csv", self.unit, day_of(end_ms, &self.tz)))
-    }
-
     /// Append one interval, unless it is already on disk. Returns whether it was written.
     pub fn write(&mut self, ev: &Evaluation, monitor_state: &str) -> io::Result<bool> {
         if self.last_written_end.is_some_and(|l| ev.end_ms <= l) {
             return Ok(false);
         }
         let day = day_of(ev.end_ms, &self.tz);
-        if self.current.as_ref().is_none_or(|c| c.day != day) {
-            if let Some(mut c) = self.current.take() {
-                c.out.flush()?;
-                c.out.get_ref().sync_all()?;
-            }
-            let name = format!("softtags-{}-{day}.csv", self.unit);
-            self.current = Some(open_day(&self.dir, &name, &day, Some(SOFT_TAG_HEADER))?);
-        }
+        let prefix = format!("softtags-{}-", self.unit);
+        let file = day_file(&mut self.current, &self.dir, &prefix, ".csv", day, Some(SOFT_TAG_HEADER))?;
         let t = self.temperature;
         let d = self.difference;
         let row = format!(
@@ -229,33 +248,19 @@ impl SoftTagWriter {
             csv_text(monitor_state),
             csv_text(&ev.flags.join(";")),
         );
-        if let Some(c) = self.current.as_mut() {
-            c.out.write_all(row.as_bytes())?;
-        }
+        file.out.write_all(row.as_bytes())?;
         self.last_written_end = Some(ev.end_ms);
         Ok(true)
     }
 
     /// Flush buffered rows and fsync (before a checkpoint is written).
     pub fn sync(&mut self) -> io::Result<()> {
-        if let Some(c) = self.current.as_mut() {
-            c.out.flush()?;
-            c.out.get_ref().sync_all()?;
-        }
-        Ok(())
+        flush_day(&mut self.current, true)
     }
 
     /// Flush buffered rows to the file (no fsync).
     pub fn flush(&mut self) -> io::Result<()> {
-        match self.current.as_mut() {
-            Some(c) => c.out.flush(),
-            None => Ok(()),
-        }
-    }
-
-    /// The file currently written, if any.
-    pub fn current_path(&self) -> Option<&Path> {
-        self.current.as_ref().map(|c| c.path.as_path())
+        flush_day(&mut self.current, false)
     }
 }
 
@@ -305,18 +310,10 @@ impl AlertWriter {
             return Ok(false);
         }
         let day = day_of(ev.time_ms + 1, &self.tz);
-        if self.current.as_ref().is_none_or(|c| c.day != day) {
-            if let Some(mut c) = self.current.take() {
-                c.out.flush()?;
-                c.out.get_ref().sync_all()?;
-            }
-            let name = format!("alerts-{}-{day}.jsonl", self.unit);
-            self.current = Some(open_day(&self.dir, &name, &day, None)?);
-        }
+        let prefix = format!("alerts-{}-", self.unit);
+        let file = day_file(&mut self.current, &self.dir, &prefix, ".jsonl", day, None)?;
         let line = serde_json::to_string(ev).map_err(io::Error::other)?;
-        if let Some(c) = self.current.as_mut() {
-            writeln!(c.out, "{line}")?;
-        }
+        writeln!(file.out, "{line}")?;
         if self.stdout {
             let mut out = io::stdout().lock();
             writeln!(out, "{line}")?;
@@ -328,19 +325,12 @@ impl AlertWriter {
 
     /// Flush buffered events to the file (no fsync).
     pub fn flush(&mut self) -> io::Result<()> {
-        match self.current.as_mut() {
-            Some(c) => c.out.flush(),
-            None => Ok(()),
-        }
+        flush_day(&mut self.current, false)
     }
 
     /// Flush and fsync.
     pub fn sync(&mut self) -> io::Result<()> {
-        if let Some(c) = self.current.as_mut() {
-            c.out.flush()?;
-            c.out.get_ref().sync_all()?;
-        }
-        Ok(())
+        flush_day(&mut self.current, true)
     }
 }
 

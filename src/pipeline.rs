@@ -410,10 +410,7 @@ impl UnitRuntime {
                     }
                     match alert_out.write(&event) {
                         Ok(true) => {
-                            let k = (
-                                event.cause.as_str().to_string(),
-                                format!("{:?}", event.event).to_lowercase(),
-                            );
+                            let k = (event.cause.as_str().to_string(), event.event.as_str().to_string());
                             *counters.alert_events.entry(k).or_default() += 1;
                             new_events.push(event);
                         }
