@@ -145,6 +145,24 @@ pub struct Checkpoint {
     pub units: BTreeMap<String, UnitState>,
 }
 
+/// A [`UnitState`] borrowed from a running unit: serializes to the same JSON without copying
+/// the unit's buffers, alert book and monitor history at every checkpoint.
+#[derive(Serialize)]
+struct UnitStateRef<'a> {
+    tail: TailState,
+    assembler: &'a Assembler,
+    alerts: &'a AlertBook,
+    monitor: &'a Monitor,
+    ingest: &'a BTreeMap<String, IngestDay>,
+    last_end_ms: Option<i64>,
+}
+
+/// A [`Checkpoint`] borrowed from the running units.
+#[derive(Serialize)]
+struct CheckpointRef<'a> {
+    units: BTreeMap<&'a str, UnitStateRef<'a>>,
+}
+
 /// Counters of one unit (exposed as metrics and in logs).
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Counters {
@@ -323,13 +341,13 @@ impl UnitRuntime {
         }
     }
 
-    fn state(&self) -> UnitState {
-        UnitState {
+    fn state(&self) -> UnitStateRef<'_> {
+        UnitStateRef {
             tail: self.tailer.state(),
-            assembler: Some(self.assembler.clone()),
-            alerts: self.alerts.clone(),
-            monitor: Some(self.monitor.clone()),
-            ingest: self.ingest.clone(),
+            assembler: &self.assembler,
+            alerts: &self.alerts,
+            monitor: &self.monitor,
+            ingest: &self.ingest,
             last_end_ms: self.last_end_ms,
         }
     }
@@ -698,8 +716,9 @@ impl Pipeline {
             }
         }
         if let Some(dir) = self.state.as_mut() {
-            let cp =
-                Checkpoint { units: self.units.iter().map(|u| (u.cfg.name.clone(), u.state())).collect() };
+            let cp = CheckpointRef {
+                units: self.units.iter().map(|u| (u.cfg.name.as_str(), u.state())).collect(),
+            };
             if let Err(e) = dir.save(&cp) {
                 warn!(error = %e, "checkpoint write failed; will retry");
             }
