@@ -61,12 +61,8 @@ pub struct Snapshot {
     pub rescans: u64,
     /// Watcher errors.
     pub watcher_errors: u64,
-    /// Alert events waiting for the syslog collector.
-    pub syslog_queue: Option<u64>,
-    /// Alert events delivered to the syslog collector.
-    pub syslog_sent: Option<u64>,
-    /// Alert events dropped by the syslog queue bound.
-    pub syslog_dropped: Option<u64>,
+    /// The syslog forwarder's counters, when forwarding is configured.
+    pub syslog: Option<crate::forward::ForwardStats>,
     /// Passes completed.
     pub passes: u64,
     /// Wall time of the last pass, ms since the epoch.
@@ -87,74 +83,49 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
         let _ = writeln!(o, "# HELP {name} {help}");
         let _ = writeln!(o, "# TYPE {name} {kind}");
     };
-    family(&mut o, "efftemp_rows_read_total", "counter", "Data records read from export files.");
-    for u in &s.units {
-        let _ = writeln!(o, "efftemp_rows_read_total{{unit=\"{}\"}} {}", esc(&u.name), u.records);
-    }
-    family(&mut o, "efftemp_rows_rejected_total", "counter", "Records or values rejected, by reason.");
-    for u in &s.units {
-        for (reason, n) in &u.rejected {
-            let _ = writeln!(
-                o,
-                "efftemp_rows_rejected_total{{unit=\"{}\",reason=\"{}\"}} {n}",
-                esc(&u.name),
-                esc(reason)
-            );
+    let names: Vec<String> = s.units.iter().map(|u| esc(&u.name)).collect();
+    // Per-unit counters with the unit as their only label.
+    type Counter = (&'static str, &'static str, fn(&UnitSnapshot) -> u64);
+    let per_unit: [Counter; 6] = [
+        ("efftemp_rows_read_total", "Data records read from export files.", |u| u.records),
+        ("efftemp_late_samples_total", "Samples for intervals already closed (counted, not used).", |u| {
+            u.late
+        }),
+        ("efftemp_intervals_closed_total", "Intervals closed and written.", |u| u.intervals),
+        ("efftemp_intervals_not_computed_total", "Intervals whose prediction could not be computed.", |u| {
+            u.not_computed
+        }),
+        ("efftemp_solver_failures_total", "Balance solves that failed.", |u| u.solver_failures),
+        ("efftemp_export_bytes_read_total", "Bytes read from export files.", |u| u.bytes),
+    ];
+    for (name, help, value) in per_unit {
+        family(&mut o, name, "counter", help);
+        for (u, unit) in s.units.iter().zip(&names) {
+            let _ = writeln!(o, "{name}{{unit=\"{unit}\"}} {}", value(u));
         }
     }
-    family(
-        &mut o,
-        "efftemp_late_samples_total",
-        "counter",
-        "Samples for intervals already closed (counted, not used).",
-    );
-    for u in &s.units {
-        let _ = writeln!(o, "efftemp_late_samples_total{{unit=\"{}\"}} {}", esc(&u.name), u.late);
-    }
-    family(&mut o, "efftemp_intervals_closed_total", "counter", "Intervals closed and written.");
-    for u in &s.units {
-        let _ = writeln!(o, "efftemp_intervals_closed_total{{unit=\"{}\"}} {}", esc(&u.name), u.intervals);
-    }
-    family(
-        &mut o,
-        "efftemp_intervals_not_computed_total",
-        "counter",
-        "Intervals whose prediction could not be computed.",
-    );
-    for u in &s.units {
-        let _ = writeln!(
-            o,
-            "efftemp_intervals_not_computed_total{{unit=\"{}\"}} {}",
-            esc(&u.name),
-            u.not_computed
-        );
-    }
-    family(&mut o, "efftemp_solver_failures_total", "counter", "Balance solves that failed.");
-    for u in &s.units {
-        let _ =
-            writeln!(o, "efftemp_solver_failures_total{{unit=\"{}\"}} {}", esc(&u.name), u.solver_failures);
+    family(&mut o, "efftemp_rows_rejected_total", "counter", "Records or values rejected, by reason.");
+    for (u, unit) in s.units.iter().zip(&names) {
+        for (reason, n) in &u.rejected {
+            let _ =
+                writeln!(o, "efftemp_rows_rejected_total{{unit=\"{unit}\",reason=\"{}\"}} {n}", esc(reason));
+        }
     }
     family(&mut o, "efftemp_alert_events_total", "counter", "Alert events written, by cause and event.");
-    for u in &s.units {
+    for (u, unit) in s.units.iter().zip(&names) {
         for ((cause, event), n) in &u.alert_events {
             let _ = writeln!(
                 o,
-                "efftemp_alert_events_total{{unit=\"{}\",cause=\"{}\",event=\"{}\"}} {n}",
-                esc(&u.name),
+                "efftemp_alert_events_total{{unit=\"{unit}\",cause=\"{}\",event=\"{}\"}} {n}",
                 esc(cause),
                 esc(event)
             );
         }
     }
     family(&mut o, "efftemp_alerts_active", "gauge", "Active alerts, by cause.");
-    for u in &s.units {
+    for (u, unit) in s.units.iter().zip(&names) {
         for (cause, n) in &u.active_alerts {
-            let _ = writeln!(
-                o,
-                "efftemp_alerts_active{{unit=\"{}\",cause=\"{}\"}} {n}",
-                esc(&u.name),
-                esc(cause)
-            );
+            let _ = writeln!(o, "efftemp_alerts_active{{unit=\"{unit}\",cause=\"{}\"}} {n}", esc(cause));
         }
     }
     family(
@@ -163,28 +134,15 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
         "gauge",
         "Wall time since the newest data time of the unit.",
     );
-    for u in &s.units {
+    for (u, unit) in s.units.iter().zip(&names) {
         if let Some(t) = u.last_data_ms {
-            let _ = writeln!(
-                o,
-                "efftemp_last_data_age_seconds{{unit=\"{}\"}} {:.3}",
-                esc(&u.name),
-                (now_ms - t) as f64 / 1000.0
-            );
+            let age = (now_ms - t) as f64 / 1000.0;
+            let _ = writeln!(o, "efftemp_last_data_age_seconds{{unit=\"{unit}\"}} {age:.3}");
         }
     }
     family(&mut o, "efftemp_monitor_state", "gauge", "1 for the unit's current monitor state.");
-    for u in &s.units {
-        let _ = writeln!(
-            o,
-            "efftemp_monitor_state{{unit=\"{}\",state=\"{}\"}} 1",
-            esc(&u.name),
-            esc(&u.monitor_state)
-        );
-    }
-    family(&mut o, "efftemp_export_bytes_read_total", "counter", "Bytes read from export files.");
-    for u in &s.units {
-        let _ = writeln!(o, "efftemp_export_bytes_read_total{{unit=\"{}\"}} {}", esc(&u.name), u.bytes);
+    for (u, unit) in s.units.iter().zip(&names) {
+        let _ = writeln!(o, "efftemp_monitor_state{{unit=\"{unit}\",state=\"{}\"}} 1", esc(&u.monitor_state));
     }
     family(&mut o, "efftemp_checkpoint_writes_total", "counter", "Checkpoints written.");
     let _ = writeln!(o, "efftemp_checkpoint_writes_total {}", s.checkpoint_writes);
@@ -201,32 +159,30 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
     let _ = writeln!(o, "efftemp_watch_rescans_total {}", s.rescans);
     family(&mut o, "efftemp_watch_errors_total", "counter", "Watcher errors.");
     let _ = writeln!(o, "efftemp_watch_errors_total {}", s.watcher_errors);
-    if let Some(q) = s.syslog_queue {
-        family(
-            &mut o,
-            "efftemp_syslog_queue_depth",
-            "gauge",
-            "Alert events waiting for the syslog collector.",
-        );
-        let _ = writeln!(o, "efftemp_syslog_queue_depth {q}");
-    }
-    if let Some(n) = s.syslog_sent {
-        family(
-            &mut o,
-            "efftemp_syslog_sent_total",
-            "counter",
-            "Alert events delivered to the syslog collector.",
-        );
-        let _ = writeln!(o, "efftemp_syslog_sent_total {n}");
-    }
-    if let Some(n) = s.syslog_dropped {
-        family(
-            &mut o,
-            "efftemp_syslog_dropped_total",
-            "counter",
-            "Alert events dropped by the syslog queue bound.",
-        );
-        let _ = writeln!(o, "efftemp_syslog_dropped_total {n}");
+    if let Some(f) = s.syslog {
+        for (name, kind, help, value) in [
+            (
+                "efftemp_syslog_queue_depth",
+                "gauge",
+                "Alert events waiting for the syslog collector.",
+                f.queued as u64,
+            ),
+            (
+                "efftemp_syslog_sent_total",
+                "counter",
+                "Alert events delivered to the syslog collector.",
+                f.sent,
+            ),
+            (
+                "efftemp_syslog_dropped_total",
+                "counter",
+                "Alert events dropped by the syslog queue bound.",
+                f.dropped,
+            ),
+        ] {
+            family(&mut o, name, kind, help);
+            let _ = writeln!(o, "{name} {value}");
+        }
     }
     family(&mut o, "efftemp_passes_total", "counter", "Pipeline passes completed.");
     let _ = writeln!(o, "efftemp_passes_total {}", s.passes);

@@ -234,9 +234,7 @@ pub async fn run(
                 watcher_errors: _watch
                     .as_ref()
                     .map_or(0, |w| w.errors.load(std::sync::atomic::Ordering::Relaxed)),
-                syslog_queue: forwarder.as_ref().map(|f| f.stats().queued as u64),
-                syslog_sent: forwarder.as_ref().map(|f| f.stats().sent),
-                syslog_dropped: forwarder.as_ref().map(|f| f.stats().dropped),
+                syslog: forwarder.as_ref().map(|f| f.stats()),
                 passes,
                 last_pass_ms: Some(jiff::Timestamp::now().as_millisecond()),
                 ready_within_ms: i64::try_from(site.service.reconcile_ms.max(1_000) * 3).unwrap_or(i64::MAX),
