@@ -230,7 +230,11 @@ impl Checker<'_> {
     fn temperature(&mut self, key: &KeyPath, v: &Number) -> Option<f64> {
         let t = self.number(key, v, Quantity::Temperature)?;
         if t <= 0.0 {
-            self.err(key, format!("temperature must be above absolute zero, got {t} K"));
+            let written = v.as_written();
+            self.err(
+                key,
+                format!("temperature must be above absolute zero, got {t:.3} K (given `{written}`)"),
+            );
             return None;
         }
         Some(t)
@@ -411,7 +415,16 @@ impl Case {
             .bubble_margin
             .as_ref()
             .and_then(|m| {
-                ck.number(&KeyPath::keys("model.bubble_margin"), m, Quantity::TemperatureDifference)
+                let key = KeyPath::keys("model.bubble_margin");
+                let v = ck.number(&key, m, Quantity::TemperatureDifference)?;
+                if v < 0.0 {
+                    ck.err(
+                        &key,
+                        format!("margin must not be negative, got {v} K (0 warns only at the bubble point)"),
+                    );
+                    return None;
+                }
+                Some(v)
             })
             .unwrap_or(DEFAULT_BUBBLE_MARGIN);
         let bounds = match &raw.model.temperature_range {
@@ -446,8 +459,12 @@ impl Case {
                     Ok((x, q)) if x > 0.0 => {
                         Some(if q == Quantity::MassFlow { FlowValue::Mass(x) } else { FlowValue::Molar(x) })
                     }
-                    Ok((x, _)) => {
-                        ck.err(&key.key("flow"), format!("flow must be positive, got {x}"));
+                    Ok((x, q)) => {
+                        let si = if q == Quantity::MassFlow { "kg/s" } else { "mol/s" };
+                        ck.err(
+                            &key.key("flow"),
+                            format!("flow must be positive, got {x} {si} (given `{}`)", v.as_written()),
+                        );
                         None
                     }
                     Err(e) => {
@@ -532,6 +549,7 @@ impl Case {
                 continue;
             }
             let mut nu = vec![0.0; n];
+            refuse_repeated_ids(&mut ck, &key.key("stoichiometry"), re.stoichiometry.keys());
             for (id, coef) in &re.stoichiometry {
                 if !coef.is_finite() {
                     ck.err(&key.key("stoichiometry").key(id), "coefficient is not finite");
@@ -815,24 +833,22 @@ impl Case {
         let outcome = self.system.solve(&self.inputs, self.unknown).map_err(|e| {
             let key = match &e {
                 SolveError::Temperature(..) => KeyPath::keys("heater.duty"),
-                SolveError::NegativeFlow { component, .. } => match self.unknown {
-                    Unknown::Conversion(_) => KeyPath::keys("effluent.temperature"),
-                    _ => self
-                        .system
-                        .reactions
-                        .iter()
-                        .enumerate()
-                        .find(|(_, r)| {
-                            self.system
-                                .components
-                                .iter()
-                                .position(|c| c.id == *component)
-                                .is_some_and(|i| r.nu[i] < 0.0)
-                        })
-                        .map_or(KeyPath::keys("reaction"), |(r, _)| {
-                            KeyPath::keys("reaction").index(r).key("conversion")
-                        }),
-                },
+                SolveError::ImpossibleConversion { .. } => KeyPath::keys("effluent.temperature"),
+                SolveError::NegativeFlow { component, .. } => self
+                    .system
+                    .reactions
+                    .iter()
+                    .enumerate()
+                    .find(|(_, r)| {
+                        self.system
+                            .components
+                            .iter()
+                            .position(|c| c.id == *component)
+                            .is_some_and(|i| r.nu[i] < 0.0)
+                    })
+                    .map_or(KeyPath::keys("reaction"), |(r, _)| {
+                        KeyPath::keys("reaction").index(r).key("conversion")
+                    }),
                 SolveError::NoKeyFeed { reaction, .. } => {
                     KeyPath::keys("reaction").index(*reaction).key("key")
                 }
@@ -890,6 +906,30 @@ fn uncertainty_key(input: InputRef) -> KeyPath {
     }
 }
 
+/// Refuse a table that names one component twice (ids ignore case, and `_` equals `-`): the
+/// two entries would otherwise be added together without a word.
+fn refuse_repeated_ids<'a>(
+    ck: &mut Checker<'_>,
+    key: &KeyPath,
+    ids: impl Iterator<Item = &'a String>,
+) -> bool {
+    let mut seen: Vec<(String, &str)> = Vec::new();
+    let mut ok = true;
+    for id in ids {
+        let norm = normalize_id(id);
+        if let Some((_, first)) = seen.iter().find(|(n, _)| *n == norm) {
+            ck.err(
+                &key.key(id),
+                format!("`{id}` names the same component as `{first}` (ids ignore case, and `_` equals `-`); list it once"),
+            );
+            ok = false;
+        } else {
+            seen.push((norm, id));
+        }
+    }
+    ok
+}
+
 fn term(c: f64, id: &str) -> String {
     if (c - 1.0).abs() < 1e-12 { id.to_string() } else { format!("{c} {id}") }
 }
@@ -911,7 +951,7 @@ fn composition(
         return None;
     }
     let mut fractions = vec![0.0; n];
-    let mut ok = true;
+    let mut ok = refuse_repeated_ids(ck, key, comp.keys());
     for (id, v) in comp {
         let k = key.key(id);
         match ck.number(&k, v, Quantity::Dimensionless) {
@@ -966,6 +1006,7 @@ fn composition_u(
             }
         }
         RawCompositionU::Each(map) => {
+            refuse_repeated_ids(ck, key, map.keys());
             for (id, v) in map {
                 let k = key.key(id);
                 match (index_of(id), ck.number(&k, v, Quantity::Dimensionless)) {
@@ -1341,10 +1382,11 @@ impl Report {
                 let _ = write!(s, "; dominated by {d}");
             }
             s.push('\n');
+            let width = u.contributions.iter().map(|c| c.input.chars().count()).max().unwrap_or(0);
             for c in &u.contributions {
                 let _ = writeln!(
                     s,
-                    "  {:<32} u(x) = {:<12.5e} contributes {:.4} {unit} ({:.1} %)",
+                    "  {:<width$} u(x) = {:<12.5e} contributes {:.4} {unit} ({:.1} %)",
                     c.input,
                     c.standard_uncertainty,
                     c.contribution,

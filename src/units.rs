@@ -226,12 +226,12 @@ pub enum UnitError {
         accepted: String,
     },
     /// The unit is not known for the requested quantity.
-    #[error("unknown unit `{unit}` for a {quantity}; accepted: {accepted}")]
+    #[error("unknown unit `{unit}` for {quantity}; accepted: {accepted}")]
     UnknownUnit {
         /// The unit as written.
         unit: String,
-        /// The quantity that was expected.
-        quantity: &'static str,
+        /// The quantities that were expected ("molar flow or mass flow").
+        quantity: String,
         /// Accepted units, comma-separated.
         accepted: String,
     },
@@ -273,7 +273,19 @@ pub fn parse_any(text: &str, quantities: &[Quantity]) -> Result<(f64, Quantity),
     if !value.is_finite() {
         return Err(UnitError::NotFinite { text: text.trim().to_string() });
     }
-    let list = || quantities.iter().flat_map(|q| accepted(*q)).collect::<Vec<_>>().join(", ");
+    let list = || {
+        let symbols: Vec<&str> = quantities.iter().flat_map(|q| accepted(*q)).collect();
+        let aliases: Vec<&str> = ALIASES
+            .iter()
+            .filter(|(_, canonical)| symbols.contains(canonical))
+            .map(|(alias, _)| *alias)
+            .collect();
+        if aliases.is_empty() {
+            symbols.join(", ")
+        } else {
+            format!("{} (also written {})", symbols.join(", "), aliases.join(", "))
+        }
+    };
     if unit_text.is_empty() {
         return Err(UnitError::MissingUnit {
             text: text.trim().to_string(),
@@ -291,7 +303,11 @@ pub fn parse_any(text: &str, quantities: &[Quantity]) -> Result<(f64, Quantity),
     }
     Err(UnitError::UnknownUnit {
         unit: unit_text.to_string(),
-        quantity: quantities.first().map_or("value", |q| q.name()),
+        quantity: if quantities.is_empty() {
+            "this value".to_string()
+        } else {
+            quantities.iter().map(|q| q.name()).collect::<Vec<_>>().join(" or ")
+        },
         accepted: list(),
     })
 }

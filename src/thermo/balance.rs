@@ -81,7 +81,7 @@ pub enum SystemError {
         liq: String,
     },
     /// A reaction's key component is not consumed.
-    #[error("reaction {reaction}: key component `{component}` must be a reactant (negative coefficient)")]
+    #[error("reaction {}: key component `{component}` must be a reactant (negative coefficient)", .reaction + 1)]
     KeyNotReactant {
         /// Reaction index (0-based).
         reaction: usize,
@@ -89,7 +89,7 @@ pub enum SystemError {
         component: String,
     },
     /// A reaction does not conserve elements.
-    #[error("reaction {reaction} does not conserve elements ({detail})")]
+    #[error("reaction {} does not conserve elements ({detail})", .reaction + 1)]
     Unbalanced {
         /// Reaction index (0-based).
         reaction: usize,
@@ -113,6 +113,11 @@ pub struct System {
     pub reactions: Vec<Reaction>,
     /// Search range for the effluent temperature, K.
     pub bounds: (f64, f64),
+    /// Element symbols of the components' formulas, in order of first appearance.
+    elements: Vec<String>,
+    /// Atoms of each element per molecule, `atoms[i * elements.len() + j]`; `None` for a
+    /// component without a formula.
+    atoms: Vec<Option<Vec<f64>>>,
 }
 
 /// Default search range for the effluent temperature, K.
@@ -196,7 +201,26 @@ impl System {
             }
         }
         let psat = components.iter().map(PsatModel::for_component).collect();
-        Ok(System { components, paths, models, psat, reactions, bounds })
+        let mut elements: Vec<String> = Vec::new();
+        for f in components.iter().filter_map(|c| c.formula.as_ref()) {
+            for (el, _) in &f.0 {
+                if !elements.contains(el) {
+                    elements.push(el.clone());
+                }
+            }
+        }
+        let atoms = components
+            .iter()
+            .map(|c| {
+                c.formula.as_ref().map(|f| {
+                    elements
+                        .iter()
+                        .map(|el| f.0.iter().filter(|(e, _)| e == el).map(|(_, k)| k).sum())
+                        .collect()
+                })
+            })
+            .collect();
+        Ok(System { components, paths, models, psat, reactions, bounds, elements, atoms })
     }
 
     /// Number of components.
@@ -272,25 +296,33 @@ impl System {
 
     /// Mole fractions from fractions in a basis (normalized).
     pub fn mole_fractions(&self, fractions: &[f64], basis: Basis) -> Vec<f64> {
-        let raw: Vec<f64> = match basis {
+        let mut x: Vec<f64> = match basis {
             Basis::Mole => fractions.to_vec(),
             Basis::Mass => fractions.iter().zip(&self.components).map(|(w, c)| w / c.molar_mass).collect(),
         };
-        let total: f64 = raw.iter().sum();
-        if total == 0.0 { raw } else { raw.iter().map(|v| v / total).collect() }
+        let total: f64 = x.iter().sum();
+        if total != 0.0 {
+            for v in &mut x {
+                *v /= total;
+            }
+        }
+        x
     }
 
     /// Component molar flows (mol/s) of a feed.
     pub fn feed_flows(&self, feed: &FeedInput) -> Vec<f64> {
-        let x = self.mole_fractions(&feed.fractions, feed.basis);
+        let mut flows = self.mole_fractions(&feed.fractions, feed.basis);
         let total = match feed.flow {
             FlowValue::Molar(n) => n,
             FlowValue::Mass(m) => {
-                let mw: f64 = x.iter().zip(&self.components).map(|(x, c)| x * c.molar_mass).sum();
+                let mw: f64 = flows.iter().zip(&self.components).map(|(x, c)| x * c.molar_mass).sum();
                 if mw > 0.0 { m * 1000.0 / mw } else { 0.0 }
             }
         };
-        x.iter().map(|x| x * total).collect()
+        for v in &mut flows {
+            *v *= total;
+        }
+        flows
     }
 }
 
@@ -421,9 +453,25 @@ pub enum SolveError {
         /// The flow, mol/s.
         flow: f64,
     },
+    /// Solving for a conversion: the conversion that closes the balance is impossible.
+    #[error(
+        "the conversion of reaction {} that reproduces the effluent temperature would be {conversion:.4}, which makes the effluent flow of `{component}` negative ({flow:.6e} mol/s): no conversion explains this temperature; check the effluent temperature, the duty and the feeds",
+        .reaction + 1
+    )]
+    ImpossibleConversion {
+        /// Reaction index (0-based).
+        reaction: usize,
+        /// The conversion that would close the balance.
+        conversion: f64,
+        /// Component id.
+        component: String,
+        /// The flow, mol/s.
+        flow: f64,
+    },
     /// The key component of a reaction is absent from the feed.
     #[error(
-        "reaction {reaction}: key component `{component}` is not in any feed, so a conversion is undefined"
+        "reaction {}: key component `{component}` is not in any feed, so a conversion is undefined",
+        .reaction + 1
     )]
     NoKeyFeed {
         /// Reaction index (0-based).
@@ -433,7 +481,8 @@ pub enum SolveError {
     },
     /// The reaction is thermally neutral at T: temperature cannot reveal its conversion.
     #[error(
-        "reaction {reaction} is thermally neutral at {t:.2} K (heat of reaction {dh:.3} J/mol): its conversion cannot be inferred from temperature"
+        "reaction {} is thermally neutral at {t:.2} K (heat of reaction {dh:.3} J/mol): its conversion cannot be inferred from temperature",
+        .reaction + 1
     )]
     ThermallyNeutral {
         /// Reaction index (0-based).
@@ -860,7 +909,9 @@ impl System {
                 let scale: f64 = streams.feed_total.iter().sum();
                 for (i, &f) in streams.out_flows.iter().enumerate() {
                     if f < -1e-12 * scale {
-                        return Err(SolveError::NegativeFlow {
+                        return Err(SolveError::ImpossibleConversion {
+                            reaction: r,
+                            conversion: x,
                             component: self.components[i].id.clone(),
                             flow: f,
                         });
@@ -909,99 +960,77 @@ impl System {
     }
 
     fn element_balance(&self, outcome: &mut Outcome) {
-        let used = |flows: &[f64]| {
-            flows.iter().enumerate().filter(|(_, n)| **n != 0.0).map(|(i, _)| i).collect::<Vec<_>>()
-        };
-        let mut involved: Vec<usize> = used(&outcome.out_flows);
-        for f in &outcome.feed_flows {
-            involved.extend(used(f));
-        }
-        if involved.iter().any(|&i| self.components[i].formula.is_none()) {
+        let present =
+            |i: usize| outcome.out_flows[i] != 0.0 || outcome.feed_flows.iter().any(|f| f[i] != 0.0);
+        if (0..self.len()).any(|i| self.atoms[i].is_none() && present(i)) {
             return;
         }
-        let mut elements: Vec<(String, f64, f64)> = Vec::new();
-        let mut add = |i: usize, n: f64, out: bool| {
-            if let Some(f) = &self.components[i].formula {
-                for (el, k) in &f.0 {
-                    let pos = match elements.iter().position(|(e, _, _)| e == el) {
-                        Some(p) => p,
-                        None => {
-                            elements.push((el.clone(), 0.0, 0.0));
-                            elements.len() - 1
-                        }
-                    };
-                    if out {
-                        elements[pos].2 += n * k;
-                    } else {
-                        elements[pos].1 += n * k;
-                    }
+        let mut elements = Vec::new();
+        for (j, el) in self.elements.iter().enumerate() {
+            let (mut a_in, mut a_out) = (0.0, 0.0);
+            for (i, atoms) in self.atoms.iter().enumerate() {
+                let Some(atoms) = atoms else { continue };
+                let k = atoms[j];
+                if k != 0.0 {
+                    a_in += k * outcome.feed_flows.iter().map(|f| f[i]).sum::<f64>();
+                    a_out += k * outcome.out_flows[i];
                 }
             }
-        };
-        for flows in &outcome.feed_flows {
-            for (i, &n) in flows.iter().enumerate() {
-                if n != 0.0 {
-                    add(i, n, false);
-                }
+            if a_in == 0.0 && a_out == 0.0 {
+                continue;
             }
-        }
-        for (i, &n) in outcome.out_flows.iter().enumerate() {
-            if n != 0.0 {
-                add(i, n, true);
-            }
-        }
-        for (el, a_in, a_out) in &elements {
-            let rel = if *a_in != 0.0 { (a_out - a_in) / a_in } else { 0.0 };
+            let rel = if a_in != 0.0 { (a_out - a_in) / a_in } else { 0.0 };
             if rel.abs() > 1e-3 {
                 outcome.flags.push(Flag::ElementImbalance { element: el.clone(), relative: rel });
             }
+            elements.push((el.clone(), a_in, a_out));
         }
         outcome.elements = elements;
     }
 
     fn validity(&self, inputs: &Inputs, outcome: &mut Outcome) {
         let mut flags: Vec<Flag> = Vec::new();
-        let check = |i: usize, t: f64, flags: &mut Vec<Flag>| {
-            let c = &self.components[i];
-            if t >= c.tc
-                && !flags
-                    .iter()
-                    .any(|f| matches!(f, Flag::AboveCritical { component, .. } if *component == c.id))
-            {
-                flags.push(Flag::AboveCritical { component: c.id.clone(), t, tc: c.tc });
+        // Lowest and highest temperature each component is present at (feeds and effluent).
+        let mut span = vec![(f64::INFINITY, f64::NEG_INFINITY); self.len()];
+        let streams = inputs
+            .feeds
+            .iter()
+            .map(|f| f.temperature)
+            .zip(outcome.feed_flows.iter().map(Vec::as_slice))
+            .chain(std::iter::once((outcome.t_out, outcome.out_flows.as_slice())));
+        for (t, flows) in streams {
+            for ((lo, hi), &n) in span.iter_mut().zip(flows) {
+                if n > 0.0 {
+                    *lo = lo.min(t);
+                    *hi = hi.max(t);
+                }
             }
-            let (corr, range) = match self.paths[i] {
+        }
+        for ((i, c), &(t_lo, t_hi)) in self.components.iter().enumerate().zip(&span) {
+            if t_lo > t_hi {
+                continue; // absent everywhere
+            }
+            if t_hi >= c.tc {
+                flags.push(Flag::AboveCritical { component: c.id.clone(), t: t_hi, tc: c.tc });
+            }
+            let (correlation, range) = match self.paths[i] {
                 EnthalpyPath::LiquidCp => (Correlation::CpLiquid, c.liquid.as_ref().and_then(|l| l.cp_range)),
                 EnthalpyPath::IdealGasWatson => {
                     (Correlation::CpIdealGas, c.ideal_gas.as_ref().and_then(|g| g.cp_range))
                 }
             };
             if let Some((lo, hi)) = range {
-                // The integral runs from 298.15 K to T: both ends must be inside the range.
-                let (a, b) = (t.min(T_REF), t.max(T_REF));
-                let outside = a < lo || b > hi;
-                let already = flags.iter().any(|f| matches!(f, Flag::OutsideRange { component, correlation, .. } if *component == c.id && *correlation == corr));
-                if outside && !already {
-                    let worst = if b > hi { b } else { a };
+                // Each integral runs from 298.15 K to T: both ends must be inside the range.
+                let (a, b) = (t_lo.min(T_REF), t_hi.max(T_REF));
+                if a < lo || b > hi {
+                    let t = if b > hi { b } else { a };
                     flags.push(Flag::OutsideRange {
                         component: c.id.clone(),
-                        correlation: corr,
-                        t: worst,
+                        correlation,
+                        t,
                         range: (lo, hi),
                     });
                 }
-            }
-        };
-        for (feed, flows) in inputs.feeds.iter().zip(&outcome.feed_flows) {
-            for (i, &n) in flows.iter().enumerate() {
-                if n > 0.0 {
-                    check(i, feed.temperature, &mut flags);
-                }
-            }
-        }
-        for (i, &n) in outcome.out_flows.iter().enumerate() {
-            if n > 0.0 {
-                check(i, outcome.t_out, &mut flags);
             }
         }
         for (r, &x) in outcome.conversions.iter().enumerate() {

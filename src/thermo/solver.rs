@@ -92,6 +92,9 @@ impl Convergency<f64> for Conv {
     }
 }
 
+/// Subintervals of the scan for a rising crossing when the ends of the range do not bracket one.
+const SCAN_STEPS: usize = 400;
+
 /// Find the root of an increasing function `f` (returning value and derivative) in
 /// `[lo, hi]`, starting Newton's method at `guess`.
 pub fn newton_brent<F>(mut f: F, guess: f64, lo: f64, hi: f64, tol: Tolerance) -> Result<Root, RootError>
@@ -148,11 +151,31 @@ where
     if f_hi == 0.0 {
         return Ok(Root { x: b_hi, evaluations, method: Method::Brent });
     }
+    let (mut b_lo, mut b_hi) = (b_lo, b_hi);
     if f_lo.signum() == f_hi.signum() {
-        // Report the caller's range (the tightened one could mislead).
+        // Not increasing over the whole range (a correlation extrapolated far beyond its
+        // range can bend back): take the lowest rising crossing on a scan of the range.
         let f_lo0 = value(lo);
         let f_hi0 = value(hi);
-        return Err(RootError::NoBracket { lo, hi, f_lo: f_lo0, f_hi: f_hi0 });
+        let mut a = (lo, f_lo0);
+        let mut crossing = None;
+        for k in 1..=SCAN_STEPS {
+            let x = lo + (hi - lo) * k as f64 / SCAN_STEPS as f64;
+            let fx = if k == SCAN_STEPS { f_hi0 } else { value(x) };
+            if !fx.is_finite() {
+                break;
+            }
+            if a.1 < 0.0 && fx >= 0.0 {
+                crossing = Some((a.0, x));
+                break;
+            }
+            a = (x, fx);
+        }
+        match crossing {
+            Some((x0, x1)) => (b_lo, b_hi) = (x0, x1),
+            // Report the caller's range (the tightened one could mislead).
+            None => return Err(RootError::NoBracket { lo, hi, f_lo: f_lo0, f_hi: f_hi0 }),
+        }
     }
     let mut conv = Conv { xtol: tol.xtol, ftol: tol.ftol, max_iter: tol.max_brent };
     match find_root_brent(b_lo, b_hi, &mut value, &mut conv) {
@@ -182,6 +205,16 @@ mod tests {
         let r = newton_brent(|x| (x - 1.5, 0.0), 3.0, 0.0, 10.0, Tolerance::default()).unwrap();
         assert_eq!(r.method, Method::Brent);
         assert!((r.x - 1.5).abs() < 1e-9);
+    }
+
+    #[test]
+    fn finds_the_lowest_rising_crossing_of_a_function_that_bends_back() {
+        // Rises through zero at 2, peaks at 4, falls below zero again after 6: both ends of
+        // [0, 10] are negative, yet the lowest rising crossing is the physical root.
+        let f = |x: f64| (-(x - 2.0) * (x - 6.0), -2.0 * x + 8.0);
+        let r = newton_brent(f, 9.0, 0.0, 10.0, Tolerance::default()).unwrap();
+        assert_eq!(r.method, Method::Brent);
+        assert!((r.x - 2.0).abs() < 1e-9, "{r:?}");
     }
 
     #[test]

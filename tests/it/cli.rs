@@ -126,7 +126,26 @@ fn error_cases() -> Vec<(&'static str, String, usize, &'static str)> {
             "unbalanced reaction",
             format!("{GOOD_FEED}[[reaction]]\nstoichiometry = {{ methyl_acetate = -1, acetic_acid = 1, methanol = 1 }}\nkey = \"methyl_acetate\"\nconversion = 0.3\n[heater]\nduty = 1.0\n"),
             6,
-            "does not conserve elements",
+            "reaction 1 does not conserve elements",
+        ),
+        (
+            // Heating to 400 degC with 1 W would need the endothermic hydrolysis to run backwards.
+            "no conversion explains the temperature",
+            format!("{GOOD_FEED}{reaction}[heater]\nduty = 1.0\n[effluent]\ntemperature = \"400 degC\"\n[solve]\nunknown = \"conversion\"\n"),
+            11,
+            "the conversion of reaction 1 that reproduces the effluent temperature would be -",
+        ),
+        (
+            "one component named twice",
+            "[[feed]]\nflow = 1.0\ntemperature = 300.0\ncomposition = { water = 0.5, Water = 0.5 }\n[heater]\nduty = 0.0\n".into(),
+            4,
+            "`Water` names the same component as `water`",
+        ),
+        (
+            "negative bubble margin",
+            format!("[model]\npressure = \"3 bar\"\nbubble_margin = \"-5 K\"\n{GOOD_FEED}[heater]\nduty = 1.0\n"),
+            3,
+            "margin must not be negative",
         ),
         ("gauge pressure", format!("[model]\npressure = \"3 barg\"\n{GOOD_FEED}[heater]\nduty = 1.0\n"), 2, "gauge pressure"),
         (

@@ -84,6 +84,36 @@ fn beyond_critical_temperature_is_flagged() {
     assert!(report.flags.contains(&"beyond_tc:ethylene-oxide".to_string()), "{:?}", report.flags);
 }
 
+/// A liquid-Cp correlation extrapolated far beyond its range can bend back: the 2-propanol
+/// cubic (range 185-355 K) turns negative near 660 K, so at 70 kW the residual is negative at
+/// both ends of 200-1000 K. The solver takes the lowest rising crossing instead of claiming
+/// there is no root, and the flags say the result is outside the model's validity.
+/// Source: independent Python re-implementation of the balance (tools/xcheck/model.py, written
+/// from DESIGN §2 without reading this code; scipy brentq, lowest rising crossing): 601.1235284374
+/// K and 552.47 K at 60 kW.
+#[test]
+fn a_correlation_that_bends_back_still_gives_the_lowest_root() {
+    let text = |duty: &str, range: &str| {
+        format!(
+            "[model]\n{range}[[feed]]\nflow = \"1 mol/s\"\ntemperature = \"300 K\"\ncomposition = {{ 2-propanol = 1.0 }}\n[heater]\nduty = \"{duty}\"\n"
+        )
+    };
+    let report = run(&text("70 kW", ""));
+    assert!(
+        (report.effluent_temperature_k - 601.1235284374).abs() < 1e-6,
+        "{}",
+        report.effluent_temperature_k
+    );
+    for flag in ["beyond_tc:2-propanol", "range_cp_liq:2-propanol"] {
+        assert!(report.flags.iter().any(|f| f == flag), "{flag}: {:?}", report.flags);
+    }
+    // The same root when the search range excludes the bend.
+    let narrow = run(&text("70 kW", "temperature_range = [\"500 K\", \"640 K\"]\n"));
+    assert!((narrow.effluent_temperature_k - report.effluent_temperature_k).abs() < 1e-8);
+    let lower = run(&text("60 kW", ""));
+    assert!((lower.effluent_temperature_k - 552.47).abs() < 0.01, "{}", lower.effluent_temperature_k);
+}
+
 fn hydrolysis(duty: f64, conversion: Option<f64>, solve: &str, t_meas: Option<f64>, path: &str) -> String {
     let mut s = format!(
         "[model]\nenthalpy = \"{path}\"\n[[feed]]\nflow = \"38 kmol/h\"\ntemperature = \"48 degC\"\ncomposition = {{ water = 0.66, methyl_acetate = 0.29, methanol = 0.05 }}\n[[feed]]\nflow = \"2.5 t/h\"\ntemperature = \"30 degC\"\ncomposition = {{ water = 1.0 }}\n[[reaction]]\nstoichiometry = {{ methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }}\nkey = \"methyl_acetate\"\n"
