@@ -447,9 +447,17 @@ impl Case {
         let mut feeds = Vec::new();
         let mut echo = Echo::default();
         let mut uncertain = Vec::new();
+        let mut labels: Vec<String> = Vec::new();
         for (j, f) in raw.feed.iter().enumerate() {
             let key = KeyPath::keys("feed").index(j);
             let label = f.name.clone().unwrap_or_else(|| format!("feed {}", j + 1));
+            if let Some(first) = labels.iter().position(|l| l.trim() == label.trim()) {
+                ck.err(
+                    &key.key("name"),
+                    format!("feed {} is also called `{label}`: give each feed its own name", first + 1),
+                );
+            }
+            labels.push(label.clone());
             let flow = match &f.flow {
                 None => {
                     ck.err(&key, "flow is required");
@@ -699,6 +707,14 @@ impl Case {
                 Unknown::Temperature
             }
         };
+        if let Unknown::Conversion(r) = unknown
+            && raw.reaction.get(r).is_some_and(|re| re.conversion_uncertainty.is_some())
+        {
+            ck.err(
+                &KeyPath::keys("reaction").index(r).key("conversion_uncertainty"),
+                "this conversion is the unknown: it has no input uncertainty",
+            );
+        }
         if let Some(u) = &heater.duty_uncertainty {
             if unknown == Unknown::Duty {
                 ck.err(

@@ -147,6 +147,18 @@ fn error_cases() -> Vec<(&'static str, String, usize, &'static str)> {
             3,
             "margin must not be negative",
         ),
+        (
+            "two feeds with one name",
+            format!("{GOOD_FEED}name = \"recycle\"\n{GOOD_FEED}name = \"recycle\"\n[heater]\nduty = 1.0\n"),
+            10,
+            "feed 1 is also called `recycle`",
+        ),
+        (
+            "uncertainty of the conversion being solved for",
+            format!("{GOOD_FEED}{reaction}conversion_uncertainty = 0.02\n[heater]\nduty = 1.0\n[effluent]\ntemperature = 340.0\n[solve]\nunknown = \"conversion\"\n"),
+            8,
+            "this conversion is the unknown",
+        ),
         ("gauge pressure", format!("[model]\npressure = \"3 barg\"\n{GOOD_FEED}[heater]\nduty = 1.0\n"), 2, "gauge pressure"),
         (
             "conversion with nothing to solve",

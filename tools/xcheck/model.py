@@ -276,14 +276,21 @@ def calc(case: dict) -> dict:
     evals = []   # (temperature, components evaluated there) for the validity flags
     H_in = 0.0
     m_in = 0.0
+    feed_ctx = []   # per feed, what the uncertainty propagation needs
     for i, f in enumerate(case["feed"]):
         x = fractions(f["composition"], f.get("basis", "mole"), comps, f.get("normalize", False),
                       f"feed[{i + 1}].composition")
         F, q = conv(f["flow"], "molar_flow", "mass_flow")
+        F_given = F
         if q == "mass_flow":
             mbar = sum(x[k] * comps[k].molar_mass for k in x) / 1000.0  # kg/mol
             F = F / mbar
         Tf = conv(f["temperature"], "temperature")[0]
+        s_raw = sum(float(v) for v in f["composition"].values())
+        feed_ctx.append({"raw": f, "index": i, "flow_quantity": q, "flow_given": F_given, "flow_mol_s": F,
+                         "T": Tf, "basis": f.get("basis", "mole"),
+                         "written": {norm_id(k): k for k in f["composition"]},
+                         "w": {norm_id(k): float(v) / s_raw for k, v in f["composition"].items()}})
         evals.append((Tf, {k for k, v in x.items() if v > 0}))
         for k, v in x.items():
             n_in[k] += F * v
@@ -313,9 +320,13 @@ def calc(case: dict) -> dict:
     result = {"enthalpy_path": dict(path)}
     conversions = None
     solve_idx = None
+    eff_ctx = None
     if "composition" in eff:
         x = fractions(eff["composition"], eff.get("basis", "mole"), comps, eff.get("normalize", False),
                       "effluent.composition")
+        s_raw = sum(float(v) for v in eff["composition"].values())
+        eff_ctx = {"basis": eff.get("basis", "mole"), "written": {norm_id(k): k for k in eff["composition"]},
+                   "w": {norm_id(k): float(v) / s_raw for k, v in eff["composition"].items()}}
         mbar = sum(x[k] * comps[k].molar_mass for k in x) / 1000.0
         Ft = m_in / mbar
         n_out = {k: Ft * x.get(k, 0.0) for k in ids}
@@ -382,6 +393,18 @@ def calc(case: dict) -> dict:
     F_out = sum(n_out.values())
     evals.append((T_out, {k for k, v in n_out.items() if v > 0}))
     result["_evals"] = evals
+    # spelling of each id in the labels: its first occurrence in the feeds, then in the effluent (observed)
+    display = {}
+    for f in case["feed"]:
+        for k in f["composition"]:
+            display.setdefault(norm_id(k), k)
+    for k in eff.get("composition", {}):
+        display.setdefault(norm_id(k), k)
+    result["_ctx"] = {"display": display, "H": H, "Cp": Cp, "comps": comps, "feeds": feed_ctx, "eff": eff_ctx, "n_in": n_in,
+                      "n_out": n_out, "m_in": m_in, "stoich": stoich, "keys": keys,
+                      "conversions": list(conversions) if conversions is not None else None,
+                      "solve_idx": solve_idx, "unknown": unknown, "T_out": T_out, "Q": Q, "Q_loss": Q_loss,
+                      "reactions": reactions}
     result["_comps"] = comps
     result["effluent_temperature_k"] = T_out
     result["duty_w"] = Q
@@ -441,3 +464,216 @@ def bubble_point(comps, x, P):
             return brentq(f, prev[0], T, xtol=1e-13, rtol=4 * 2.220446049250313e-16, maxiter=500)
         prev = (T, v)
     return None
+
+
+# ----------------------------------------------------------------------------------------------
+# Uncertainty propagation (GUM, JCGM 100:2008, eq. 10: first order, inputs uncorrelated)
+# ----------------------------------------------------------------------------------------------
+# The balance is written as the needed-duty residual
+#     f(y, x) = Qn(x, T_out, X) - Q,    Qn = H_out(T_out) - H_in + Q_loss,
+# and the unknown y (T_out, Q or the key conversion X_s) has dy/dx = -(df/dx)/(df/dy) with
+#     df/dT_out = sum_k n_out,k Cp_k(T_out),  df/dQ = -1,
+#     df/dX_s = (n_in,key/(-nu_key)) sum_i nu_i H_i(T_out).
+# Every partial derivative below is analytic, except the derivative of the composition -> molar-flow
+# map, which is taken by complex step (Squire and Trapp 1998: exact to rounding, no subtraction).
+
+CSTEP = 1e-20
+
+# mutation hooks for the self-test (xcheck.py --self-test); the defaults are the documented conventions
+UNC_OPTS = {"rescale_others": True, "relative_flow_in_mol_s": False, "scalar_comp_on_all": False,
+            "mass_flow_sensitivity_per_mol": False}
+
+
+def temperature_difference(v):
+    """A temperature *difference* (uncertainties, margins): degC = K, degF = degR = 5/9 K."""
+    if not isinstance(v, str):
+        return float(v)
+    num, unit = split_unit(v)
+    return num * UNITS["temperature"][unit][0]
+
+
+def _relative(v):
+    if isinstance(v, str):
+        m = re.fullmatch(r"\s*([-+0-9.eE]+)\s*%\s*", v)
+        if m:
+            return float(m.group(1)) / 100.0
+    return None
+
+
+def _abs_or_rel(v, value, quantity):
+    r = _relative(v)
+    if r is not None:
+        return r * abs(value)
+    return conv(v, quantity)[0]
+
+
+def _direction(w, i):
+    """Perturbation direction in fraction space: x_i moves by +1, the other fractions are rescaled
+    proportionally so that the sum is unchanged."""
+    d = {k: 0.0 for k in w}
+    d[i] = 1.0
+    others = sum(v for k, v in w.items() if k != i)
+    if UNC_OPTS["rescale_others"] and others > 0.0:
+        for k, v in w.items():
+            if k != i:
+                d[k] = -v / others
+    return d
+
+
+def _mole_fractions(w, basis, comps):
+    """given-basis fractions (may be complex) -> mole fractions, normalised."""
+    if basis == "mass":
+        y = {k: v / comps[k].molar_mass for k, v in w.items()}
+    else:
+        y = dict(w)
+    s = sum(y.values())
+    return {k: v / s for k, v in y.items()}
+
+
+def _cstep(fun, w, d):
+    """directional derivative of fun (dict -> dict or scalar) at w along d, by complex step."""
+    wc = {k: complex(v, CSTEP * d[k]) for k, v in w.items()}
+    r = fun(wc)
+    if isinstance(r, dict):
+        return {k: v.imag / CSTEP for k, v in r.items()}
+    return r.imag / CSTEP
+
+
+def uncertainty(case: dict, res: dict):
+    """The uncertainty budget of a result of calc(); None when no input uncertainty is given.
+    Returns {quantity, standard_uncertainty, dominant_input, contributions: [...]} with the labels
+    efftemp uses: '<feed> flow|temperature', '<feed> <id as written> fraction', 'reaction N conversion',
+    'effluent temperature', 'effluent <id as written> fraction', 'heater duty', 'heat loss'
+    (<feed> = the feed's name, else 'feed N')."""
+    c = res["_ctx"]
+    H, Cp, comps = c["H"], c["Cp"], c["comps"]
+    unknown, T_out = c["unknown"], c["T_out"]
+    n_out, n_in = c["n_out"], c["n_in"]
+    M = {k: comps[k].molar_mass / 1000.0 for k in comps}      # kg/mol
+    Hout = {k: H(k, T_out) for k in comps}
+    Cp_out = sum(v * Cp(k, T_out) for k, v in n_out.items())
+    stoich, keys, X = c["stoich"], c["keys"], c["conversions"]
+    eff = c["eff"]
+
+    # g_k = dH_out/dn_in,k at fixed T_out and fixed conversions
+    if eff is not None:
+        x_out = _mole_fractions(eff["w"], eff["basis"], comps)
+        h_mass = sum(x_out[k] * Hout[k] for k in x_out) / sum(x_out[k] * M[k] for k in x_out)   # J/kg
+        g = {k: M[k] * h_mass for k in comps}
+    else:
+        g = dict(Hout)
+        for nu, key, Xr in zip(stoich, keys, X or []):
+            dH = sum(v * Hout[k] for k, v in nu.items())
+            g[key] += Xr / (-nu[key]) * dH
+
+    def dQn_dX(r):
+        nu, key = stoich[r], keys[r]
+        return n_in[key] / (-nu[key]) * sum(v * Hout[k] for k, v in nu.items())
+
+    # df/dy
+    if unknown == "temperature":
+        dfdy, quantity = Cp_out, "effluent_temperature_k"
+    elif unknown == "duty":
+        dfdy, quantity = -1.0, "duty_w"
+    else:
+        dfdy, quantity = dQn_dX(c["solve_idx"]), "conversion"
+
+    items = []   # (label, value, u, df/dx)
+
+    def coef_fun(fc):
+        basis, mass_flow = fc["basis"], fc["flow_quantity"] == "mass_flow"
+        def fun(w):
+            x = _mole_fractions(w, basis, comps)
+            if mass_flow:
+                mbar = sum(x[k] * M[k] for k in x)
+                return {k: v / mbar for k, v in x.items()}
+            return x
+        return fun
+
+    for fc in c["feeds"]:
+        f = fc["raw"]
+        label = f.get("name") or f"feed {fc['index'] + 1}"
+        Tf = fc["T"]
+        fun = coef_fun(fc)
+        a = {k: v.real for k, v in fun({k: complex(v) for k, v in fc["w"].items()}).items()}
+        n_j = {k: fc["flow_mol_s"] * _mole_fractions(fc["w"], fc["basis"], comps)[k] for k in fc["w"]}
+        if "flow_uncertainty" in f:
+            v = f["flow_uncertainty"]
+            q = fc["flow_quantity"]
+            rel = _relative(v)
+            if rel is not None:
+                u = rel * abs(fc["flow_given"])
+                if UNC_OPTS["relative_flow_in_mol_s"] and q == "mass_flow":
+                    u = rel * fc["flow_mol_s"]
+            else:
+                u = conv(v, q)[0]
+            dfdx = sum(a[k] * (g[k] - H(k, Tf)) for k in a)
+            value = fc["flow_given"]
+            if UNC_OPTS["mass_flow_sensitivity_per_mol"] and q == "mass_flow":
+                k_ = fc["flow_mol_s"] / fc["flow_given"]          # mol per kg
+                value, u, dfdx = fc["flow_mol_s"], u * k_, dfdx / k_
+            items.append((f"{label} flow", value, u, dfdx, ("feed", fc["index"], "flow")))
+        if "temperature_uncertainty" in f:
+            u = temperature_difference(f["temperature_uncertainty"])
+            dfdx = -sum(v * Cp(k, Tf) for k, v in n_j.items())
+            items.append((f"{label} temperature", Tf, u, dfdx, ("feed", fc["index"], "temperature")))
+        if "composition_uncertainty" in f:
+            cu = f["composition_uncertainty"]
+            if isinstance(cu, dict):
+                sel = [(norm_id(k), float(v)) for k, v in cu.items()]
+            else:
+                sel = [(k, float(cu)) for k, v in fc["w"].items()
+                       if UNC_OPTS["scalar_comp_on_all"] or 0.0 < v < 1.0]
+            for k, u in sel:
+                da = _cstep(fun, fc["w"], _direction(fc["w"], k))
+                dfdx = fc["flow_given"] * sum(da[j] * (g[j] - H(j, Tf)) for j in da)
+                items.append((f"{label} {c['display'][k]} fraction", fc["w"][k], u, dfdx,
+                              ("feed", fc["index"], "fraction", k)))
+
+    for r, rx in enumerate(c["reactions"]):
+        if "conversion_uncertainty" in rx and r != c["solve_idx"]:
+            v = rx["conversion_uncertainty"]
+            rel = _relative(v)
+            u = rel * abs(X[r]) if rel is not None else float(v)
+            items.append((f"reaction {r + 1} conversion", X[r], u, dQn_dX(r), ("reaction", r)))
+
+    effl = case.get("effluent", {})
+    if "temperature_uncertainty" in effl and unknown != "temperature":
+        items.append(("effluent temperature", T_out, temperature_difference(effl["temperature_uncertainty"]),
+                      Cp_out, ("effluent", "temperature")))
+    if eff is not None and "composition_uncertainty" in effl:
+        cu = effl["composition_uncertainty"]
+        if isinstance(cu, dict):
+            sel = [(norm_id(k), float(v)) for k, v in cu.items()]
+        else:
+            sel = [(k, float(cu)) for k, v in eff["w"].items() if UNC_OPTS["scalar_comp_on_all"] or 0.0 < v < 1.0]
+
+        def hmass(w):
+            x = _mole_fractions(w, eff["basis"], comps)
+            return sum(x[k] * Hout[k] for k in x) / sum(x[k] * M[k] for k in x)
+        for k, u in sel:
+            dfdx = c["m_in"] * _cstep(hmass, eff["w"], _direction(eff["w"], k))
+            items.append((f"effluent {c['display'][k]} fraction", eff["w"][k], u, dfdx, ("effluent", "fraction", k)))
+
+    heater = case.get("heater", {})
+    if "duty_uncertainty" in heater and unknown != "duty":
+        Q = c["Q"]
+        items.append(("heater duty", Q, _abs_or_rel(heater["duty_uncertainty"], Q, "heat_flow"), -1.0, ("heater", "duty")))
+    if "heat_loss_uncertainty" in heater:
+        QL = c["Q_loss"]
+        items.append(("heat loss", QL, _abs_or_rel(heater["heat_loss_uncertainty"], QL, "heat_flow"), 1.0,
+                      ("heater", "heat_loss")))
+
+    if not items:
+        return None
+    contribs = []
+    for label, value, u, dfdx, where in items:
+        s = -dfdx / dfdy
+        contribs.append({"input": label, "value": value, "standard_uncertainty": u, "sensitivity": s,
+                         "contribution": abs(s) * u, "_where": where})
+    tot2 = sum(cc["contribution"] ** 2 for cc in contribs)
+    for cc in contribs:
+        cc["share"] = cc["contribution"] ** 2 / tot2 if tot2 > 0 else 0.0
+    dom = max(contribs, key=lambda cc: cc["contribution"])["input"] if tot2 > 0 else None
+    return {"quantity": quantity, "standard_uncertainty": math.sqrt(tot2), "dominant_input": dom,
+            "contributions": contribs}

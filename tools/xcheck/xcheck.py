@@ -1,7 +1,8 @@
 #!/usr/bin/env python3
-"""Cross-check `efftemp calc CASE.toml --json` against an independent Python model (model.py).
+"""Cross-check `efftemp calc CASE.toml --json` against an independent Python model (model.py),
+including the first-order uncertainty budget (model.uncertainty, compared in compare_uncertainty).
 
-    python3 tools/xcheck/xcheck.py --efftemp target/release/efftemp [--n 400] [--seed 20240611]
+    python3 tools/xcheck/xcheck.py --efftemp target/release/efftemp [--n 360] [--n-unc 180] [--seed 20240611]
 
 Writes every generated case to <out>/cases/, a machine-readable summary to <out>/summary.json and
 every disagreement (case TOML, our value, efftemp's value) to <out>/disagreements.txt.
@@ -528,6 +529,120 @@ def gen_options(rng, unknown):
     return c
 
 
+# --------------------------------------------------------------------------------------------
+# uncertainty cases: a random case of the kinds above, decorated with input standard uncertainties
+# --------------------------------------------------------------------------------------------
+FEED_NAMES = ["ester recycle", "process water", "Fresh Feed #2", "makeup", "R-204 inlet", "solvent"]
+
+
+def rand_temp_u(rng):
+    u = rng.uniform(0.1, 2.0)                       # K
+    unit = rng.choice(["K", "K", "degC", "degF", "degR", None])
+    if unit is None:
+        return round(u, 4)
+    return f"{sig(u / UNITS['temperature'][unit][0], 6):.6g} {unit}"
+
+
+def rand_comp_u(rng, comp):
+    """scalar or a per-component table (ids respelled at random: the table must match by id)."""
+    if rng.random() < 0.45:
+        return round(rng.uniform(0.0005, 0.01), 5)
+    keys = list(comp)
+    pick = rng.sample(keys, k=rng.randint(1, len(keys)))
+    S = id_styler(rng)
+    return {S(norm_id(k)): round(rng.uniform(0.0005, 0.01), 5) for k in pick}
+
+
+def decorate_uncert(rng, case, unknown):
+    """add standard uncertainties to every kind of input the case has (each with some probability)."""
+    names = rng.sample(FEED_NAMES, k=len(case["feed"]))
+    solved = None
+    if unknown == "conversion":
+        solved = [i for i, r in enumerate(case.get("reaction", [])) if "conversion" not in r][0]
+    for f, nm in zip(case["feed"], names):
+        if rng.random() < 0.3:
+            f["name"] = nm
+        F, q = model.conv(f["flow"], "molar_flow", "mass_flow")
+        if rng.random() < 0.75:
+            kind = rng.choice(["rel", "rel", "abs", "plain"])
+            if kind == "rel":
+                f["flow_uncertainty"] = rng.choice(["{:.3g} %", "{:.3g}%"]).format(rng.uniform(0.2, 5.0))
+            elif kind == "abs":
+                f["flow_uncertainty"] = with_unit(rng, F * rng.uniform(0.002, 0.05), q, p_plain=0.0)
+            else:
+                f["flow_uncertainty"] = sig(F * rng.uniform(0.002, 0.05), 6)
+        if rng.random() < 0.65:
+            f["temperature_uncertainty"] = rand_temp_u(rng)
+        if rng.random() < 0.6:
+            comp = f["composition"]
+            if rng.random() < 0.15 and len(comp) < 6:
+                # a component at fraction 0 that has an uncertainty of its own (table entry)
+                extra = rng.choice([c for c in ("methanol", "ethanol", "acetone", "acetic-acid")
+                                    if c not in {norm_id(k) for k in comp}])
+                S = id_styler(rng)
+                comp[S(extra)] = 0.0
+                f["composition_uncertainty"] = {S(extra): round(rng.uniform(0.0005, 0.01), 5)}
+                if rng.random() < 0.5:
+                    k0 = rng.choice(list(comp))
+                    f["composition_uncertainty"][k0] = round(rng.uniform(0.0005, 0.01), 5)
+            else:
+                f["composition_uncertainty"] = rand_comp_u(rng, comp)
+    for i, r in enumerate(case.get("reaction", [])):
+        if i != solved and rng.random() < 0.75:
+            if rng.random() < 0.15:
+                r["conversion_uncertainty"] = f"{rng.uniform(1, 10):.3g} %"
+            else:
+                r["conversion_uncertainty"] = round(rng.uniform(0.003, 0.05), 4)
+    eff = case.get("effluent")
+    if eff is not None:
+        if "temperature" in eff and (unknown != "temperature" and rng.random() < 0.85
+                                     or unknown == "temperature" and rng.random() < 0.5):
+            eff["temperature_uncertainty"] = rand_temp_u(rng)
+        if "composition" in eff and rng.random() < 0.75:
+            cu = rand_comp_u(rng, eff["composition"])
+            if isinstance(cu, dict):
+                cu = {k: v / 4 for k, v in cu.items()}
+            else:
+                cu = cu / 4
+            eff["composition_uncertainty"] = cu
+    h = case.setdefault("heater", {})
+    if "duty" in h and unknown != "duty" and rng.random() < 0.7:
+        Q = model.conv(h["duty"], "heat_flow")[0]
+        if rng.random() < 0.5:
+            h["duty_uncertainty"] = f"{rng.uniform(0.3, 5.0):.3g} %"
+        else:
+            h["duty_uncertainty"] = with_unit(rng, abs(Q) * rng.uniform(0.005, 0.05) + 200.0, "heat_flow")
+    if "heat_loss" in h and rng.random() < 0.6:
+        QL = model.conv(h["heat_loss"], "heat_flow")[0]
+        if rng.random() < 0.4 and QL > 0:
+            h["heat_loss_uncertainty"] = f"{rng.uniform(5, 60):.3g} %"
+        else:
+            h["heat_loss_uncertainty"] = with_unit(rng, rng.uniform(200.0, 5000.0), "heat_flow")
+    elif "heat_loss" not in h and rng.random() < 0.15:
+        h["heat_loss_uncertainty"] = with_unit(rng, rng.uniform(200.0, 3000.0), "heat_flow")
+    if not any(k.endswith("_uncertainty") for tbl in [*case["feed"], *case.get("reaction", []),
+                                                      case.get("effluent", {}), h] for k in tbl):
+        case["feed"][0]["temperature_uncertainty"] = rand_temp_u(rng)
+    if not h:
+        del case["heater"]
+    return case
+
+
+UNC_BASES = {"temperature": [("reacting", 10), ("measured", 4), ("mixture", 3), ("stoich", 2), ("inline", 1)],
+             "duty": [("reacting", 8), ("measured", 5), ("mixture", 3), ("stoich", 2), ("inline", 1)],
+             "conversion": [("reacting", 8), ("stoich", 3), ("inline", 1)]}
+
+
+def gen_uncert(rng, unknown, gens):
+    kinds = [k for k, w in UNC_BASES[unknown] for _ in range(w)]
+    kind = rng.choice(kinds)
+    c = gens[kind](rng, unknown)
+    if unknown == "conversion" and not any("conversion" not in r for r in c.get("reaction", [])):
+        raise CaseError("no conversion unknown")
+    c["_base"] = kind
+    return decorate_uncert(rng, c, unknown)
+
+
 def edge_cases():
     """hand-made cases: liquid-path roots above Tc where an extrapolated DIPPR-100 Cp turns negative at
     higher T (H(T) not monotone on 200-1000 K)."""
@@ -836,6 +951,7 @@ class Stats:
         self.maxdiff = defaultdict(float)
         self.where = {}
         self.n_cmp = defaultdict(int)
+        self.notes = []
 
     def note(self, q, d, name):
         self.n_cmp[q] += 1
@@ -912,6 +1028,8 @@ def compare(case, ours, js, stats, name):
             jr.get("heat_of_reaction_outlet_j_mol"), "abs", 1e-3 + 0.0)
     if "element_balance" in ours and js.get("element_balance"):
         for el, (fi, fo) in ours["element_balance"].items():
+            if fi == 0.0 and fo == 0.0 and el not in js["element_balance"]:
+                continue     # efftemp leaves out elements with no flow (only from components at fraction 0)
             je = js["element_balance"].get(el, {})
             chk("element_balance.feed_mol_s", fi, je.get("feed_mol_s"), "rel", 1e-9)
             chk("element_balance.effluent_mol_s", fo, je.get("effluent_mol_s"), "rel", 1e-9)
@@ -929,7 +1047,217 @@ def compare(case, ours, js, stats, name):
                 abs(tb - ours["effluent_temperature_k"]), abs(tb - ours["effluent_temperature_k"] - ours.get("_margin", 10.0))) < 1e-6:
             continue
         bad.append(("flag " + fl, fl in exp, fl in got, "validity flag differs"))
+    bad += compare_uncertainty(case, ours, js, stats, name)
     return bad
+
+
+# uncertainty tolerances (brief)
+TOL_U_REL = 1e-5       # sensitivity, contribution, standard_uncertainty: relative ...
+TOL_U_ABS = 1e-9       # ... or absolute when tiny
+TOL_SHARE = 1e-6       # share, absolute
+TOL_U_INPUT = 1e-9     # value and standard uncertainty of each input (parsing), relative
+TOL_U_IMMATERIAL = 1e-8   # see compare_uncertainty: near-cancelling sensitivities
+
+
+def compare_uncertainty(case, ours, js, stats, name):
+    bad = []
+    try:
+        ub = model.uncertainty(case, ours)
+    except CaseError as e:
+        return [("uncertainty", f"error: {e}", js.get("uncertainty"), "our model rejects the uncertainties")]
+    ju = js.get("uncertainty")
+    jt = js.get("temperature_uncertainty_k")
+    stats.n_cmp["uncertainty present/absent"] += 1
+    if ub is None or ju is None:
+        if (ub is None) != (ju is None):
+            bad.append(("uncertainty", ub and ub["standard_uncertainty"], ju and ju.get("standard_uncertainty"),
+                        "budget on one side only"))
+        if jt is not None:
+            bad.append(("temperature_uncertainty_k", None, jt, "present without a budget"))
+        return bad
+    stats.n_cmp["uncertainty budgets"] += 1
+
+    def near(a, b, tol_rel, tol_abs):
+        return abs(a - b) <= tol_abs or abs(a - b) <= tol_rel * max(abs(a), abs(b))
+
+    def chk(q, a, b, tol_rel, tol_abs):
+        if not isinstance(b, (int, float)) or isinstance(b, bool):
+            bad.append((q, a, b, "missing or not a number")); return
+        d = abs(a - b)
+        r = d / max(abs(a), abs(b)) if d > 0 else 0.0
+        stats.note(q + " (abs)", d, name)
+        if d > tol_abs:
+            stats.note(q + " (rel, where abs > tol)", r, name)
+        if not near(a, b, tol_rel, tol_abs):
+            bad.append((q, a, b, f"rel diff {r:.3e} > {tol_rel:g} and abs diff {d:.3e} > {tol_abs:g}"))
+
+    if ju.get("quantity") != ub["quantity"]:
+        bad.append(("uncertainty.quantity", ub["quantity"], ju.get("quantity"), "differs"))
+    chk("unc.standard_uncertainty", ub["standard_uncertainty"], ju.get("standard_uncertainty"), TOL_U_REL, 1e-12)
+    if ub["quantity"] == "effluent_temperature_k":
+        chk("temperature_uncertainty_k", ub["standard_uncertainty"], jt, TOL_U_REL, 1e-12)
+    elif jt is not None:
+        bad.append(("temperature_uncertainty_k", None, jt, "present in a duty/conversion solve"))
+    jcs = {c.get("input"): c for c in ju.get("contributions") or []}
+    ocs = {c["input"]: c for c in ub["contributions"]}
+    if len(jcs) != len(ju.get("contributions") or []):
+        bad.append(("uncertainty.contributions", "unique labels", [c.get("input") for c in ju["contributions"]],
+                    "duplicate input labels"))
+    for lab in sorted(set(ocs) - set(jcs)):
+        bad.append((f"contribution '{lab}'", ocs[lab]["contribution"], None, "missing in efftemp"))
+    for lab in sorted(set(jcs) - set(ocs)):
+        bad.append((f"contribution '{lab}'", None, jcs[lab].get("contribution"), "not expected by our model"))
+    for lab in sorted(set(ocs) & set(jcs)):
+        o, j = ocs[lab], jcs[lab]
+        stats.n_cmp["unc.contributions matched"] += 1
+        n0 = len(bad)
+        chk("unc.value", o["value"], j.get("value"), TOL_U_INPUT, 1e-12)
+        chk("unc.input_standard_uncertainty", o["standard_uncertainty"], j.get("standard_uncertainty"),
+            TOL_U_INPUT, 1e-15)
+        for q in ("sensitivity", "contribution"):
+            a_, b_ = o[q], j.get(q)
+            if isinstance(b_, (int, float)) and not near(a_, b_, TOL_U_REL, TOL_U_ABS):
+                # near-cancelling sensitivity: efftemp's finite difference has an absolute error set by
+                # the size of the terms that cancel. Accepted (and listed) when the error it makes in the
+                # contribution is below TOL_U_IMMATERIAL of the combined standard uncertainty.
+                dc = abs(a_ - b_) * (o["standard_uncertainty"] if q == "sensitivity" else 1.0)
+                if dc <= TOL_U_IMMATERIAL * ub["standard_uncertainty"]:
+                    r = abs(a_ - b_) / max(abs(a_), abs(b_))
+                    stats.note(f"unc.{q} (rel, accepted as immaterial)", r, name)
+                    stats.notes.append((name, lab, q, a_, b_, f"rel {r:.2e}; error in the contribution "
+                                        f"{dc:.2e} = {dc / ub['standard_uncertainty']:.1e} of u_c"))
+                    continue
+            chk("unc." + q, a_, b_, TOL_U_REL, TOL_U_ABS)
+        chk("unc.share", o["share"], j.get("share"), 0.0, TOL_SHARE)
+        for k in range(n0, len(bad)):
+            bad[k] = (f"{bad[k][0]} ['{lab}']",) + bad[k][1:]
+    # dominant input: exact, unless our two largest contributions tie (to 1e-6 relative)
+    stats.n_cmp["unc.dominant_input"] += 1
+    if ju.get("dominant_input") != ub["dominant_input"]:
+        cs = sorted(ub["contributions"], key=lambda c: -c["contribution"])
+        tie = (len(cs) > 1 and cs[0]["contribution"] > 0
+               and cs[1]["contribution"] >= cs[0]["contribution"] * (1 - 1e-6)
+               and ju.get("dominant_input") in {c["input"] for c in cs
+                                                if c["contribution"] >= cs[0]["contribution"] * (1 - 1e-6)})
+        if tie:
+            stats.n_cmp["unc.dominant_input ties"] += 1
+        else:
+            bad.append(("uncertainty.dominant_input", ub["dominant_input"], ju.get("dominant_input"), "differs"))
+    if FD_CHECK["on"]:
+        bad += fd_check(case, ours, ub, stats, name)
+    return bad
+
+
+# --- internal check of OUR analytic sensitivities: central differences (Richardson-extrapolated) of
+# our full model re-solved with the input perturbed in the case file itself. The composition rule is
+# coded here a second time (not through model._direction).
+FD_CHECK = {"on": True}
+TOL_FD = 1e-6
+
+
+def _perturbed(base, where, x0, delta):
+    c = copy.deepcopy(base)
+    v = x0 + delta
+    if where[0] == "feed":
+        f = c["feed"][where[1]]
+        if where[2] == "flow":
+            q = model.conv(f["flow"], "molar_flow", "mass_flow")[1]
+            f["flow"] = f"{v!r} {'mol/s' if q == 'molar_flow' else 'kg/s'}"
+        elif where[2] == "temperature":
+            f["temperature"] = v
+        else:
+            f["composition"] = _perturb_fracs(f["composition"], where[3], delta)
+            f["normalize"] = True
+    elif where[0] == "reaction":
+        c["reaction"][where[1]]["conversion"] = v
+    elif where == ("effluent", "temperature"):
+        c["effluent"]["temperature"] = v
+    elif where[0] == "effluent":
+        c["effluent"]["composition"] = _perturb_fracs(c["effluent"]["composition"], where[2], delta)
+        c["effluent"]["normalize"] = True
+    elif where == ("heater", "duty"):
+        c["heater"]["duty"] = v
+    elif where == ("heater", "heat_loss"):
+        c["heater"]["heat_loss"] = v
+    else:
+        raise AssertionError(where)
+    return c
+
+
+def _perturb_fracs(comp, k, delta):
+    s = sum(float(v) for v in comp.values())
+    w = {key: float(v) / s for key, v in comp.items()}
+    kk = [key for key in w if norm_id(key) == k][0]
+    rest = 1.0 - w[kk]
+    out = {}
+    for key, v in w.items():
+        if key == kk:
+            out[key] = v + delta
+        else:
+            out[key] = v * (rest - delta) / rest if rest > 0 else v
+    return out
+
+
+def fd_check(case, ours, ub, stats, name):
+    ykey = ub["quantity"]
+    bad = []
+    for cc in ub["contributions"]:
+        where, x0 = cc["_where"], cc["value"]
+        is_frac = "fraction" in where
+        if "flow" in where:
+            scale = 0.0
+        elif "temperature" in where:
+            scale = 100.0
+        elif where[0] == "heater":
+            scale = 1e3
+        else:                       # fractions, conversions
+            scale = 1.0
+        h = 1e-4 * max(abs(x0), scale)
+        if is_frac and 0.0 < x0 < 1.0:
+            h = min(h, 0.01 * x0, 0.01 * (1.0 - x0))
+        base = copy.deepcopy(case)
+        if ykey == "effluent_temperature_k":
+            # a narrow search range around the root (the 1 K scan from 200 K is the slow part)
+            T, w = ours["effluent_temperature_k"], 3.0 + 3.0 * abs(cc["sensitivity"]) * h
+            base.setdefault("model", {})["temperature_range"] = [T - w, T + w]
+
+        def y(d):
+            return model.calc(_perturbed(base, where, x0, d))[ykey]
+        d = None
+        for _ in range(3):
+            try:
+                d = _fd(y, x0, h, is_frac)
+                break
+            except CaseError as e:      # e.g. a negative effluent flow: a smaller step
+                err, h = e, h / 10
+        if d is None:
+            bad.append((f"internal-fd ['{cc['input']}']", cc["sensitivity"], str(err), "our finite difference failed"))
+            continue
+        a = cc["sensitivity"]
+        diff = abs(a - d)
+        r = diff / max(abs(a), abs(d)) if diff > 0 else 0.0
+        immaterial = diff * cc["standard_uncertainty"] <= 1e-10 * ub["standard_uncertainty"]
+        stats.note("internal: analytic vs finite-difference sensitivity (rel)", r if diff > 1e-12 and not immaterial
+                   else 0.0, name)
+        if not (diff <= 1e-12 or r <= TOL_FD or immaterial):
+            bad.append((f"internal-fd ['{cc['input']}']", a, d, f"our analytic vs our finite difference: rel {r:.3e}"))
+    return bad
+
+
+def _fd(y, x0, h, is_frac):
+    """Richardson-extrapolated central difference; one-sided (second order, then extrapolated) for a
+    fraction at 0 or next to 1."""
+    if is_frac and x0 - h <= 0.0:
+        y0 = y(0.0)
+        fwd = lambda hh: (-3 * y0 + 4 * y(hh) - y(2 * hh)) / (2 * hh)
+        return (4 * fwd(h / 2) - fwd(h)) / 3
+    if is_frac and x0 + h >= 1.0 and x0 < 1.0:
+        y0 = y(0.0)
+        bwd = lambda hh: (3 * y0 - 4 * y(-hh) + y(-2 * hh)) / (2 * hh)
+        return (4 * bwd(h / 2) - bwd(h)) / 3
+    d1 = (y(h) - y(-h)) / (2 * h)
+    d2 = (y(h / 2) - y(-h / 2)) / h
+    return (4 * d2 - d1) / 3
 
 
 def norm_flag(f):
@@ -1055,6 +1383,14 @@ def _mut_psat_log10():
     return _patch_attr(model.Comp, "psat_at", ps)
 
 
+def _mut_unc(key):
+    def mk():
+        old = model.UNC_OPTS[key]
+        model.UNC_OPTS[key] = not old
+        return lambda: model.UNC_OPTS.__setitem__(key, old)
+    return mk
+
+
 MUTATIONS = {
     "Btu thermochemical (1054.350 J)": lambda: _patch_unit("heat_flow", "Btu/h", 1054.350 / 3600),
     "MMBtu/h as 1e6 Btu_th/h": lambda: _patch_unit("heat_flow", "MMBtu/h", 1054.350e6 / 3600),
@@ -1075,6 +1411,11 @@ MUTATIONS = {
     "reference temperature 298.0 K": _mut_tref,
     "heat loss sign flipped": _mut_heat_loss_sign,
     "psat 0.1 % high": _mut_psat_log10,
+    # uncertainty conventions
+    "u: fraction perturbed without rescaling the others": _mut_unc("rescale_others"),
+    "u: relative flow u of a mass flow taken in mol/s": _mut_unc("relative_flow_in_mol_s"),
+    "u: scalar composition u also on fractions 0 and 1": _mut_unc("scalar_comp_on_all"),
+    "u: mass-flow sensitivity per mol/s (not per kg/s)": _mut_unc("mass_flow_sensitivity_per_mol"),
 }
 
 
@@ -1087,6 +1428,7 @@ def _patch_attr_dict(d, k, v):
 def self_test(runs, out):
     """Apply each mutation to our model and count the cases whose comparison now fails."""
     res = {}
+    fd, FD_CHECK["on"] = FD_CHECK["on"], False     # only the comparison with efftemp counts here
     for name, mk in MUTATIONS.items():
         undo = mk()
         try:
@@ -1094,6 +1436,7 @@ def self_test(runs, out):
         finally:
             undo()
         res[name] = len(dis)
+    FD_CHECK["on"] = fd
     return res
 
 
@@ -1111,16 +1454,63 @@ PROBES = [
 ]
 
 
+_HYD = ('[[feed]]\nflow = "38.5 kmol/h"\ntemperature = "46.5 degC"\n'
+        'composition = { water = 0.64, methyl_acetate = 0.31, methanol = 0.05 }\n')
+_RX = ('[[reaction]]\nstoichiometry = { methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }\n'
+       'key = "methyl_acetate"\n')
+UNC_PROBES = [
+    ("probe_unc_solved_reaction_conversion_u",
+     _HYD + '[[feed]]\nflow = "2.6 t/h"\ntemperature = "28 degC"\ncomposition = { water = 1.0 }\n'
+     + _RX + 'conversion_uncertainty = 0.02\n[effluent]\ntemperature = "63.4 degC"\n'
+     'temperature_uncertainty = "0.4 K"\n[heater]\nduty = "0.142 MW"\nduty_uncertainty = "2 %"\n'
+     '[solve]\nunknown = "conversion"\n'),
+    ("probe_unc_duty_u_in_duty_solve",
+     _HYD + _RX + 'conversion = 0.4\n[effluent]\ntemperature = "63.4 degC"\n[heater]\n'
+     'duty_uncertainty = "1 kW"\n[solve]\nunknown = "duty"\n'),
+    ("probe_unc_all_zero", _HYD + 'temperature_uncertainty = "0 K"\nflow_uncertainty = "0 %"\n'
+     '[heater]\nduty = "0.142 MW"\n'),
+    ("probe_unc_molar_u_on_mass_flow", '[[feed]]\nflow = "2.6 t/h"\ntemperature = "28 degC"\n'
+     'composition = { water = 1.0 }\nflow_uncertainty = "1 kmol/h"\n[heater]\nduty = "0.145 MW"\n'),
+    ("probe_unc_table_entry_not_in_composition", _HYD + 'composition_uncertainty = { acetone = 0.01 }\n'
+     '[heater]\nduty = "0.142 MW"\n'),
+    ("probe_unc_same_feed_names", _HYD.replace("[[feed]]", '[[feed]]\nname = "recycle"')
+     + 'temperature_uncertainty = "0.5 K"\n'
+     + _HYD.replace("[[feed]]", '[[feed]]\nname = "recycle"') + 'temperature_uncertainty = "0.7 K"\n'
+     '[heater]\nduty = "0.2 MW"\n'),
+    ("probe_unc_normalized_percent_composition", '[[feed]]\nflow = "38.5 kmol/h"\ntemperature = "46.5 degC"\n'
+     'composition = { water = 64, methyl_acetate = 31, methanol = 5 }\nnormalize = true\n'
+     'composition_uncertainty = 0.004\n[heater]\nduty = "0.142 MW"\n'),
+]
+
+
+def describe_budget(rc, out, err):
+    if rc != 0:
+        return f"rc={rc}: " + (err.strip().splitlines() or [""])[0][:220]
+    js = json.loads(out)
+    u = js.get("uncertainty")
+    if u is None:
+        return "accepted, uncertainty = null"
+    parts = [f"{c['input']}: value={c['value']:.6g} u={c['standard_uncertainty']:.4g} "
+             f"sensitivity={c['sensitivity']:.6g} share={c['share']:.4g}" for c in u["contributions"]]
+    return (f"accepted: {u['quantity']} u={u['standard_uncertainty']:.6g}, dominant_input="
+            f"{json.dumps(u['dominant_input'])}; " + "; ".join(parts))
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--efftemp", required=True)
     ap.add_argument("--out", default=os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "..", "target", "xcheck"))
     ap.add_argument("--seed", type=int, default=20240611)
     ap.add_argument("--n", type=int, default=360, help="number of random cases (plus unit, reference, invalid)")
+    ap.add_argument("--n-unc", type=int, default=180,
+                    help="number of random cases with input uncertainties (a third per unknown)")
+    ap.add_argument("--no-fd-check", action="store_true",
+                    help="skip the internal finite-difference check of our own analytic sensitivities")
     ap.add_argument("--self-test", action="store_true",
                     help="also mutate our model in known ways and show that each mutation is detected")
     args = ap.parse_args()
     rng = random.Random(args.seed)
+    FD_CHECK["on"] = not args.no_fd_check
     os.makedirs(os.path.join(args.out, "cases"), exist_ok=True)
 
     # ---- build the case list
@@ -1153,6 +1543,22 @@ def main():
         c["category"] = f"{kind}/{unknown}"
         c["name"] = f"case{len(cases):04d}"
         cases.append(c)
+    # uncertainty cases, with their own random stream so that the cases above stay as they were
+    urng = random.Random(args.seed + 1)
+    unknowns = ["temperature", "duty", "conversion"]
+    n_unc = 0
+    while n_unc < args.n_unc:
+        unknown = unknowns[n_unc % 3]
+        try:
+            c = gen_uncert(urng, unknown, gens)
+            model.uncertainty(strip_meta(c), model.calc(strip_meta(c)))
+        except (CaseError, ValueError, ZeroDivisionError, OverflowError, KeyError, IndexError) as e:
+            rejected[f"uncert/{unknown}: {str(e).split(' of ')[0][:40]}"] += 1
+            continue
+        c["category"] = f"uncert/{unknown}"
+        c["name"] = f"unc{n_unc:04d}_{c.pop('_base')}"
+        cases.append(c)
+        n_unc += 1
     cases += gen_units(rng)
     cases += reference_cases()
     cases += edge_cases()
@@ -1221,6 +1627,11 @@ def main():
     lines.append("max differences observed (abs for *_k and compositions; relative otherwise):")
     for q in sorted(stats.maxdiff):
         lines.append(f"  {q:45s} {stats.maxdiff[q]:.3e}  (n={stats.n_cmp[q]}, at {stats.where[q]})")
+    if stats.notes:
+        lines.append(f"uncertainty entries outside 1e-5 rel / 1e-9 abs but accepted as immaterial finite-difference "
+                     f"error of efftemp (error in the contribution <= {TOL_U_IMMATERIAL:g} of u_c): {len(stats.notes)}")
+        for n_, lab, q, a_, b_, det in stats.notes[:20]:
+            lines.append(f"  {n_} '{lab}' {q}: ours={a_!r} efftemp={b_!r} ({det})")
     lines.append(f"enthalpy_path comparisons: {stats.n_cmp['enthalpy_path']}; flag-set comparisons: "
                  f"{stats.n_cmp['flags (set)']}")
     lines.append("efftemp solver used / keys printed as null in successful outputs:")
@@ -1244,6 +1655,11 @@ def main():
         else:
             what = f"rc={rc}: " + err.strip().splitlines()[0][:200]
         lines.append(f"  {name}: {what}")
+    for name, text in UNC_PROBES:
+        path = os.path.join(args.out, "cases", name + ".toml")
+        with open(path, "w") as f:
+            f.write(text)
+        lines.append(f"  {name}: {describe_budget(*run_tool(args.efftemp, path))}")
     if args.self_test:
         st = self_test(runs, args.out)
         lines.append("self-test: cases failing after each deliberate mutation of OUR model (0 = not detected):")
@@ -1300,6 +1716,52 @@ def feats(c, F):
         if any(norm_id(k) not in lib for k in c["components"]):
             F["inline new component"] += 1
     F["solve=" + c.get("solve", {}).get("unknown", "temperature")] += 1
+    # uncertainty inputs
+    unc = False
+    for f in c["feed"]:
+        if "flow_uncertainty" in f:
+            unc = True
+            rel = model._relative(f["flow_uncertainty"]) is not None
+            q = model.conv(f["flow"], "molar_flow", "mass_flow")[1]
+            F["u: flow_uncertainty " + ("relative" if rel else "absolute") + " on a " + q.replace("_", " ")] += 1
+        if "temperature_uncertainty" in f:
+            unc = True
+            F["u: feed temperature_uncertainty"] += 1
+        if "composition_uncertainty" in f:
+            unc = True
+            cu = f["composition_uncertainty"]
+            F["u: feed composition_uncertainty " + ("table" if isinstance(cu, dict) else "scalar")
+              + f" ({f.get('basis', 'mole')} basis)"] += 1
+            if isinstance(cu, dict) and any(float(v) == 0.0 for k, v in f["composition"].items()
+                                            if norm_id(k) in {norm_id(x) for x in cu}):
+                F["u: table entry for a fraction of 0"] += 1
+    for r in c.get("reaction", []):
+        if "conversion_uncertainty" in r:
+            unc = True
+            F["u: conversion_uncertainty " + ("relative" if isinstance(r["conversion_uncertainty"], str)
+                                              else "absolute")] += 1
+    e = c.get("effluent", {})
+    if "temperature_uncertainty" in e:
+        unc = True
+        F["u: effluent temperature_uncertainty (solve=" + c.get("solve", {}).get("unknown", "temperature") + ")"] += 1
+    if "composition_uncertainty" in e:
+        unc = True
+        F["u: effluent composition_uncertainty " + ("table" if isinstance(e["composition_uncertainty"], dict)
+                                                     else "scalar") + f" ({e.get('basis', 'mole')} basis)"] += 1
+    h = c.get("heater", {})
+    for k in ("duty_uncertainty", "heat_loss_uncertainty"):
+        if k in h:
+            unc = True
+            F[f"u: {k} " + ("relative" if model._relative(h[k]) is not None else "absolute")] += 1
+    if unc:
+        F["u: cases with uncertainties, feeds=%d" % len(c["feed"])] += 1
+        F["u: cases with uncertainties, solve=" + c.get("solve", {}).get("unknown", "temperature")] += 1
+        if any(f.get("basis") == "mass" for f in c["feed"]):
+            F["u: cases with uncertainties and a mass-basis feed"] += 1
+        if any(model.conv(f["flow"], "molar_flow", "mass_flow")[1] == "mass_flow" for f in c["feed"]):
+            F["u: cases with uncertainties and a mass flow"] += 1
+        if any(f.get("name") for f in c["feed"]):
+            F["u: cases with uncertainties and a named feed"] += 1
 
 
 if __name__ == "__main__":
