@@ -501,11 +501,24 @@ impl Case {
             );
             if let (Some(flow), Some(temperature), Some(fractions)) = (flow, temperature, fractions) {
                 if let Some(u) = &f.flow_uncertainty {
-                    let q = match flow {
-                        FlowValue::Molar(_) => Quantity::MolarFlow,
-                        FlowValue::Mass(_) => Quantity::MassFlow,
+                    let (q, other) = match flow {
+                        FlowValue::Molar(_) => (Quantity::MolarFlow, Quantity::MassFlow),
+                        FlowValue::Mass(_) => (Quantity::MassFlow, Quantity::MolarFlow),
                     };
-                    if let Some(u) = ck.uncertainty(&key.key("flow_uncertainty"), u, flow.value(), &[q]) {
+                    let ukey = key.key("flow_uncertainty");
+                    if u.si(q).is_err() && u.si(other).is_ok() {
+                        // Converting between the bases would need the composition: refuse it.
+                        ck.err(
+                            &ukey,
+                            format!(
+                                "`{}` is a {} but this feed's flow is a {}: give the uncertainty in a {} unit or as a percentage",
+                                u.as_written(),
+                                other.name(),
+                                q.name(),
+                                q.name()
+                            ),
+                        );
+                    } else if let Some(u) = ck.uncertainty(&ukey, u, flow.value(), &[q]) {
                         uncertain.push(Uncertain {
                             input: InputRef::FeedFlow(j),
                             u,

@@ -159,6 +159,12 @@ fn error_cases() -> Vec<(&'static str, String, usize, &'static str)> {
             8,
             "this conversion is the unknown",
         ),
+        (
+            "molar uncertainty on a mass flow",
+            "[[feed]]\nflow = \"2 t/h\"\ntemperature = 300.0\ncomposition = { water = 1.0 }\nflow_uncertainty = \"1 kmol/h\"\n[heater]\nduty = 0.0\n".into(),
+            5,
+            "`1 kmol/h` is a molar flow but this feed's flow is a mass flow",
+        ),
         ("gauge pressure", format!("[model]\npressure = \"3 barg\"\n{GOOD_FEED}[heater]\nduty = 1.0\n"), 2, "gauge pressure"),
         (
             "conversion with nothing to solve",
