@@ -1,6 +1,6 @@
 """Independent re-implementation of the efftemp `calc` steady-state enthalpy balance.
 
-Written from DESIGN.md sections 2 and 4.2, the README's `calc` section and the shared thermo
+Written from the product design (physics and case-file sections), the README's `calc` section and the shared thermo
 reference (gen_reference.py formulas). Published methods only: heat-of-formation method at
 298.15 K, Watson correlation, DIPPR-100 liquid Cp, DIPPR-101 vapour pressure, Raoult's law.
 """
