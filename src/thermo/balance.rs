@@ -723,6 +723,16 @@ impl System {
 
     /// Material balance. With `check`, negative effluent flows are errors.
     pub(crate) fn streams(&self, inputs: &Inputs, check: bool) -> Result<Streams, SolveError> {
+        self.streams_with(inputs, check, None)
+    }
+
+    /// [`System::streams`] with reaction `r`'s conversion replaced by `x` (`replace = Some((r, x))`).
+    fn streams_with(
+        &self,
+        inputs: &Inputs,
+        check: bool,
+        replace: Option<(usize, f64)>,
+    ) -> Result<Streams, SolveError> {
         let n = self.len();
         let feed_flows: Vec<Vec<f64>> = inputs.feeds.iter().map(|f| self.feed_flows(f)).collect();
         let mut feed_total = vec![0.0; n];
@@ -738,7 +748,10 @@ impl System {
             Effluent::Reacted { conversions: given } => {
                 let mut out = feed_total.clone();
                 for (r, reaction) in self.reactions.iter().enumerate() {
-                    let x = given.get(r).copied().flatten().unwrap_or(0.0);
+                    let x = match replace {
+                        Some((rr, x)) if rr == r => x,
+                        _ => given.get(r).copied().flatten().unwrap_or(0.0),
+                    };
                     let key_in = self.key_feed(&feed_total, r);
                     if check && key_in <= 0.0 && x != 0.0 {
                         return Err(SolveError::NoKeyFeed {
@@ -794,26 +807,16 @@ impl System {
     /// The balance residual `H_out(T) − H_in − Q + Q_loss` (W) with every quantity taken from
     /// `inputs` and the unknown set to `value`. Used for sensitivities (no flow checks).
     pub fn residual(&self, inputs: &Inputs, unknown: Unknown, value: f64) -> f64 {
-        let mut inputs = inputs.clone();
-        let t = match unknown {
-            Unknown::Temperature => value,
-            _ => inputs.effluent_temperature.unwrap_or(f64::NAN),
+        let t_meas = inputs.effluent_temperature.unwrap_or(f64::NAN);
+        let duty = inputs.duty.unwrap_or(0.0);
+        let (t, duty, replace) = match unknown {
+            Unknown::Temperature => (value, duty, None),
+            Unknown::Duty => (t_meas, value, None),
+            Unknown::Conversion(r) => (t_meas, duty, Some((r, value))),
         };
-        match unknown {
-            Unknown::Duty => inputs.duty = Some(value),
-            Unknown::Conversion(r) => {
-                if let Effluent::Reacted { conversions } = &mut inputs.effluent
-                    && let Some(c) = conversions.get_mut(r)
-                {
-                    *c = Some(value);
-                }
-            }
-            Unknown::Temperature => {}
-        }
-        match self.streams(&inputs, false) {
+        match self.streams_with(inputs, false, replace) {
             Ok(s) => {
-                self.stream_h(&s.out_flows, t) - self.inlet_enthalpy(&inputs, &s) - inputs.duty.unwrap_or(0.0)
-                    + inputs.heat_loss
+                self.stream_h(&s.out_flows, t) - self.inlet_enthalpy(inputs, &s) - duty + inputs.heat_loss
             }
             Err(_) => f64::NAN,
         }

@@ -3,9 +3,10 @@
 //!
 //! With `f(y, x) = 0` the balance residual and `y` the solved unknown (temperature, duty or
 //! conversion), the implicit function theorem gives `∂y/∂x_k = −(∂f/∂x_k)/(∂f/∂y)`. `∂f/∂y` is
-//! analytic ([`System::residual_slope`]); `∂f/∂x_k` is a central difference of the residual at
-//! the solution with step `10⁻⁴·max(|x_k|, scale_k)`, so every input (mass or molar flows,
-//! compositions in either basis, conversions) is handled by the same code.
+//! analytic ([`System::residual_slope`]). `∂f/∂x_k` is analytic for the duty, the heat loss and
+//! the temperatures; for inputs that act through the material balance (mass or molar flows,
+//! compositions in either basis, conversions) it is a central difference of the residual at the
+//! solution with step `10⁻⁴·max(|x_k|, scale_k)`.
 
 use super::balance::{Effluent, Inputs, Outcome, System};
 
@@ -180,6 +181,31 @@ fn scale_of(input: InputRef) -> f64 {
     }
 }
 
+/// `∂residual/∂x` where it has a closed form (the residual is `H_out(T) − H_in − Q + Q_loss`);
+/// `None` for flows, fractions and conversions, which go through the material balance and are
+/// differentiated numerically.
+fn analytic_partial(system: &System, inputs: &Inputs, outcome: &Outcome, input: InputRef) -> Option<f64> {
+    use super::balance::Unknown;
+    match input {
+        // The duty being solved for is not an input of the residual.
+        InputRef::Duty => Some(if outcome.unknown == Unknown::Duty { 0.0 } else { -1.0 }),
+        InputRef::HeatLoss => Some(1.0),
+        // Only duty and conversion solves evaluate the balance at the measured temperature.
+        InputRef::EffluentTemperature => {
+            Some(if outcome.unknown == Unknown::Temperature { 0.0 } else { outcome.cp_out })
+        }
+        // −(heat-capacity flow of feed j at its temperature).
+        InputRef::FeedTemperature(j) => {
+            let (feed, flows) = (inputs.feeds.get(j)?, outcome.feed_flows.get(j)?);
+            Some(-system.stream_h_cp(flows, feed.temperature).1)
+        }
+        InputRef::FeedFlow(_)
+        | InputRef::FeedFraction(..)
+        | InputRef::Conversion(_)
+        | InputRef::EffluentFraction(_) => None,
+    }
+}
+
 /// Propagate `uncertain` inputs to the unknown of `outcome`.
 pub fn propagate(
     system: &System,
@@ -200,14 +226,19 @@ pub fn propagate(
         .iter()
         .map(|item| {
             let x = value_of(inputs, item.input);
-            let h = 1e-4 * x.abs().max(scale_of(item.input));
-            perturb(&mut scratch, item.input, h);
-            let f_plus = system.residual(&scratch, unknown, y);
-            restore(&mut scratch, inputs, item.input);
-            perturb(&mut scratch, item.input, -h);
-            let f_minus = system.residual(&scratch, unknown, y);
-            restore(&mut scratch, inputs, item.input);
-            let df = (f_plus - f_minus) / (2.0 * h);
+            let df = match analytic_partial(system, inputs, outcome, item.input) {
+                Some(df) => df,
+                None => {
+                    let h = 1e-4 * x.abs().max(scale_of(item.input));
+                    perturb(&mut scratch, item.input, h);
+                    let f_plus = system.residual(&scratch, unknown, y);
+                    restore(&mut scratch, inputs, item.input);
+                    perturb(&mut scratch, item.input, -h);
+                    let f_minus = system.residual(&scratch, unknown, y);
+                    restore(&mut scratch, inputs, item.input);
+                    (f_plus - f_minus) / (2.0 * h)
+                }
+            };
             let sensitivity = if slope != 0.0 && df.is_finite() { -df / slope } else { 0.0 };
             Contribution {
                 label: item.label.clone(),
