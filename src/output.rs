@@ -130,6 +130,47 @@ pub(crate) fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<(String
 }
 
 /// An append-only dated file with a header.
+/// The local date of instants, cached for the day last asked about: one time-zone conversion
+/// per day instead of one per record.
+#[derive(Debug, Clone, Default)]
+pub struct DayCache {
+    /// `[start, end)` in ms of the cached day; empty when nothing is cached.
+    span: (i64, i64),
+    day: String,
+}
+
+impl DayCache {
+    /// Local calendar date (YYYY-MM-DD) of the instant `t_ms` (ms since the epoch).
+    pub fn day_at(&mut self, t_ms: i64, tz: &TimeZone) -> &str {
+        if !(self.span.0 <= t_ms && t_ms < self.span.1) {
+            let zoned = Timestamp::from_millisecond(t_ms).map(|ts| ts.to_zoned_datetime(tz.clone()));
+            match zoned {
+                Ok(z) => {
+                    self.day = z.strftime("%Y-%m-%d").to_string();
+                    let start = z.start_of_day().map(|d| d.timestamp().as_millisecond());
+                    let end =
+                        z.tomorrow().and_then(|d| d.start_of_day()).map(|d| d.timestamp().as_millisecond());
+                    // Without bounds, cache nothing: every call converts again.
+                    self.span = match (start, end) {
+                        (Ok(a), Ok(b)) if a <= t_ms && t_ms < b => (a, b),
+                        _ => (0, 0),
+                    };
+                }
+                Err(_) => {
+                    self.day = "invalid-date".into();
+                    self.span = (0, 0);
+                }
+            }
+        }
+        &self.day
+    }
+
+    /// Local date of the interval that ends at `end_ms` (see [`day_of`]).
+    pub fn day_of_interval(&mut self, end_ms: i64, tz: &TimeZone) -> &str {
+        self.day_at(end_ms - 1, tz)
+    }
+}
+
 struct DayFile {
     day: String,
     out: BufWriter<File>,
@@ -154,7 +195,7 @@ fn day_file<'a>(
     dir: &Path,
     prefix: &str,
     suffix: &str,
-    day: String,
+    day: &str,
     header: Option<&str>,
 ) -> io::Result<&'a mut DayFile> {
     if current.as_ref().is_some_and(|c| c.day != day) {
@@ -163,7 +204,7 @@ fn day_file<'a>(
     }
     match current {
         Some(c) => Ok(c),
-        None => Ok(current.insert(open_day(dir, &format!("{prefix}{day}{suffix}"), &day, header)?)),
+        None => Ok(current.insert(open_day(dir, &format!("{prefix}{day}{suffix}"), day, header)?)),
     }
 }
 
@@ -186,6 +227,7 @@ pub struct SoftTagWriter {
     temperature: &'static Unit,
     difference: &'static Unit,
     current: Option<DayFile>,
+    days: DayCache,
     /// End (ms) of the last interval on disk.
     pub last_written_end: Option<i64>,
 }
@@ -221,6 +263,7 @@ impl SoftTagWriter {
             temperature,
             difference,
             current: None,
+            days: DayCache::default(),
             last_written_end: last,
         })
     }
@@ -230,7 +273,7 @@ impl SoftTagWriter {
         if self.last_written_end.is_some_and(|l| ev.end_ms <= l) {
             return Ok(false);
         }
-        let day = day_of(ev.end_ms, &self.tz);
+        let day = self.days.day_of_interval(ev.end_ms, &self.tz);
         let prefix = format!("softtags-{}-", self.unit);
         let file = day_file(&mut self.current, &self.dir, &prefix, ".csv", day, Some(SOFT_TAG_HEADER))?;
         let t = self.temperature;
@@ -270,6 +313,7 @@ pub struct AlertWriter {
     unit: String,
     tz: TimeZone,
     current: Option<DayFile>,
+    days: DayCache,
     stdout: bool,
     /// Sequence number of the last event on disk.
     pub last_sequence: u64,
@@ -293,6 +337,7 @@ impl AlertWriter {
             unit: unit.to_string(),
             tz,
             current: None,
+            days: DayCache::default(),
             stdout,
             last_sequence: last,
         })
@@ -309,7 +354,7 @@ impl AlertWriter {
         if ev.sequence <= self.last_sequence {
             return Ok(false);
         }
-        let day = day_of(ev.time_ms + 1, &self.tz);
+        let day = self.days.day_at(ev.time_ms, &self.tz);
         let prefix = format!("alerts-{}-", self.unit);
         let file = day_file(&mut self.current, &self.dir, &prefix, ".jsonl", day, None)?;
         let line = serde_json::to_string(ev).map_err(io::Error::other)?;
@@ -374,6 +419,26 @@ mod tests {
         let midnight = "2026-12-01T23:00:00Z".parse::<Timestamp>().unwrap().as_millisecond();
         assert_eq!(day_of(midnight, &tz), "2026-12-01", "the interval ending at local midnight");
         assert_eq!(rfc3339(midnight, &tz), "2026-12-02T00:00:00+01:00");
+    }
+
+    /// The cached date equals the direct conversion for every 7-minute instant over the
+    /// spring-forward (23 h) and fall-back (25 h) days, walked forward and then backward.
+    #[test]
+    fn the_day_cache_agrees_with_the_direct_conversion_across_dst() {
+        let tz = TimeZone::get("Europe/Berlin").unwrap();
+        let mut cache = DayCache::default();
+        for (from, to) in [
+            ("2026-03-27T00:00:00Z", "2026-03-31T00:00:00Z"),
+            ("2026-10-23T00:00:00Z", "2026-10-27T00:00:00Z"),
+        ] {
+            let a = from.parse::<Timestamp>().unwrap().as_millisecond();
+            let b = to.parse::<Timestamp>().unwrap().as_millisecond();
+            let steps: Vec<i64> = (a..b).step_by(7 * 60_000).collect();
+            for &t in steps.iter().chain(steps.iter().rev()) {
+                assert_eq!(cache.day_at(t, &tz), day_of(t + 1, &tz), "{t}");
+                assert_eq!(cache.day_of_interval(t, &tz), day_of(t, &tz), "{t}");
+            }
+        }
     }
 
     #[test]

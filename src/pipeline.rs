@@ -23,7 +23,7 @@ use crate::ingest::tail::{
 };
 use crate::model::{Evaluation, evaluate};
 use crate::monitor::engine::Monitor;
-use crate::output::{AlertWriter, SoftTagWriter, day_of, rfc3339};
+use crate::output::{AlertWriter, DayCache, SoftTagWriter, rfc3339};
 use crate::report::IngestDay;
 use crate::state::StateDir;
 
@@ -222,6 +222,8 @@ pub struct UnitRuntime {
     /// Shift reports written in the last pass: (path, text summary).
     pub new_reports: Vec<(PathBuf, String)>,
     ingest: BTreeMap<String, IngestDay>,
+    /// Local date of the records and intervals being counted.
+    days: DayCache,
     last_end_ms: Option<i64>,
     site: Arc<SiteInfo>,
     /// Links refused at the last pass (warned about when the set changes).
@@ -296,6 +298,7 @@ impl UnitRuntime {
             new_events: Vec::new(),
             new_reports: Vec::new(),
             ingest: saved.ingest,
+            days: DayCache::default(),
             last_end_ms: saved.last_end_ms,
             site,
             refused_links: Vec::new(),
@@ -370,6 +373,7 @@ impl UnitRuntime {
             last_data_mono,
             new_reports,
             ingest,
+            days,
             last_end_ms,
             site,
             refused_links,
@@ -386,7 +390,8 @@ impl UnitRuntime {
                            io_error: &mut Option<io::Error>,
                            counters: &mut Counters,
                            last: &mut Option<Evaluation>,
-                           ingest: &mut BTreeMap<String, IngestDay>| {
+                           ingest: &mut BTreeMap<String, IngestDay>,
+                           days: &mut DayCache| {
             while io_error.is_none() {
                 let Some(closed) = assembler.close_next(quiet) else { break };
                 counters.conflicting_duplicates += u64::from(closed.conflicting_duplicates);
@@ -398,7 +403,8 @@ impl UnitRuntime {
                 ev.flags.extend(mo.flags);
                 ev.conditions.extend(mo.conditions);
                 counters.intervals += 1;
-                let today = ingest.entry(day_of(ev.end_ms, &cfg.time_zone)).or_default();
+                let today =
+                    ingest.entry(days.day_of_interval(ev.end_ms, &cfg.time_zone).to_owned()).or_default();
                 today.intervals += 1;
                 if ev.predicted_k.is_none() {
                     today.not_computed += 1;
@@ -505,7 +511,7 @@ impl UnitRuntime {
                 // Per-day data-quality counts go to the day of the newest data (this record's,
                 // or the checkpointed newest before it); none before any data was ever seen.
                 if let Some(t) = assembler.max_event() {
-                    let d = ingest.entry(day_of(t + 1, &cfg.time_zone)).or_default();
+                    let d = ingest.entry(days.day_at(t, &cfg.time_zone).to_owned()).or_default();
                     d.records += 1;
                     d.late += late;
                     for r in &rejects {
@@ -513,14 +519,14 @@ impl UnitRuntime {
                     }
                 }
                 if assembler.ready(false) {
-                    process(assembler, false, &mut io_error, counters, last, ingest);
+                    process(assembler, false, &mut io_error, counters, last, ingest, days);
                 }
             }
             TailEvent::Rejected { file, line, reason } => {
                 let (code, text) = describe_reject(&reason);
                 *counters.rejected.entry(code).or_default() += 1;
                 if let Some(t) = assembler.max_event() {
-                    let day = day_of(t + 1, &cfg.time_zone);
+                    let day = days.day_at(t, &cfg.time_zone).to_owned();
                     *ingest.entry(day).or_default().rejected.entry(code.to_string()).or_default() += 1;
                 }
                 warn!(unit = %unit_name, file = %file.path.display(), line, reason = code, "rejected: {text}");
@@ -568,7 +574,7 @@ impl UnitRuntime {
             || last_data_mono.is_some_and(|t| {
                 now_mono.saturating_sub(t) >= u64::try_from(cfg.max_wait_ms).unwrap_or(u64::MAX)
             });
-        process(assembler, quiet, &mut io_error, counters, last, ingest);
+        process(assembler, quiet, &mut io_error, counters, last, ingest, days);
         if quiet {
             // Flushed: nothing more to do until new data arrive (no timer keeps firing).
             *last_data_mono = None;

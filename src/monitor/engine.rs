@@ -1039,8 +1039,6 @@ impl Monitor {
         let (mb, ma) = (stats::median(&rb), stats::median(&ra));
         let dr = ma - mb;
         let sig_i = b.sigma_interval.max(1e-3);
-        let quiet = stats::mad_sigma(&rb) <= 3.0 * sig_i && stats::mad_sigma(&ra) <= 3.0 * sig_i;
-        let away = (ma - b.mu).abs() > (mb - b.mu).abs();
         // A step must stand out from what the step statistic does on steady data (six times
         // its robust scatter), or, for baselines without that figure, four block σ.
         let threshold = if b.step_sigma > 0.0 {
@@ -1048,7 +1046,13 @@ impl Monitor {
         } else {
             (cfg.step_z * b.sigma).max(4.0 * b.sigma).max(0.3)
         };
-        if dr.abs() < threshold || !quiet || !away {
+        // Cheapest test first: most intervals have no step.
+        if dr.abs() < threshold {
+            return;
+        }
+        let quiet = stats::mad_sigma(&rb) <= 3.0 * sig_i && stats::mad_sigma(&ra) <= 3.0 * sig_i;
+        let away = (ma - b.mu).abs() > (mb - b.mu).abs();
+        if !quiet || !away {
             return;
         }
         let dp = stats::median(&col(&|x| x.2, 20..30)) - stats::median(&col(&|x| x.2, 0..20));

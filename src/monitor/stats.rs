@@ -4,13 +4,28 @@
 
 use serde::Serialize;
 
+/// Slices up to this length are selected in a stack buffer (the per-interval windows are
+/// 3 to 30 long); longer ones are copied to the heap.
+const STACK: usize = 64;
+
 /// Median (NaN-free input).
 pub fn median(v: &[f64]) -> f64 {
-    if v.is_empty() {
+    if v.len() <= STACK {
+        let mut buf = [0.0; STACK];
+        let s = &mut buf[..v.len()];
+        s.copy_from_slice(v);
+        median_in_place(s)
+    } else {
+        median_in_place(&mut v.to_vec())
+    }
+}
+
+/// Median of `s`, reordering it.
+fn median_in_place(s: &mut [f64]) -> f64 {
+    let n = s.len();
+    if n == 0 {
         return f64::NAN;
     }
-    let mut s = v.to_vec();
-    let n = s.len();
     // Selection, not a full sort (this runs on every interval).
     let (left, mid, _) = s.select_nth_unstable_by(n / 2, f64::total_cmp);
     let upper = *mid;
@@ -25,8 +40,17 @@ pub fn median(v: &[f64]) -> f64 {
 /// Robust σ: 1.4826 × median absolute deviation (consistent for normal data).
 pub fn mad_sigma(v: &[f64]) -> f64 {
     let m = median(v);
-    let dev: Vec<f64> = v.iter().map(|x| (x - m).abs()).collect();
-    1.4826 * median(&dev)
+    if v.len() <= STACK {
+        let mut buf = [0.0; STACK];
+        let dev = &mut buf[..v.len()];
+        for (d, x) in dev.iter_mut().zip(v) {
+            *d = (x - m).abs();
+        }
+        1.4826 * median_in_place(dev)
+    } else {
+        let mut dev: Vec<f64> = v.iter().map(|x| (x - m).abs()).collect();
+        1.4826 * median_in_place(&mut dev)
+    }
 }
 
 /// Mean.
@@ -326,6 +350,27 @@ mod tests {
         let v: Vec<f64> = (0..20_000).map(|_| 3.0 + 2.0 * rng.normal()).collect();
         assert!((median(&v) - 3.0).abs() < 0.05);
         assert!((mad_sigma(&v) - 2.0).abs() < 0.05);
+    }
+
+    /// Median and MAD by selection, on the stack and on the heap, against the textbook
+    /// definition on a sorted copy (middle value, or the mean of the two middle values).
+    #[test]
+    fn median_and_mad_match_the_sorted_definition() {
+        let mut rng = Rng::new(3);
+        let sorted_median = |v: &[f64]| {
+            let mut s = v.to_vec();
+            s.sort_by(f64::total_cmp);
+            let n = s.len();
+            if n % 2 == 1 { s[n / 2] } else { 0.5 * (s[n / 2 - 1] + s[n / 2]) }
+        };
+        for n in [1, 2, 3, 4, 10, 63, 64, 65, 200] {
+            let v: Vec<f64> = (0..n).map(|_| rng.normal()).collect();
+            let m = sorted_median(&v);
+            assert_eq!(median(&v), m, "n = {n}");
+            let dev: Vec<f64> = v.iter().map(|x| (x - m).abs()).collect();
+            assert_eq!(mad_sigma(&v), 1.4826 * sorted_median(&dev), "n = {n}");
+        }
+        assert!(median(&[]).is_nan());
     }
 
     /// Source: monitoring.md §1.5 table (exact lag-1 ACF of block means of AR(1)): φ = 0.9 gives
