@@ -40,51 +40,84 @@ pub fn day_of(end_ms: i64, tz: &TimeZone) -> String {
 /// Escape a text cell for CSV: quote when needed, and defuse cells a spreadsheet would execute
 /// (leading `=`, `+`, `-`, `@`) with a leading apostrophe.
 pub fn csv_text(text: &str) -> String {
-    let defused = if text.starts_with(['=', '+', '-', '@']) { format!("'{text}") } else { text.to_string() };
-    if defused.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", defused.replace('"', "\"\""))
+    let mut out = String::new();
+    csv_text_into(&mut out, text);
+    out
+}
+
+/// [`csv_text`], appended to `out`.
+fn csv_text_into(out: &mut String, text: &str) {
+    let defuse = text.starts_with(['=', '+', '-', '@']);
+    let quote = text.contains([',', '"', '\n', '\r']);
+    if quote {
+        out.push('"');
+    }
+    if defuse {
+        out.push('\'');
+    }
+    if quote {
+        out.push_str(&text.replace('"', "\"\""));
+        out.push('"');
     } else {
-        defused
+        out.push_str(text);
     }
 }
 
-fn num(v: Option<f64>, decimals: usize) -> String {
-    match v {
-        Some(x) if x.is_finite() => fixed(x, decimals),
-        _ => String::new(),
+/// A number cell: fixed decimals, empty when absent or not finite.
+fn num_into(out: &mut String, v: Option<f64>, decimals: usize) {
+    if let Some(x) = v.filter(|x| x.is_finite()) {
+        fixed_into(out, x, decimals);
     }
 }
 
 /// `x` with `decimals` digits after the point (rounded half away from zero; no negative
 /// zero). Integer arithmetic where it is exact, which is much faster than the general float
 /// formatter; the general formatter otherwise.
+#[cfg(test)]
 fn fixed(x: f64, decimals: usize) -> String {
+    let mut out = String::new();
+    fixed_into(&mut out, x, decimals);
+    out
+}
+
+/// [`fixed`], appended to `out`.
+fn fixed_into(out: &mut String, x: f64, decimals: usize) {
+    use std::fmt::Write as _;
     const POW10: [f64; 7] = [1.0, 10.0, 100.0, 1e3, 1e4, 1e5, 1e6];
-    let Some(&scale) = POW10.get(decimals) else { return format!("{x:.decimals$}") };
-    let scaled = (x * scale).round();
-    if scaled.abs() >= 9.0e15 {
-        return format!("{x:.decimals$}");
-    }
+    let scaled = POW10.get(decimals).map(|scale| (x * scale).round());
+    let Some(scaled) = scaled.filter(|v| v.abs() < 9.0e15) else {
+        let _ = write!(out, "{x:.decimals$}");
+        return;
+    };
     #[allow(clippy::cast_possible_truncation)]
     let n = scaled as i64;
-    let digits = n.unsigned_abs().to_string();
-    let mut out = String::with_capacity(digits.len() + 3);
+    let mut buf = [0u8; 20];
+    let mut len = 0;
+    let mut v = n.unsigned_abs();
+    loop {
+        #[allow(clippy::cast_possible_truncation)]
+        let digit = (v % 10) as u8;
+        buf[len] = b'0' + digit;
+        len += 1;
+        v /= 10;
+        if v == 0 {
+            break;
+        }
+    }
+    // At least one digit before the point.
+    while len <= decimals {
+        buf[len] = b'0';
+        len += 1;
+    }
     if n < 0 {
         out.push('-');
     }
-    if decimals == 0 {
-        out.push_str(&digits);
-    } else if digits.len() > decimals {
-        let (int, frac) = digits.split_at(digits.len() - decimals);
-        out.push_str(int);
-        out.push('.');
-        out.push_str(frac);
-    } else {
-        out.push_str("0.");
-        out.extend(std::iter::repeat_n('0', decimals - digits.len()));
-        out.push_str(&digits);
+    for k in (0..len).rev() {
+        if k + 1 == decimals && decimals > 0 {
+            out.push('.');
+        }
+        out.push(char::from(buf[k]));
     }
-    out
 }
 
 /// Read the last complete line of a file, truncating a half-written tail first.
@@ -137,6 +170,8 @@ pub struct DayCache {
     /// `[start, end)` in ms of the cached day; empty when nothing is cached.
     span: (i64, i64),
     day: String,
+    /// The UTC offset (s) when it is the same all day (a 24-hour day without a transition).
+    offset_s: Option<i32>,
 }
 
 impl DayCache {
@@ -155,14 +190,38 @@ impl DayCache {
                         (Ok(a), Ok(b)) if a <= t_ms && t_ms < b => (a, b),
                         _ => (0, 0),
                     };
+                    let (a, b) = self.span;
+                    let last_offset = Timestamp::from_millisecond(b - 1)
+                        .map(|ts| ts.to_zoned_datetime(tz.clone()).offset().seconds());
+                    self.offset_s = match last_offset {
+                        Ok(o) if b - a == 86_400_000 && o == z.offset().seconds() => Some(o),
+                        _ => None,
+                    };
                 }
                 Err(_) => {
                     self.day = "invalid-date".into();
                     self.span = (0, 0);
+                    self.offset_s = None;
                 }
             }
         }
         &self.day
+    }
+
+    /// Append the RFC 3339 time of the instant `t_ms` (whole seconds, as [`rfc3339`] writes
+    /// it) to `out`, from the cached day when its offset is fixed.
+    pub fn rfc3339_into(&mut self, out: &mut String, t_ms: i64, tz: &TimeZone) {
+        use std::fmt::Write as _;
+        self.day_at(t_ms, tz);
+        let Some(offset) = self.offset_s else {
+            out.push_str(&rfc3339(t_ms, tz));
+            return;
+        };
+        let secs = (t_ms - self.span.0).div_euclid(1000);
+        let (h, m, sec) = (secs / 3600, secs / 60 % 60, secs % 60);
+        let sign = if offset < 0 { '-' } else { '+' };
+        let (oh, om) = (offset.unsigned_abs() / 3600, offset.unsigned_abs() / 60 % 60);
+        let _ = write!(out, "{}T{h:02}:{m:02}:{sec:02}{sign}{oh:02}:{om:02}", self.day);
     }
 
     /// Local date of the interval that ends at `end_ms` (see [`day_of`]).
@@ -227,7 +286,11 @@ pub struct SoftTagWriter {
     temperature: &'static Unit,
     difference: &'static Unit,
     current: Option<DayFile>,
+    /// Local dates of interval ends (for the file) and of instants (for the time column).
     days: DayCache,
+    times: DayCache,
+    /// The row being formatted (reused).
+    row: String,
     /// End (ms) of the last interval on disk.
     pub last_written_end: Option<i64>,
 }
@@ -264,6 +327,8 @@ impl SoftTagWriter {
             difference,
             current: None,
             days: DayCache::default(),
+            times: DayCache::default(),
+            row: String::with_capacity(256),
             last_written_end: last,
         })
     }
@@ -276,22 +341,29 @@ impl SoftTagWriter {
         let day = self.days.day_of_interval(ev.end_ms, &self.tz);
         let prefix = format!("softtags-{}-", self.unit);
         let file = day_file(&mut self.current, &self.dir, &prefix, ".csv", day, Some(SOFT_TAG_HEADER))?;
-        let t = self.temperature;
-        let d = self.difference;
-        let row = format!(
-            "{},{},{},{},{},{},{},{},{},{}\n",
-            rfc3339(ev.end_ms, &self.tz),
-            csv_text(&self.unit),
-            num(ev.predicted_k.map(|k| t.from_si(k)), 3),
-            num(ev.measured_k.map(|k| t.from_si(k)), 3),
-            num(ev.residual_k.map(|k| d.from_si(k)), 3),
-            num(ev.u_pred_k.map(|k| d.from_si(k)), 3),
-            num(ev.apparent_conversion, 4),
-            num(ev.effectiveness, 4),
-            csv_text(monitor_state),
-            csv_text(&ev.flags.join(";")),
-        );
-        file.out.write_all(row.as_bytes())?;
+        let (t, d) = (self.temperature, self.difference);
+        let row = &mut self.row;
+        row.clear();
+        self.times.rfc3339_into(row, ev.end_ms, &self.tz);
+        row.push(',');
+        csv_text_into(row, &self.unit);
+        for (v, decimals) in [
+            (ev.predicted_k.map(|k| t.from_si(k)), 3),
+            (ev.measured_k.map(|k| t.from_si(k)), 3),
+            (ev.residual_k.map(|k| d.from_si(k)), 3),
+            (ev.u_pred_k.map(|k| d.from_si(k)), 3),
+            (ev.apparent_conversion, 4),
+            (ev.effectiveness, 4),
+        ] {
+            row.push(',');
+            num_into(row, v, decimals);
+        }
+        row.push(',');
+        csv_text_into(row, monitor_state);
+        row.push(',');
+        csv_text_into(row, &ev.flags.join(";"));
+        row.push('\n');
+        file.out.write_all(self.row.as_bytes())?;
         self.last_written_end = Some(ev.end_ms);
         Ok(true)
     }
@@ -410,6 +482,7 @@ mod tests {
         assert_eq!(csv_text("-x"), "'-x");
         assert_eq!(csv_text("@SUM(A1)"), "'@SUM(A1)");
         assert_eq!(csv_text("a,b"), "\"a,b\"");
+        assert_eq!(csv_text("=HYPERLINK(\"x\",1)"), "\"'=HYPERLINK(\"\"x\"\",1)\"");
         assert_eq!(csv_text("stale:TI-1;bad:FI-2"), "stale:TI-1;bad:FI-2");
     }
 
@@ -437,6 +510,30 @@ mod tests {
             for &t in steps.iter().chain(steps.iter().rev()) {
                 assert_eq!(cache.day_at(t, &tz), day_of(t + 1, &tz), "{t}");
                 assert_eq!(cache.day_of_interval(t, &tz), day_of(t, &tz), "{t}");
+            }
+        }
+    }
+
+    /// The cached RFC 3339 times equal the direct formatting: fixed-offset days, both DST days
+    /// (where the cache falls back), a half-hour negative offset, UTC, and instants with
+    /// milliseconds (truncated to the second, as the formatter does).
+    #[test]
+    fn cached_rfc3339_times_agree_with_the_formatter() {
+        for zone in ["Europe/Berlin", "America/St_Johns", "UTC"] {
+            let tz = TimeZone::get(zone).unwrap();
+            let mut cache = DayCache::default();
+            for (from, to) in [
+                ("2026-03-07T00:00:00Z", "2026-03-10T00:00:00Z"),
+                ("2026-03-27T00:00:00Z", "2026-03-31T00:00:00Z"),
+                ("2026-10-30T00:00:00Z", "2026-11-03T00:00:00Z"),
+            ] {
+                let a = from.parse::<Timestamp>().unwrap().as_millisecond();
+                let b = to.parse::<Timestamp>().unwrap().as_millisecond();
+                for t in (a..b).step_by(7 * 60_000 + 1) {
+                    let mut out = String::new();
+                    cache.rfc3339_into(&mut out, t, &tz);
+                    assert_eq!(out, rfc3339(t, &tz), "{zone} {t}");
+                }
             }
         }
     }
