@@ -115,7 +115,7 @@ pub struct System {
     pub bounds: (f64, f64),
     /// Element symbols of the components' formulas, in order of first appearance.
     elements: Vec<String>,
-    /// Atoms of each element per molecule, `atoms[i * elements.len() + j]`; `None` for a
+    /// Atoms of element `j` per molecule of component `i`, `atoms[i][j]`; `None` for a
     /// component without a formula.
     atoms: Vec<Option<Vec<f64>>>,
 }
