@@ -113,7 +113,7 @@ fn fixed_into(out: &mut String, x: f64, decimals: usize) {
         out.push('-');
     }
     for k in (0..len).rev() {
-        if k + 1 == decimals && decimals > 0 {
+        if k + 1 == decimals {
             out.push('.');
         }
         out.push(char::from(buf[k]));
@@ -162,7 +162,6 @@ pub(crate) fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<(String
     v
 }
 
-/// An append-only dated file with a header.
 /// The local date of instants, cached for the day last asked about: one time-zone conversion
 /// per day instead of one per record.
 #[derive(Debug, Clone, Default)]
@@ -230,6 +229,7 @@ impl DayCache {
     }
 }
 
+/// An append-only dated file with a header.
 struct DayFile {
     day: String,
     out: BufWriter<File>,
@@ -282,6 +282,8 @@ fn flush_day(current: &mut Option<DayFile>, sync: bool) -> io::Result<()> {
 pub struct SoftTagWriter {
     dir: PathBuf,
     unit: String,
+    /// File-name prefix, `softtags-<unit>-`.
+    prefix: String,
     tz: TimeZone,
     temperature: &'static Unit,
     difference: &'static Unit,
@@ -322,6 +324,7 @@ impl SoftTagWriter {
         Ok(SoftTagWriter {
             dir: dir.to_path_buf(),
             unit: unit.to_string(),
+            prefix,
             tz,
             temperature,
             difference,
@@ -339,8 +342,7 @@ impl SoftTagWriter {
             return Ok(false);
         }
         let day = self.days.day_of_interval(ev.end_ms, &self.tz);
-        let prefix = format!("softtags-{}-", self.unit);
-        let file = day_file(&mut self.current, &self.dir, &prefix, ".csv", day, Some(SOFT_TAG_HEADER))?;
+        let file = day_file(&mut self.current, &self.dir, &self.prefix, ".csv", day, Some(SOFT_TAG_HEADER))?;
         let (t, d) = (self.temperature, self.difference);
         let row = &mut self.row;
         row.clear();
@@ -382,7 +384,8 @@ impl SoftTagWriter {
 /// Alert JSON-lines writer of one unit.
 pub struct AlertWriter {
     dir: PathBuf,
-    unit: String,
+    /// File-name prefix, `alerts-<unit>-`.
+    prefix: String,
     tz: TimeZone,
     current: Option<DayFile>,
     days: DayCache,
@@ -406,7 +409,7 @@ impl AlertWriter {
         }
         Ok(AlertWriter {
             dir: dir.to_path_buf(),
-            unit: unit.to_string(),
+            prefix,
             tz,
             current: None,
             days: DayCache::default(),
@@ -427,8 +430,7 @@ impl AlertWriter {
             return Ok(false);
         }
         let day = self.days.day_at(ev.time_ms, &self.tz);
-        let prefix = format!("alerts-{}-", self.unit);
-        let file = day_file(&mut self.current, &self.dir, &prefix, ".jsonl", day, None)?;
+        let file = day_file(&mut self.current, &self.dir, &self.prefix, ".jsonl", day, None)?;
         let line = serde_json::to_string(ev).map_err(io::Error::other)?;
         writeln!(file.out, "{line}")?;
         if self.stdout {

@@ -172,35 +172,6 @@ impl System {
             paths.push(path);
             models.push(model);
         }
-        for (r, reaction) in reactions.iter().enumerate() {
-            if reaction.nu.get(reaction.key).copied().unwrap_or(0.0) >= 0.0 {
-                return Err(SystemError::KeyNotReactant {
-                    reaction: r,
-                    component: components.get(reaction.key).map(|c| c.id.clone()).unwrap_or_default(),
-                });
-            }
-            // Element conservation, when every participant has a formula.
-            let participants: Vec<usize> = (0..components.len()).filter(|&i| reaction.nu[i] != 0.0).collect();
-            if participants.iter().all(|&i| components[i].formula.is_some()) {
-                let mut net: Vec<(String, f64)> = Vec::new();
-                for &i in &participants {
-                    if let Some(f) = &components[i].formula {
-                        for (el, n) in &f.0 {
-                            match net.iter_mut().find(|(e, _)| e == el) {
-                                Some(entry) => entry.1 += reaction.nu[i] * n,
-                                None => net.push((el.clone(), reaction.nu[i] * n)),
-                            }
-                        }
-                    }
-                }
-                let bad: Vec<String> =
-                    net.iter().filter(|(_, n)| n.abs() > 1e-9).map(|(e, n)| format!("{e} {n:+}")).collect();
-                if !bad.is_empty() {
-                    return Err(SystemError::Unbalanced { reaction: r, detail: bad.join(", ") });
-                }
-            }
-        }
-        let psat = components.iter().map(PsatModel::for_component).collect();
         let mut elements: Vec<String> = Vec::new();
         for f in components.iter().filter_map(|c| c.formula.as_ref()) {
             for (el, _) in &f.0 {
@@ -209,7 +180,7 @@ impl System {
                 }
             }
         }
-        let atoms = components
+        let atoms: Vec<Option<Vec<f64>>> = components
             .iter()
             .map(|c| {
                 c.formula.as_ref().map(|f| {
@@ -220,6 +191,34 @@ impl System {
                 })
             })
             .collect();
+        for (r, reaction) in reactions.iter().enumerate() {
+            if reaction.nu.get(reaction.key).copied().unwrap_or(0.0) >= 0.0 {
+                return Err(SystemError::KeyNotReactant {
+                    reaction: r,
+                    component: components.get(reaction.key).map(|c| c.id.clone()).unwrap_or_default(),
+                });
+            }
+            // Element conservation, when every participant has a formula.
+            let participants = || (0..components.len()).filter(|&i| reaction.nu[i] != 0.0);
+            if participants().all(|i| atoms[i].is_some()) {
+                let bad: Vec<String> = elements
+                    .iter()
+                    .enumerate()
+                    .map(|(j, el)| {
+                        let net: f64 = participants()
+                            .map(|i| reaction.nu[i] * atoms[i].as_ref().map_or(0.0, |a: &Vec<f64>| a[j]))
+                            .sum();
+                        (el, net)
+                    })
+                    .filter(|(_, net)| net.abs() > 1e-9)
+                    .map(|(el, net)| format!("{el} {net:+}"))
+                    .collect();
+                if !bad.is_empty() {
+                    return Err(SystemError::Unbalanced { reaction: r, detail: bad.join(", ") });
+                }
+            }
+        }
+        let psat = components.iter().map(PsatModel::for_component).collect();
         Ok(System { components, paths, models, psat, reactions, bounds, elements, atoms })
     }
 

@@ -151,7 +151,6 @@ where
     if f_hi == 0.0 {
         return Ok(Root { x: b_hi, evaluations, method: Method::Brent });
     }
-    let (mut b_lo, mut b_hi) = (b_lo, b_hi);
     if f_lo.signum() == f_hi.signum() {
         // Not increasing over the whole range (a correlation extrapolated far beyond its
         // range can bend back): take the lowest rising crossing on a scan of the range.
