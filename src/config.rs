@@ -1698,8 +1698,9 @@ fn check_unit(
     for (i, f) in m.accepted_flags.iter().enumerate() {
         let k = mk.key("accepted_flags").index(i);
         match f.split_once(':') {
-            Some(("range_cp_liq" | "range_cp_ig" | "range_psat", id)) if index_of(id).is_some() => {
-                accepted_flags.push(f.clone());
+            Some((kind @ ("range_cp_liq" | "range_cp_ig" | "range_psat"), id)) if let Some(i) = index_of(id) => {
+                // The flag's code names the component as the unit first wrote it.
+                accepted_flags.push(format!("{kind}:{}", ids[i].0));
             }
             Some(("range_cp_liq" | "range_cp_ig" | "range_psat", id)) => {
                 ck.err(&k, format!("component `{id}` is not used by this unit"));

@@ -638,13 +638,15 @@ fn reviewed_range_flags_can_be_accepted_but_two_phase_risk_cannot() {
     assert!(soft.lines().skip(1).all(|l| l.contains("range_cp_liq:water")), "{soft}");
     assert!(alerts_of(out.path()).contains("\"model_validity\""), "no alert for the extrapolation");
 
-    let accepted =
-        TestPlant::new(&format!("{narrow}[unit.model]\naccepted_flags = [\"range_cp_liq:water\"]\n"));
-    accepted.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
-    let out = tempfile::tempdir().unwrap();
-    let soft = replay(&accepted, out.path());
-    assert!(soft.lines().skip(1).all(|l| l.contains("range_cp_liq:water")), "{soft}");
-    assert!(!alerts_of(out.path()).contains("\"model_validity\""), "{}", alerts_of(out.path()));
+    // Component ids ignore case (and `_` equals `-`) here as everywhere.
+    for flag in ["range_cp_liq:water", "range_cp_liq:Water"] {
+        let accepted = TestPlant::new(&format!("{narrow}[unit.model]\naccepted_flags = [\"{flag}\"]\n"));
+        accepted.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
+        let out = tempfile::tempdir().unwrap();
+        let soft = replay(&accepted, out.path());
+        assert!(soft.lines().skip(1).all(|l| l.contains("range_cp_liq:water")), "{soft}");
+        assert!(!alerts_of(out.path()).contains("\"model_validity\""), "{flag}: {}", alerts_of(out.path()));
+    }
 
     let refused =
         TestPlant::new("[unit.model]\naccepted_flags = [\"two_phase_risk\", \"range_psat:benzene\"]\n");
