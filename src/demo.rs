@@ -109,13 +109,18 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
         .iter()
         .map(|inj| {
             let start = inj.start_s * 1000;
-            let in_window = |a: &&&AlertEvent| a.time_ms >= start && a.time_ms <= start + window_ms(inj);
+            let inside = |t_ms: i64| t_ms >= start && t_ms <= start + window_ms(inj);
             let expected = inj.kind.expected_cause();
+            // An instrument fault must also name the instrument.
+            let tag_ok = |a: &AlertEvent| {
+                expected != "instrument_fault"
+                    || inj.tag.as_deref().is_none_or(|t| a.subject.split(':').next() == Some(t))
+            };
             // The first alert in the window that could be about this event (validity notes and,
             // unless expected, data-quality alerts are not).
             let first = raised
                 .iter()
-                .filter(in_window)
+                .filter(|a| inside(a.time_ms))
                 .find(|a| match a.cause.as_str() {
                     "model_validity" => false,
                     "data_quality" => expected == "data_quality",
@@ -124,19 +129,15 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
                 .copied();
             // Without an effluent analyzer, "undetermined" is the honest answer for a chemistry
             // or heater drift the data cannot separate.
-            // An instrument fault must also name the instrument.
             let acceptable = |a: &AlertEvent| {
                 let c = a.cause.as_str();
-                let tag_ok = expected != "instrument_fault"
-                    || inj.tag.as_deref().is_none_or(|t| a.subject.split(':').next() == Some(t));
-                (c == expected && tag_ok)
+                (c == expected && tag_ok(a))
                     || (c == "undetermined" && matches!(expected, "conversion_drift" | "heater_fouling"))
             };
             let named = events
                 .iter()
-                .filter(|a| a.event != AlertKind::Cleared && a.time_ms >= start)
-                .filter(|a| a.time_ms <= start + window_ms(inj))
-                .find(|a| a.cause.as_str() == expected);
+                .filter(|a| a.event != AlertKind::Cleared && inside(a.time_ms))
+                .find(|a| a.cause.as_str() == expected && tag_ok(a));
             Score {
                 event: inj.clone(),
                 right_cause: first.is_some_and(acceptable),

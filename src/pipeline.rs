@@ -23,7 +23,7 @@ use crate::ingest::tail::{
 };
 use crate::model::{Evaluation, evaluate};
 use crate::monitor::engine::Monitor;
-use crate::output::{AlertWriter, DayCache, SoftTagWriter, rfc3339};
+use crate::output::{AlertWriter, DayCache, SoftTagWriter};
 use crate::report::IngestDay;
 use crate::state::StateDir;
 
@@ -414,7 +414,8 @@ impl UnitRuntime {
                     }
                 }
                 let state = mo.state.as_str();
-                let time = rfc3339(ev.end_ms, &cfg.time_zone);
+                let mut time = String::new();
+                days.rfc3339_into(&mut time, ev.end_ms, &cfg.time_zone);
                 let (events, notes) = alerts.step(&cfg.name, ev.end_ms, &time, &ev.conditions, cfg.alerts);
                 for n in notes {
                     info!(target: "efftemp::audit", unit = %cfg.name, "{n}");
