@@ -446,18 +446,10 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
             // Without --shift: the last completed shift before the newest data on disk (the
             // last row of the newest soft-tag file), or before now.
             None => {
-                let newest = crate::output::dated_files(
-                    &site.output_dir.join(&u.name),
-                    &format!("softtags-{}-", u.name),
-                    ".csv",
-                )
-                .last()
-                .and_then(|(_, path)| std::fs::read_to_string(path).ok())
-                .and_then(|text| {
-                    let last = text.lines().rev().find(|l| !l.trim().is_empty())?.to_string();
-                    last.split(',').next()?.parse::<jiff::Timestamp>().ok()
-                })
-                .map(jiff::Timestamp::as_millisecond);
+                let newest =
+                    crate::output::newest_soft_tag_ms(&site.output_dir.join(&u.name), &u.name, false)
+                        .ok()
+                        .flatten();
                 crate::report::last_completed(
                     newest.unwrap_or_else(|| jiff::Timestamp::now().as_millisecond()),
                     &site.shifts,

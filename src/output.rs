@@ -120,9 +120,10 @@ fn fixed_into(out: &mut String, x: f64, decimals: usize) {
     }
 }
 
-/// Read the last complete line of a file, truncating a half-written tail first.
-fn repair_and_last_line(path: &Path) -> io::Result<Option<String>> {
-    let mut f = OpenOptions::new().read(true).write(true).open(path)?;
+/// Read the last complete line of a file. With `repair`, a half-written tail is truncated
+/// first (the writers, at start); without, it is only skipped (readers such as the report).
+fn last_complete_line(path: &Path, repair: bool) -> io::Result<Option<String>> {
+    let mut f = OpenOptions::new().read(true).write(repair).open(path)?;
     let len = f.metadata()?.len();
     if len == 0 {
         return Ok(None);
@@ -137,13 +138,32 @@ fn repair_and_last_line(path: &Path) -> io::Result<Option<String>> {
         None => return Ok(None),
     };
     if keep < buf.len() {
-        // A crash left a partial line: drop it (its content is regenerated on re-processing).
-        f.set_len(len - window + keep as u64)?;
-        f.sync_all()?;
+        if repair {
+            // A crash left a partial line: drop it (its content is regenerated on re-processing).
+            f.set_len(len - window + keep as u64)?;
+            f.sync_all()?;
+        }
         buf.truncate(keep);
     }
     let text = String::from_utf8_lossy(&buf);
     Ok(text.lines().rev().find(|l| !l.trim().is_empty()).map(str::to_string))
+}
+
+/// End (ms) of the newest interval in a unit's soft-tag files in `dir`: the last row of the
+/// newest file that has one (files holding only the header are skipped). `repair` as in
+/// [`last_complete_line`].
+pub(crate) fn newest_soft_tag_ms(dir: &Path, unit: &str, repair: bool) -> io::Result<Option<i64>> {
+    for (_, path) in dated_files(dir, &format!("softtags-{unit}-"), ".csv").into_iter().rev() {
+        let Some(line) = last_complete_line(&path, repair)? else { continue };
+        if line == SOFT_TAG_HEADER {
+            continue;
+        }
+        let time = line.split(',').next().unwrap_or_default();
+        if let Ok(ts) = time.parse::<Timestamp>() {
+            return Ok(Some(ts.as_millisecond()));
+        }
+    }
+    Ok(None)
 }
 
 /// Files in `dir` named `<prefix><YYYY-MM-DD><suffix>`, with their date, oldest first.
@@ -306,19 +326,7 @@ impl SoftTagWriter {
         temperature: &'static Unit,
     ) -> io::Result<SoftTagWriter> {
         let prefix = format!("softtags-{unit}-");
-        let mut last = None;
-        for (_, path) in dated_files(dir, &prefix, ".csv").into_iter().rev() {
-            if let Some(line) = repair_and_last_line(&path)? {
-                if line == SOFT_TAG_HEADER {
-                    continue;
-                }
-                let time = line.split(',').next().unwrap_or_default();
-                if let Ok(ts) = time.parse::<Timestamp>() {
-                    last = Some(ts.as_millisecond());
-                    break;
-                }
-            }
-        }
+        let last = newest_soft_tag_ms(dir, unit, true)?;
         let difference =
             units::lookup(Quantity::TemperatureDifference, temperature.symbol).unwrap_or(temperature);
         Ok(SoftTagWriter {
@@ -400,7 +408,7 @@ impl AlertWriter {
         let prefix = format!("alerts-{unit}-");
         let mut last = 0;
         for (_, path) in dated_files(dir, &prefix, ".jsonl").into_iter().rev() {
-            if let Some(line) = repair_and_last_line(&path)?
+            if let Some(line) = last_complete_line(&path, true)?
                 && let Ok(v) = serde_json::from_str::<serde_json::Value>(&line)
             {
                 last = v.get("sequence").and_then(serde_json::Value::as_u64).unwrap_or(0);
@@ -538,6 +546,23 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// The report's read-only look-up of the newest row: a newest file holding only its header
+    /// is skipped, a half-written tail is skipped but left on disk.
+    #[test]
+    fn newest_row_without_repair_skips_header_only_files_and_partial_tails() {
+        let dir = tempfile::tempdir().unwrap();
+        let older = dir.path().join("softtags-R-1-2026-12-01.csv");
+        let partial = format!(
+            "{SOFT_TAG_HEADER}\n2026-12-01T23:59:00+00:00,R-1,1,2,3,4,,,watching,\n2026-12-02T00:00:00+00:00,R-1,5"
+        );
+        fs::write(&older, &partial).unwrap();
+        fs::write(dir.path().join("softtags-R-1-2026-12-02.csv"), format!("{SOFT_TAG_HEADER}\n")).unwrap();
+        let expected = "2026-12-01T23:59:00Z".parse::<Timestamp>().unwrap().as_millisecond();
+        assert_eq!(newest_soft_tag_ms(dir.path(), "R-1", false).unwrap(), Some(expected));
+        assert_eq!(fs::read_to_string(&older).unwrap(), partial, "read-only");
+        assert_eq!(newest_soft_tag_ms(dir.path(), "R-2", false).unwrap(), None);
     }
 
     #[test]
