@@ -11,52 +11,23 @@
 //!
 //! # Layout
 //!
-//! * [`units`]: engineering unit strings (`"57 degC"`, `"3.2 MW"`) to SI and back.
-//! * [`source`]: source files and located errors (file, line, column, key).
-//! * [`thermo`]: pure thermodynamics: components, enthalpy paths, the balance solver, bubble
-//!   points, uncertainty propagation.
-//! * [`case`]: the `calc` case file (two-stage: serde mirror, then checked model) and its
-//!   human and JSON reports.
-//! * [`ingest`]: tailing historian export files into records (split, tail).
-//! * [`hash`]: a stable 64-bit hash for fingerprints and checksums.
-//! * [`assembly`]: interval assembly in event time (aggregation, staleness, lateness).
-//! * [`config`]: the site configuration (two-stage, located errors).
-//! * [`model`]: the per-interval unit model (soft tags, flags, conditions).
-//! * [`alerts`]: the alert lifecycle (raise, update, clear; stable ids).
-//! * [`output`]: soft-tag CSV and alert JSON-lines writers (idempotent by key).
-//! * [`forward`]: alert events to a syslog collector (RFC 5424 over UDP or framed TCP, disk queue).
-//! * [`state`]: the locked state directory and the atomic checkpoint.
-//! * [`pipeline`]: tail → rows → intervals → model → alerts → outputs → checkpoint.
-//! * [`service`]: the async shell of `run` (events, ticks, shutdown) and the batch `replay`.
-//! * [`logging`]: text or JSON logs.
-//! * [`http`]: health and Prometheus metrics endpoints.
-//! * [`monitor`]: steady state, dynamics, baseline, charts, cause attribution.
-//! * [`report`]: the shift report (HTML with inline SVG, and text).
-//! * [`sim`]: the embedded plant simulator of the demo.
-//! * [`demo`]: `efftemp demo`.
-//! * [`cli`]: command-line definitions and the commands.
+//! The folders follow the data path: export files are read by [`ingest`], every closed
+//! interval goes through the pure [`core`] (no I/O, no clock), and its outcome is written by
+//! the [`sinks`]. [`pipeline`] connects them; [`app`] is the command line and the service
+//! around it; [`config`] checks the site and case files into each stage's own settings.
+//! Imports run one way: `app` → `pipeline` → `config` → {`ingest`, `core`, `sinks`} →
+//! [`thermo`] and the leaves ([`units`], [`source`], [`hash`], [`rng`]); `ingest` and `sinks`
+//! may use `core`'s vocabulary, `core` uses neither.
 
-pub mod alerts;
-pub mod assembly;
-pub mod case;
-pub mod cli;
+pub mod app;
 pub mod config;
-pub mod demo;
-pub mod forward;
+pub mod core;
 pub mod hash;
-pub mod http;
 pub mod ingest;
-pub mod logging;
-pub mod model;
-pub mod monitor;
-pub mod output;
 pub mod pipeline;
-pub mod report;
 pub mod rng;
-pub mod service;
-pub mod sim;
+pub mod sinks;
 pub mod source;
-pub mod state;
 pub mod thermo;
 pub mod units;
 

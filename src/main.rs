@@ -1,5 +1,5 @@
-//! The `efftemp` binary: a thin wrapper around [`efftemp::cli`].
+//! The `efftemp` binary: a thin wrapper around [`efftemp::app::cli`].
 
 fn main() -> std::process::ExitCode {
-    efftemp::cli::main()
+    efftemp::app::cli::main()
 }

@@ -14,18 +14,18 @@ use std::sync::Arc;
 use serde::{Deserialize, Serialize};
 use tracing::{debug, info, warn};
 
-use crate::alerts::{AlertBook, AlertEvent};
-use crate::assembly::{Added, Assembler, TagRule};
 use crate::config::{SiteConfig, UnitConfig};
+use crate::core::alerts::{AlertBook, AlertEvent};
+use crate::core::assembly::{Added, Assembler, TagRule};
+use crate::core::model::{Evaluation, evaluate};
+use crate::core::monitor::engine::Monitor;
 use crate::ingest::rows::{HeaderInfo, Reject, RowParser};
 use crate::ingest::tail::{
     EndCause, GenerationCause, Notice, PollStats, RejectReason, TailEvent, TailOptions, TailState, Tailer,
 };
-use crate::model::{Evaluation, evaluate};
-use crate::monitor::engine::Monitor;
-use crate::output::{AlertWriter, DayCache, SoftTagWriter};
-use crate::report::IngestDay;
-use crate::state::StateDir;
+use crate::sinks::checkpoint::StateDir;
+use crate::sinks::report::IngestDay;
+use crate::sinks::softtags::{AlertWriter, DayCache, SoftTagWriter};
 
 /// Reason code and sentence of a tailer rejection.
 fn describe_reject(r: &RejectReason) -> (&'static str, String) {
@@ -229,7 +229,7 @@ pub struct UnitRuntime {
     /// Links refused at the last pass (warned about when the set changes).
     refused_links: Vec<PathBuf>,
     /// Syslog forwarding of new alert events (live service only).
-    forward: Option<Arc<crate::forward::Forwarder>>,
+    forward: Option<Arc<crate::sinks::syslog::Forwarder>>,
     /// Whether a pass has run since this runtime was created.
     started: bool,
 }
@@ -322,7 +322,7 @@ impl UnitRuntime {
                     .map(|t| t.as_millisecond());
                 match (r.selector.clone(), until) {
                     (Some(selector), Some(until_ms)) => {
-                        let note = self.alerts.shelve(crate::alerts::Shelf {
+                        let note = self.alerts.shelve(crate::core::alerts::Shelf {
                             selector,
                             until_ms,
                             reason: r.reason.clone(),
@@ -449,14 +449,14 @@ impl UnitRuntime {
                 // A shift ended: write its report (outputs flushed first so it sees them).
                 let prev = last_end_ms.replace(ev.end_ms);
                 if site.shift_reports
-                    && let Some(shift) =
-                        prev.and_then(|p| crate::report::shift_containing(p, &site.shifts, &cfg.time_zone))
+                    && let Some(shift) = prev
+                        .and_then(|p| crate::sinks::report::shift_containing(p, &site.shifts, &cfg.time_zone))
                     && ev.end_ms >= shift.end_ms
                 {
                     let res = softtags
                         .flush()
                         .and_then(|()| alert_out.flush())
-                        .and_then(|()| crate::report::write(&site.name, cfg, &site.output, &shift));
+                        .and_then(|()| crate::sinks::report::write(&site.name, cfg, &site.output, &shift));
                     match res {
                         Ok((path, text)) => {
                             info!(unit = %cfg.name, report = %path.display(), "shift report written");
@@ -613,7 +613,7 @@ pub struct PassSummary {
 pub enum PipelineError {
     /// State directory problem.
     #[error(transparent)]
-    State(#[from] crate::state::StateError),
+    State(#[from] crate::sinks::checkpoint::StateError),
     /// Output I/O.
     #[error("unit {unit}: cannot write outputs: {source}")]
     Output {
@@ -734,7 +734,7 @@ impl Pipeline {
     }
 
     /// The per-unit figures for `/metrics`.
-    pub fn snapshot_units(&self) -> Vec<crate::http::UnitSnapshot> {
+    pub fn snapshot_units(&self) -> Vec<crate::app::http::UnitSnapshot> {
         self.units
             .iter()
             .map(|u| {
@@ -742,7 +742,7 @@ impl Pipeline {
                 for a in u.alerts.active() {
                     *active.entry(a.cause.as_str().to_string()).or_default() += 1;
                 }
-                crate::http::UnitSnapshot {
+                crate::app::http::UnitSnapshot {
                     name: u.cfg.name.clone(),
                     records: u.counters.records,
                     rejected: u.counters.rejected.iter().map(|(k, v)| ((*k).to_string(), *v)).collect(),
@@ -761,7 +761,7 @@ impl Pipeline {
     }
 
     /// Forward every new alert event to syslog through `f` (the live service).
-    pub fn set_forwarder(&mut self, f: &Arc<crate::forward::Forwarder>) {
+    pub fn set_forwarder(&mut self, f: &Arc<crate::sinks::syslog::Forwarder>) {
         for u in &mut self.units {
             u.forward = Some(f.clone());
         }

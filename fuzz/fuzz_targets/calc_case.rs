@@ -12,7 +12,7 @@
 use std::path::PathBuf;
 use std::sync::{Arc, OnceLock};
 
-use efftemp::case::Case;
+use efftemp::config::case::Case;
 use efftemp::source::{LocatedErrors, SourceText};
 use libfuzzer_sys::fuzz_target;
 use oracles::stray_null;

@@ -5,7 +5,7 @@
 //! also byte-identical to a `replay` of the same exports (live vs replay with the native
 //! watcher).
 
-use efftemp::demo::{DemoOptions, run};
+use efftemp::app::demo::{DemoOptions, run};
 
 #[test]
 fn short_demo_detects_every_event_with_the_right_cause_and_nothing_else() {
@@ -21,7 +21,7 @@ fn short_demo_detects_every_event_with_the_right_cause_and_nothing_else() {
         verbose: false,
     };
     let r = run(&opts).unwrap();
-    let card = efftemp::demo::scorecard(&r);
+    let card = efftemp::app::demo::scorecard(&r);
     assert_eq!(r.scores.len(), 3, "{card}");
     for s in &r.scores {
         assert!(s.first_alert.is_some(), "not detected: {}\n{card}", s.event.description);
@@ -38,7 +38,7 @@ fn short_demo_detects_every_event_with_the_right_cause_and_nothing_else() {
     // Live vs replay: the same exports replayed give the same soft-tag files, byte for byte.
     let site = efftemp::config::SiteConfig::load(&r.dir.join("site.toml")).unwrap();
     let again = dir.path().join("replayed");
-    efftemp::service::replay(&site, Some(again.clone())).unwrap();
+    efftemp::app::service::replay(&site, Some(again.clone())).unwrap();
     // The live service stopped before the wait for late data expired on the last interval,
     // which a replay closes at the end of its input: the last file may lack that one row.
     for (i, live) in r.soft_tags.iter().enumerate() {

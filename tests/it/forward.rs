@@ -9,12 +9,12 @@ use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
-use efftemp::alerts::{AlertEvent, EventKind};
 use efftemp::config::SiteConfig;
-use efftemp::forward::{
+use efftemp::core::alerts::{AlertEvent, EventKind};
+use efftemp::core::model::{Cause, Severity};
+use efftemp::sinks::syslog::{
     Forwarder, SD_ID_ALERT, SD_ID_EVIDENCE, SyslogConfig, Transport, UDP_MAX_BYTES, syslog_severity,
 };
-use efftemp::model::{Cause, Severity};
 use serde_json::json;
 
 #[path = "rfc5424.rs"]
@@ -408,17 +408,17 @@ fn the_service_forwards_every_alert_event_of_its_alert_files() {
     let Some(bin) = rsyslogd() else { return };
     let dir = tempfile::tempdir().unwrap();
     let mut collector = Collector::new(bin, dir.path());
-    let ev = efftemp::sim::Scenario::event(
-        efftemp::sim::EventKind::ThermometerBias,
+    let ev = efftemp::app::sim::Scenario::event(
+        efftemp::app::sim::EventKind::ThermometerBias,
         1.2,
         4.0,
         2.0,
         Some("TI-2050"),
     );
-    let scenario = efftemp::sim::Scenario::single(3, 1.8, ev);
-    efftemp::sim::write_exports(&scenario, &dir.path().join("exports")).unwrap();
+    let scenario = efftemp::app::sim::Scenario::single(3, 1.8, ev);
+    efftemp::app::sim::write_exports(&scenario, &dir.path().join("exports")).unwrap();
     let cfg = dir.path().join("site.toml");
-    let text = efftemp::sim::site_config("exports", "state", "output", false, "10m", 60)
+    let text = efftemp::app::sim::site_config("exports", "state", "output", false, "10m", 60)
         .replace("watch = \"auto\"", "watch = \"off\"\nhttp_address = \"off\"")
         + &format!(
             "\n[forward.syslog]\naddress = \"127.0.0.1:{}\"\ntransport = \"tcp\"\nhostname = \"test-host\"\nreconnect_min = \"50ms\"\nreconnect_max = \"200ms\"\n",
@@ -434,7 +434,7 @@ fn the_service_forwards_every_alert_event_of_its_alert_files() {
         .spawn()
         .unwrap();
     let out = dir.path().join("output/R-204");
-    let expected = || -> Vec<AlertEvent> { efftemp::report::load_events(&out, "R-204", i64::MAX) };
+    let expected = || -> Vec<AlertEvent> { efftemp::sinks::report::load_events(&out, "R-204", i64::MAX) };
     wait_until("the backlog to be processed", Duration::from_secs(120), || {
         std::fs::read_dir(&out)
             .map(|rd| {

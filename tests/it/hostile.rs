@@ -15,7 +15,7 @@
 use std::path::Path;
 use std::sync::Arc;
 
-use efftemp::case::Case;
+use efftemp::config::case::Case;
 use efftemp::config::{Layout, SiteConfig, TimestampFormat};
 use efftemp::ingest::rows::{HeaderInfo, Quality, Reject, RowParser};
 use efftemp::ingest::split::{Position, Splitter};

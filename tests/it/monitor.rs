@@ -5,10 +5,10 @@
 
 use std::path::{Path, PathBuf};
 
-use efftemp::alerts::{AlertEvent, EventKind};
+use efftemp::app::sim::{self, EventKind as Fault, Scenario};
 use efftemp::config::SiteConfig;
+use efftemp::core::alerts::{AlertEvent, EventKind};
 use efftemp::pipeline::{Mode, Pipeline};
-use efftemp::sim::{self, EventKind as Fault, Scenario};
 
 struct Run {
     events: Vec<AlertEvent>,
@@ -37,8 +37,8 @@ fn replay(scenario: &Scenario) -> Run {
     let (dir, cfg) = setup(scenario);
     let site = SiteConfig::load(&cfg).unwrap();
     let out = dir.path().join("output");
-    efftemp::service::replay(&site, Some(out.clone())).unwrap();
-    let events = efftemp::report::load_events(&out.join("R-204"), "R-204", i64::MAX);
+    efftemp::app::service::replay(&site, Some(out.clone())).unwrap();
+    let events = efftemp::sinks::report::load_events(&out.join("R-204"), "R-204", i64::MAX);
     Run { events, _dir: dir, out }
 }
 
@@ -66,8 +66,13 @@ fn normal_operating_changes_raise_no_alerts() {
         raised(&r).into_iter().filter(|e| e.cause.as_str() != "model_validity").collect();
     assert!(bad.is_empty(), "false alerts:\n{}", describe(&r));
     // The monitor learned its baseline and watched.
-    let rows =
-        efftemp::report::load_rows(&r.out.join("R-204"), "R-204", 0, i64::MAX, &jiff::tz::TimeZone::UTC);
+    let rows = efftemp::sinks::report::load_rows(
+        &r.out.join("R-204"),
+        "R-204",
+        0,
+        i64::MAX,
+        &jiff::tz::TimeZone::UTC,
+    );
     assert!(rows.iter().filter(|x| x.state == "watching").count() > 2_000);
 }
 
@@ -153,7 +158,7 @@ fn heat_loss_follows_the_ambient_temperature() {
 }
 
 fn events_of(dir: &Path) -> Vec<AlertEvent> {
-    efftemp::report::load_events(&dir.join("R-204"), "R-204", i64::MAX)
+    efftemp::sinks::report::load_events(&dir.join("R-204"), "R-204", i64::MAX)
 }
 
 /// A restart in the middle of a developing fault: the same alert events as an uninterrupted

@@ -4,7 +4,7 @@
 use std::collections::HashMap;
 use std::sync::Arc;
 
-use efftemp::case::{Case, Report};
+use efftemp::config::case::{Case, Report};
 use efftemp::source::SourceText;
 use efftemp::units::{self, Quantity};
 use proptest::prelude::*;

@@ -3,13 +3,13 @@
 
 use std::sync::Arc;
 
-use efftemp::case::Case;
+use efftemp::config::case::Case;
 use efftemp::source::SourceText;
 use serde_json::Value;
 
 use crate::util;
 
-fn run(text: &str) -> efftemp::case::Report {
+fn run(text: &str) -> efftemp::config::case::Report {
     let case = Case::check(Arc::new(SourceText::new("reference.toml", text)))
         .unwrap_or_else(|e| panic!("{e}\n{text}"));
     case.run().unwrap_or_else(|e| panic!("{e}\n{text}"))

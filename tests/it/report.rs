@@ -9,7 +9,7 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::OnceLock;
 
-use efftemp::sim::{self, EventKind as Fault, Scenario};
+use efftemp::app::sim::{self, EventKind as Fault, Scenario};
 
 /// One simulated run shared by the tests of this module: (temp dir, config, report path, stdout).
 struct Reported {

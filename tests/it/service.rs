@@ -8,9 +8,9 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use assert_cmd::cargo::cargo_bin_cmd;
+use efftemp::app::service::{self, Wake};
 use efftemp::config::SiteConfig;
-use efftemp::output::SOFT_TAG_HEADER;
-use efftemp::service::{self, Wake};
+use efftemp::sinks::softtags::SOFT_TAG_HEADER;
 use tokio::sync::Notify;
 
 use crate::util::{self, TestPlant};
@@ -360,10 +360,10 @@ async fn health_and_metrics_over_http() {
     text.push_str("2026-12-01T00:10:00Z,10,abc,30,70\n");
     plant.append("plant_20261201.csv", &text);
     let site = Arc::new(SiteConfig::load(&plant.config).unwrap());
-    let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::http::Snapshot::default());
+    let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
     let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
     let addr = listener.local_addr().unwrap();
-    tokio::spawn(efftemp::http::serve(listener, snap_rx, std::future::pending()));
+    tokio::spawn(efftemp::app::http::serve(listener, snap_rx, std::future::pending()));
     let (tx, rx) = tokio::sync::oneshot::channel::<()>();
     let notify = Arc::new(Notify::new());
     let svc = tokio::spawn(service::run(

@@ -13,8 +13,8 @@ use std::path::{Path, PathBuf};
 use jiff::Timestamp;
 use jiff::tz::TimeZone;
 
-use crate::alerts::AlertEvent;
-use crate::model::Evaluation;
+use crate::core::alerts::AlertEvent;
+use crate::core::model::Evaluation;
 use crate::units::{self, Quantity, Unit};
 
 /// The soft-tag CSV header (stable; documented in the README).

@@ -51,8 +51,8 @@ use std::path::{Path, PathBuf};
 
 use serde::{Deserialize, Serialize};
 
-use super::split::{HeldKind, Item, Position, RawRecord, Splitter};
 use crate::hash::fnv1a64;
+use crate::ingest::split::{HeldKind, Item, Position, RawRecord, Splitter};
 
 /// Version of the [`TailState`] format written by this build.
 pub const STATE_VERSION: u32 = 1;

@@ -10,8 +10,8 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 
 use crate::config::AlertConfig;
+use crate::core::model::{Cause, Condition, Severity};
 use crate::hash::fnv1a64;
-use crate::model::{Cause, Condition, Severity};
 
 impl AlertConfig {
     /// Delays for a cause: data-quality and model-validity conditions use the configured on-

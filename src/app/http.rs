@@ -62,7 +62,7 @@ pub struct Snapshot {
     /// Watcher errors.
     pub watcher_errors: u64,
     /// The syslog forwarder's counters, when forwarding is configured.
-    pub syslog: Option<crate::forward::ForwardStats>,
+    pub syslog: Option<crate::sinks::syslog::ForwardStats>,
     /// Passes completed.
     pub passes: u64,
     /// Wall time of the last pass, ms since the epoch.

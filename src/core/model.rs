@@ -8,8 +8,8 @@ use std::fmt;
 
 use serde::Serialize;
 
-use crate::assembly::{Closed, TagStatus};
 use crate::config::{Signal, TagKind, UnitConfig};
+use crate::core::assembly::{Closed, TagStatus};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
 use crate::thermo::uncertainty::{InputRef, Uncertain, propagate};
 

@@ -21,7 +21,7 @@ use super::dynamics::Fopdt;
 use super::ssd::{Floor, SsdSettings, SteadyState};
 use super::stats::{self, AsymptoticFit, LineFit};
 use crate::config::{TagKind, UnitConfig};
-use crate::model::{Cause, Condition, Evaluation, Severity};
+use crate::core::model::{Cause, Condition, Evaluation, Severity};
 
 /// Monitor settings (defaults from the spec sheet of the monitoring research note, §8).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -1155,7 +1155,7 @@ impl Monitor {
         if self.active.iter().any(|a| a.cause == Cause::InstrumentFault && a.subject == tag.name) {
             return;
         }
-        let when = crate::output::rfc3339(self.steps[20].0, &unit.time_zone);
+        let when = crate::sinks::softtags::rfc3339(self.steps[20].0, &unit.time_zone);
         let message = format!(
             "The residual stepped by {dr:+.2} K at about {when} and stayed there while {why}: suspect {} ({}); check it against a reference (local gauge, duplicate sensor) before trusting the soft tags.",
             tag.name, tag.role
@@ -1567,7 +1567,7 @@ impl Monitor {
 }
 
 fn day(ms: i64, unit: &UnitConfig) -> String {
-    crate::output::day_of(ms + 1, &unit.time_zone)
+    crate::sinks::softtags::day_of(ms + 1, &unit.time_zone)
 }
 
 /// What is left of `y` after a least-squares fit on `xs` (with an intercept).

@@ -15,7 +15,7 @@ use std::fmt::Write as _;
 
 use serde::Serialize;
 
-use crate::monitor::dynamics::Fopdt;
+use crate::core::monitor::dynamics::Fopdt;
 use crate::rng::Rng;
 use crate::thermo::balance::{
     Basis, Effluent, FeedInput, FlowValue, Inputs, PathChoice, Reaction, System, Unknown,

@@ -10,10 +10,10 @@ use std::sync::atomic::{AtomicI64, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
-use crate::alerts::{AlertEvent, EventKind as AlertKind};
+use crate::app::service::{self, Wake};
+use crate::app::sim::{self, Event, Plant, Scenario};
 use crate::config::SiteConfig;
-use crate::service::{self, Wake};
-use crate::sim::{self, Event, Plant, Scenario};
+use crate::core::alerts::{AlertEvent, EventKind as AlertKind};
 
 /// Demo options.
 #[derive(Debug, Clone)]
@@ -319,7 +319,7 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
         eprint!("\r\x1b[K");
     }
     let out = dir.join("output").join("R-204");
-    let all = crate::report::load_events(&out, "R-204", i64::MAX);
+    let all = crate::sinks::report::load_events(&out, "R-204", i64::MAX);
     let (scores, false_alerts) = score(&all, &scenario.events);
     let res = DemoResult {
         dir: dir.clone(),

@@ -126,7 +126,7 @@ pub async fn run(
     wake: Wake,
     shutdown: impl Future<Output = ()>,
     mut observer: Option<Observer>,
-    snapshots: Option<tokio::sync::watch::Sender<crate::http::Snapshot>>,
+    snapshots: Option<tokio::sync::watch::Sender<crate::app::http::Snapshot>>,
 ) -> Result<(), ServiceError> {
     let notifier = Notifier::from_env();
     let mut passes = 0u64;
@@ -144,7 +144,7 @@ pub async fn run(
     let forwarder = match &site.syslog {
         Some(cfg) => {
             let cfg = cfg.clone();
-            let f = tokio::task::spawn_blocking(move || crate::forward::Forwarder::start(cfg))
+            let f = tokio::task::spawn_blocking(move || crate::sinks::syslog::Forwarder::start(cfg))
                 .await
                 .map_err(|e| ServiceError::Internal(e.to_string()))?
                 .map_err(|e| ServiceError::Internal(format!("syslog forwarding: {e}")))?;
@@ -225,7 +225,7 @@ pub async fn run(
         }
         if let Some(tx) = &snapshots {
             let (writes, failures) = pipeline.checkpoint_counts();
-            let snap = crate::http::Snapshot {
+            let snap = crate::app::http::Snapshot {
                 units: pipeline.snapshot_units(),
                 checkpoint_writes: writes,
                 checkpoint_failures: failures,

@@ -11,10 +11,10 @@ use jiff::civil::Time;
 use jiff::tz::TimeZone;
 use jiff::{Timestamp, ToSpan};
 
-use crate::alerts::{AlertEvent, EventKind};
 use crate::config::UnitConfig;
-use crate::monitor::stats::LineFit;
-use crate::output::SOFT_TAG_HEADER;
+use crate::core::alerts::{AlertEvent, EventKind};
+use crate::core::monitor::stats::LineFit;
+use crate::sinks::softtags::SOFT_TAG_HEADER;
 
 /// A shift: [start, end) in ms, with a label in local time.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -137,10 +137,13 @@ fn parse_row(line: &str) -> Option<Row> {
 /// Soft-tag rows of a unit in (from, to], from the daily files whose dates overlap.
 pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone) -> Vec<Row> {
     let prefix = format!("softtags-{unit}-");
-    let first = crate::output::day_of(from_ms.saturating_add(1), tz);
-    let last =
-        if to_ms >= i64::MAX / 2 { "9999-12-31".to_string() } else { crate::output::day_of(to_ms, tz) };
-    let files: Vec<PathBuf> = crate::output::dated_files(dir, &prefix, ".csv")
+    let first = crate::sinks::softtags::day_of(from_ms.saturating_add(1), tz);
+    let last = if to_ms >= i64::MAX / 2 {
+        "9999-12-31".to_string()
+    } else {
+        crate::sinks::softtags::day_of(to_ms, tz)
+    };
+    let files: Vec<PathBuf> = crate::sinks::softtags::dated_files(dir, &prefix, ".csv")
         .into_iter()
         .filter(|(d, _)| *d >= first && *d <= last)
         .map(|(_, p)| p)
@@ -160,7 +163,7 @@ pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone
 
 /// Every alert event of a unit up to `to_ms` (all files: active alerts may be old).
 pub fn load_events(dir: &Path, unit: &str, to_ms: i64) -> Vec<AlertEvent> {
-    let files = crate::output::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
+    let files = crate::sinks::softtags::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
     let mut out = Vec::new();
     for (_, f) in files {
         for line in std::fs::read_to_string(&f).unwrap_or_default().lines() {
@@ -237,8 +240,10 @@ pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> 
         all.into_iter().filter(|r| r.t_ms > shift.prev_start_ms).partition(|r| r.t_ms <= shift.start_ms);
     let events = load_events(&dir, &unit.name, shift.end_ms);
     let mut ingest = IngestDay::default();
-    let mut days: Vec<String> =
-        vec![crate::output::day_of(shift.start_ms + 1, &tz), crate::output::day_of(shift.end_ms, &tz)];
+    let mut days: Vec<String> = vec![
+        crate::sinks::softtags::day_of(shift.start_ms + 1, &tz),
+        crate::sinks::softtags::day_of(shift.end_ms, &tz),
+    ];
     days.dedup();
     for d in days {
         if let Ok(text) = std::fs::read_to_string(dir.join(format!("ingest-{}-{d}.json", unit.name)))
@@ -258,8 +263,8 @@ pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> 
     let steady: Vec<f64> =
         rows.iter().chain(prev.iter()).filter(|r| r.state == "watching").filter_map(|r| r.residual).collect();
     let residual_limits = (steady.len() >= 30).then(|| {
-        let m = crate::monitor::stats::median(&steady);
-        let s = crate::monitor::stats::mad_sigma(&steady).max(0.01);
+        let m = crate::core::monitor::stats::median(&steady);
+        let s = crate::core::monitor::stats::mad_sigma(&steady).max(0.01);
         (m, 3.0 * s)
     });
     ReportData {
@@ -717,9 +722,9 @@ pub fn plots(d: &ReportData) -> Vec<(String, String)> {
                 day(*at),
                 &format!(
                     "projected to reach the limit on {} ({} to {})",
-                    crate::output::day_of(*at + 1, &d.tz),
-                    crate::output::day_of(*lo + 1, &d.tz),
-                    crate::output::day_of(*hi + 1, &d.tz)
+                    crate::sinks::softtags::day_of(*at + 1, &d.tz),
+                    crate::sinks::softtags::day_of(*lo + 1, &d.tz),
+                    crate::sinks::softtags::day_of(*hi + 1, &d.tz)
                 ),
             );
         }
@@ -946,9 +951,9 @@ pub fn render_text(d: &ReportData) -> String {
                     s,
                     "; cleaning limit {:.0} % projected {} ({} to {})",
                     d.effectiveness_limit * 100.0,
-                    crate::output::day_of(at + 1, &d.tz),
-                    crate::output::day_of(lo + 1, &d.tz),
-                    crate::output::day_of(hi + 1, &d.tz)
+                    crate::sinks::softtags::day_of(at + 1, &d.tz),
+                    crate::sinks::softtags::day_of(lo + 1, &d.tz),
+                    crate::sinks::softtags::day_of(hi + 1, &d.tz)
                 );
             }
             None => {

@@ -374,7 +374,7 @@ pub enum RawFacility {
     Name(String),
 }
 
-/// `[forward.syslog]`: alert events to a syslog collector (see [`crate::forward`]).
+/// `[forward.syslog]`: alert events to a syslog collector (see [`crate::sinks::syslog`]).
 #[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct RawSyslog {
@@ -683,7 +683,7 @@ pub struct UnitConfig {
     /// Alert lifecycle.
     pub alerts: AlertConfig,
     /// Monitoring.
-    pub monitor: crate::monitor::engine::MonitorConfig,
+    pub monitor: crate::core::monitor::engine::MonitorConfig,
 }
 
 /// A checked site configuration.
@@ -706,7 +706,7 @@ pub struct SiteConfig {
     /// Write shift reports automatically.
     pub shift_reports: bool,
     /// Syslog forwarding of alert events (`[forward.syslog]`), queue in `<state_dir>/syslog-queue`.
-    pub syslog: Option<crate::forward::SyslogConfig>,
+    pub syslog: Option<crate::sinks::syslog::SyslogConfig>,
 }
 
 /// Parse a duration like "90s", "5m", "1h 30m" or "PT1M".
@@ -969,7 +969,7 @@ impl SiteConfig {
             return Err(LocatedErrors(errors));
         }
         Ok(SiteConfig {
-            shifts: crate::report::shift_starts(&raw.site.shifts),
+            shifts: crate::sinks::report::shift_starts(&raw.site.shifts),
             shift_reports: raw.site.shift_reports.unwrap_or(true),
             files,
             name: raw.site.name.clone().unwrap_or_else(|| "site".to_string()),
@@ -983,13 +983,17 @@ impl SiteConfig {
 }
 
 /// `[forward.syslog]`, checked; None when it has errors (they are in `ck`).
-fn check_syslog(ck: &mut Ck<'_>, raw: &RawSyslog, state_dir: &Path) -> Option<crate::forward::SyslogConfig> {
-    use crate::forward::{self, DEFAULT_FACILITY, SyslogConfig, Transport};
+fn check_syslog(
+    ck: &mut Ck<'_>,
+    raw: &RawSyslog,
+    state_dir: &Path,
+) -> Option<crate::sinks::syslog::SyslogConfig> {
+    use crate::sinks::syslog::{self, DEFAULT_FACILITY, SyslogConfig, Transport};
     let key = KeyPath::keys("forward.syslog");
     let before = ck.errors.len();
     let address = match &raw.address {
         Some(a) => {
-            if let Err(e) = forward::check_address(a) {
+            if let Err(e) = syslog::check_address(a) {
                 ck.err(&key.key("address"), e);
             }
             a.trim().to_string()
@@ -1019,7 +1023,7 @@ fn check_syslog(ck: &mut Ck<'_>, raw: &RawSyslog, state_dir: &Path) -> Option<cr
                 DEFAULT_FACILITY
             }
         },
-        Some(RawFacility::Name(name)) => forward::facility_from_name(name).unwrap_or_else(|| {
+        Some(RawFacility::Name(name)) => syslog::facility_from_name(name).unwrap_or_else(|| {
             ck.err(
                 &key.key("facility"),
                 format!("unknown facility `{name}`; use local0 … local7, a name like \"daemon\", or 0..=23"),
@@ -1030,13 +1034,13 @@ fn check_syslog(ck: &mut Ck<'_>, raw: &RawSyslog, state_dir: &Path) -> Option<cr
     let mut cfg = SyslogConfig::new(address, transport, state_dir.join("syslog-queue"));
     cfg.facility = facility;
     if let Some(a) = &raw.app_name {
-        if let Err(e) = forward::check_app_name(a) {
+        if let Err(e) = syslog::check_app_name(a) {
             ck.err(&key.key("app_name"), e);
         }
         cfg.app_name = a.clone();
     }
     if let Some(h) = &raw.hostname
-        && let Err(e) = forward::check_hostname(h)
+        && let Err(e) = syslog::check_hostname(h)
     {
         ck.err(&key.key("hostname"), e);
     }
@@ -1672,7 +1676,7 @@ fn check_unit(
                 .map_err(|e| ck.err(&mk.key("bubble_margin"), e.to_string()))
                 .ok()
         })
-        .unwrap_or(crate::case::DEFAULT_BUBBLE_MARGIN);
+        .unwrap_or(crate::config::case::DEFAULT_BUBBLE_MARGIN);
     let bounds = match &m.temperature_range {
         None => DEFAULT_BOUNDS,
         Some([lo, hi]) => match (lo.si(Quantity::Temperature), hi.si(Quantity::Temperature)) {
@@ -1771,8 +1775,8 @@ fn check_monitor(
     key: &KeyPath,
     m: &RawMonitor,
     interval_ms: i64,
-) -> crate::monitor::engine::MonitorConfig {
-    let mut c = crate::monitor::engine::MonitorConfig::default();
+) -> crate::core::monitor::engine::MonitorConfig {
+    let mut c = crate::core::monitor::engine::MonitorConfig::default();
     if let Some(b) = &m.block {
         let ms = ck.duration(&key.key("block"), Some(b), interval_ms * 10);
         if ms % interval_ms != 0 || ms < interval_ms {

@@ -84,8 +84,8 @@ use std::time::{Duration, Instant};
 
 use serde::{Deserialize, Serialize};
 
-use crate::alerts::{AlertEvent, EventKind};
-use crate::model::{Cause, Severity};
+use crate::core::alerts::{AlertEvent, EventKind};
+use crate::core::model::{Cause, Severity};
 
 /// SD-ID of the alert element. `32473` is the enterprise number RFC 5612 reserves for
 /// documentation; it keeps our names out of the IANA-registered space without claiming a number.
@@ -1042,7 +1042,7 @@ fn deliver(shared: &Shared, cfg: &SyslogConfig, hostname: &str) {
 }
 
 #[cfg(test)]
-#[path = "../tests/it/rfc5424.rs"]
+#[path = "../../../tests/it/rfc5424.rs"]
 mod rfc5424;
 
 #[cfg(test)]

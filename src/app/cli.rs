@@ -7,9 +7,9 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
-use crate::case::Case;
+use crate::app::logging::LogFormat;
 use crate::config::SiteConfig;
-use crate::logging::LogFormat;
+use crate::config::case::Case;
 
 const AFTER_HELP: &str = concat!(
     "CAUTION: efftemp is advisory. It is not a safety instrumented function, must not be used for ",
@@ -259,7 +259,7 @@ fn check(path: &std::path::Path) -> ExitCode {
 }
 
 fn run(path: &std::path::Path, format: LogFormat, level: &str) -> ExitCode {
-    if let Err(e) = crate::logging::init(format, level) {
+    if let Err(e) = crate::app::logging::init(format, level) {
         eprintln!("error: {e}");
         return ExitCode::from(EXIT_CONFIG);
     }
@@ -281,12 +281,12 @@ fn run(path: &std::path::Path, format: LogFormat, level: &str) -> ExitCode {
         let (tx, mut rx) = tokio::sync::mpsc::channel::<Control>(4);
         tokio::spawn(signals(config_path, tx));
         // Health and metrics outlive reloads.
-        let (snap_tx, snap_rx) = tokio::sync::watch::channel(crate::http::Snapshot::default());
+        let (snap_tx, snap_rx) = tokio::sync::watch::channel(crate::app::http::Snapshot::default());
         if let Some(addr) = site.service.http_address {
             match tokio::net::TcpListener::bind(addr).await {
                 Ok(listener) => {
                     tracing::info!(address = %addr, "health and metrics at /healthz, /readyz, /metrics");
-                    tokio::spawn(crate::http::serve(listener, snap_rx, std::future::pending()));
+                    tokio::spawn(crate::app::http::serve(listener, snap_rx, std::future::pending()));
                 }
                 Err(e) => tracing::warn!(address = %addr, error = %e, "cannot serve health and metrics"),
             }
@@ -297,13 +297,13 @@ fn run(path: &std::path::Path, format: LogFormat, level: &str) -> ExitCode {
             let stop = async {
                 next = rx.recv().await;
             };
-            crate::service::run(site.clone(), crate::service::Wake::Watchers, stop, None, Some(snap_tx.clone())).await?;
+            crate::app::service::run(site.clone(), crate::app::service::Wake::Watchers, stop, None, Some(snap_tx.clone())).await?;
             match next {
                 Some(Control::Reload(new)) => {
                     tracing::info!(target: "efftemp::audit", units = new.units.len(), "configuration reloaded");
                     site = new;
                 }
-                _ => return Ok::<(), crate::service::ServiceError>(()),
+                _ => return Ok::<(), crate::app::service::ServiceError>(()),
             }
         }
     });
@@ -324,7 +324,7 @@ fn replay(
     format: LogFormat,
     level: &str,
 ) -> ExitCode {
-    if let Err(e) = crate::logging::init(format, level) {
+    if let Err(e) = crate::app::logging::init(format, level) {
         eprintln!("error: {e}");
         return ExitCode::from(EXIT_CONFIG);
     }
@@ -357,7 +357,7 @@ fn replay(
             }
         }
     }
-    match crate::service::replay(&site, output) {
+    match crate::app::service::replay(&site, output) {
         Ok(s) => {
             println!(
                 "replay: {} record(s), {} interval(s) written, {} rejected, {} alert event(s)",
@@ -377,11 +377,11 @@ fn demo(seed: u64, days: f64, speed: Option<f64>, out: Option<PathBuf>, discard:
         eprintln!("error: --days must be within (0, 60]");
         return ExitCode::from(EXIT_CONFIG);
     }
-    let _ = crate::logging::init(LogFormat::Text, "warn");
-    let opts = crate::demo::DemoOptions { seed, days, speed, out, discard, verbose: true };
-    match crate::demo::run(&opts) {
+    let _ = crate::app::logging::init(LogFormat::Text, "warn");
+    let opts = crate::app::demo::DemoOptions { seed, days, speed, out, discard, verbose: true };
+    match crate::app::demo::run(&opts) {
         Ok(r) => {
-            println!("{}", crate::demo::scorecard(&r));
+            println!("{}", crate::app::demo::scorecard(&r));
             if !discard {
                 println!("Files (kept in {}):", r.dir.display());
                 if let (Some(a), Some(b)) = (r.soft_tags.first(), r.soft_tags.last()) {
@@ -442,15 +442,18 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
             }
         };
         let shift = match at {
-            Some(ms) => crate::report::shift_containing(ms, &site.shifts, &u.time_zone),
+            Some(ms) => crate::sinks::report::shift_containing(ms, &site.shifts, &u.time_zone),
             // Without --shift: the last completed shift before the newest data on disk (the
             // last row of the newest soft-tag file), or before now.
             None => {
-                let newest =
-                    crate::output::newest_soft_tag_ms(&site.output_dir.join(&u.name), &u.name, false)
-                        .ok()
-                        .flatten();
-                crate::report::last_completed(
+                let newest = crate::sinks::softtags::newest_soft_tag_ms(
+                    &site.output_dir.join(&u.name),
+                    &u.name,
+                    false,
+                )
+                .ok()
+                .flatten();
+                crate::sinks::report::last_completed(
                     newest.unwrap_or_else(|| jiff::Timestamp::now().as_millisecond()),
                     &site.shifts,
                     &u.time_zone,
@@ -461,7 +464,7 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
             eprintln!("error: cannot determine the shift");
             return ExitCode::from(EXIT_RUNTIME);
         };
-        match crate::report::write(&site.name, u, &site.output_dir, &shift) {
+        match crate::sinks::report::write(&site.name, u, &site.output_dir, &shift) {
             Ok((path, text)) => {
                 print!("{text}");
                 println!("  report: {}", path.display());
@@ -574,11 +577,11 @@ fn identify(path: &std::path::Path, unit: &str, max_dead_time: &str) -> ExitCode
     };
     site.shift_reports = false;
     let scratch = std::env::temp_dir().join(format!("efftemp-identify-{}", std::process::id()));
-    if let Err(e) = crate::service::replay(&site, Some(scratch.clone())) {
+    if let Err(e) = crate::app::service::replay(&site, Some(scratch.clone())) {
         eprintln!("error: {e}");
         return ExitCode::from(EXIT_RUNTIME);
     }
-    let rows = crate::report::load_rows(&scratch.join(unit), unit, 0, i64::MAX, &tz);
+    let rows = crate::sinks::report::load_rows(&scratch.join(unit), unit, 0, i64::MAX, &tz);
     let _ = std::fs::remove_dir_all(&scratch);
     // The longest stretch without gaps.
     let mut best: (usize, usize) = (0, 0);
@@ -596,7 +599,7 @@ fn identify(path: &std::path::Path, unit: &str, max_dead_time: &str) -> ExitCode
     let seg = &rows[best.0..best.1];
     let pred: Vec<f64> = seg.iter().filter_map(|r| r.predicted).collect();
     let meas: Vec<f64> = seg.iter().filter_map(|r| r.measured).collect();
-    match crate::monitor::dynamics::identify(&pred, &meas, max_delay) {
+    match crate::core::monitor::dynamics::identify(&pred, &meas, max_delay) {
         Some(id) => {
             let s = interval as f64 / 1000.0;
             println!(

@@ -1,0 +1,9 @@
+//! The program around the pipeline: the command line, the service loop and its signals, the
+//! health and metrics endpoint, logging, and the embedded demo with its plant simulator.
+
+pub mod cli;
+pub mod demo;
+pub mod http;
+pub mod logging;
+pub mod service;
+pub mod sim;
