@@ -17,6 +17,7 @@ use tracing::{debug, info, warn};
 use crate::config::{SiteConfig, UnitConfig};
 use crate::core::alerts::{AlertBook, AlertEvent};
 use crate::core::assembly::{Added, Assembler, TagRule};
+use crate::core::calendar::DayCache;
 use crate::core::model::{Evaluation, evaluate};
 use crate::core::monitor::engine::Monitor;
 use crate::ingest::rows::{HeaderInfo, Reject, RowParser};
@@ -25,7 +26,7 @@ use crate::ingest::tail::{
 };
 use crate::sinks::checkpoint::StateDir;
 use crate::sinks::report::IngestDay;
-use crate::sinks::softtags::{AlertWriter, DayCache, SoftTagWriter};
+use crate::sinks::softtags::{AlertWriter, SoftTagWriter};
 
 /// Reason code and sentence of a tailer rejection.
 fn describe_reject(r: &RejectReason) -> (&'static str, String) {
@@ -244,7 +245,8 @@ struct SiteInfo {
 }
 
 fn rules(cfg: &UnitConfig) -> Vec<TagRule> {
-    cfg.tags
+    cfg.spec
+        .tags
         .iter()
         .map(|t| TagRule {
             kind: t.kind,
@@ -273,16 +275,21 @@ impl UnitRuntime {
             ..TailOptions::default()
         };
         let tailer = Tailer::new(cfg.input.directory.clone(), opts, Some(saved.tail));
-        let names: Vec<String> = cfg.tags.iter().map(|t| t.name.clone()).collect();
+        let names: Vec<String> = cfg.spec.tags.iter().map(|t| t.name.clone()).collect();
         let parser = RowParser::new(&cfg.input, &names);
         let assembler = match saved.assembler {
-            Some(a) => Assembler::restore(a, cfg.interval_ms, cfg.max_wait_ms, rules(&cfg)),
-            None => Assembler::new(cfg.interval_ms, cfg.max_wait_ms, rules(&cfg)),
+            Some(a) => Assembler::restore(a, cfg.spec.interval_ms, cfg.spec.max_wait_ms, rules(&cfg)),
+            None => Assembler::new(cfg.spec.interval_ms, cfg.spec.max_wait_ms, rules(&cfg)),
         };
-        let dir = output.join(&cfg.name);
-        let softtags = SoftTagWriter::open(&dir, &cfg.name, cfg.time_zone.clone(), cfg.temperature_unit())?;
-        let alert_out = AlertWriter::open(&dir, &cfg.name, cfg.time_zone.clone(), stdout)?;
-        let monitor = saved.monitor.unwrap_or_else(|| Monitor::new(&cfg.monitor, cfg.interval_ms));
+        let dir = output.join(&cfg.spec.name);
+        let softtags = SoftTagWriter::open(
+            &dir,
+            &cfg.spec.name,
+            cfg.spec.time_zone.clone(),
+            cfg.spec.temperature_unit(),
+        )?;
+        let alert_out = AlertWriter::open(&dir, &cfg.spec.name, cfg.spec.time_zone.clone(), stdout)?;
+        let monitor = saved.monitor.unwrap_or_else(|| Monitor::new(&cfg.spec.monitor, cfg.spec.interval_ms));
         Ok(UnitRuntime {
             cfg,
             tailer,
@@ -312,7 +319,7 @@ impl UnitRuntime {
         match r.action.as_str() {
             "rebaseline" => {
                 self.monitor.rebaseline();
-                info!(target: "efftemp::audit", unit = %self.cfg.name, by = %r.by, reason = %r.reason, "re-baseline requested: the monitor learns a new baseline from now on");
+                info!(target: "efftemp::audit", unit = %self.cfg.spec.name, by = %r.by, reason = %r.reason, "re-baseline requested: the monitor learns a new baseline from now on");
             }
             "shelve" => {
                 let until = r
@@ -328,19 +335,19 @@ impl UnitRuntime {
                             reason: r.reason.clone(),
                             by: r.by.clone(),
                         });
-                        info!(target: "efftemp::audit", unit = %self.cfg.name, "{note} (until {})", r.until.as_deref().unwrap_or(""));
+                        info!(target: "efftemp::audit", unit = %self.cfg.spec.name, "{note} (until {})", r.until.as_deref().unwrap_or(""));
                     }
                     _ => {
-                        warn!(unit = %self.cfg.name, "shelve request without selector or valid `until` ignored")
+                        warn!(unit = %self.cfg.spec.name, "shelve request without selector or valid `until` ignored")
                     }
                 }
             }
             "unshelve" => {
                 let sel = r.selector.clone().unwrap_or_default();
                 let removed = self.alerts.unshelve(&sel);
-                info!(target: "efftemp::audit", unit = %self.cfg.name, by = %r.by, reason = %r.reason, removed, "unshelve `{sel}`");
+                info!(target: "efftemp::audit", unit = %self.cfg.spec.name, by = %r.by, reason = %r.reason, removed, "unshelve `{sel}`");
             }
-            other => warn!(unit = %self.cfg.name, action = other, "unknown request ignored"),
+            other => warn!(unit = %self.cfg.spec.name, action = other, "unknown request ignored"),
         }
     }
 
@@ -395,16 +402,17 @@ impl UnitRuntime {
             while io_error.is_none() {
                 let Some(closed) = assembler.close_next(quiet) else { break };
                 counters.conflicting_duplicates += u64::from(closed.conflicting_duplicates);
-                let mut ev = evaluate(cfg, &closed);
-                let mo = monitor.step(&cfg.monitor, cfg, &mut ev);
+                let mut ev = evaluate(&cfg.spec, &closed);
+                let mo = monitor.step(&cfg.spec.monitor, &cfg.spec, &mut ev);
                 if let Some(note) = &mo.note {
-                    info!(unit = %cfg.name, "{note}");
+                    info!(unit = %cfg.spec.name, "{note}");
                 }
                 ev.flags.extend(mo.flags);
                 ev.conditions.extend(mo.conditions);
                 counters.intervals += 1;
-                let today =
-                    ingest.entry(days.day_of_interval(ev.end_ms, &cfg.time_zone).to_owned()).or_default();
+                let today = ingest
+                    .entry(days.day_of_interval(ev.end_ms, &cfg.spec.time_zone).to_owned())
+                    .or_default();
                 today.intervals += 1;
                 if ev.predicted_k.is_none() {
                     today.not_computed += 1;
@@ -415,10 +423,11 @@ impl UnitRuntime {
                 }
                 let state = mo.state.as_str();
                 let mut time = String::new();
-                days.rfc3339_into(&mut time, ev.end_ms, &cfg.time_zone);
-                let (events, notes) = alerts.step(&cfg.name, ev.end_ms, &time, &ev.conditions, cfg.alerts);
+                days.rfc3339_into(&mut time, ev.end_ms, &cfg.spec.time_zone);
+                let (events, notes) =
+                    alerts.step(&cfg.spec.name, ev.end_ms, &time, &ev.conditions, cfg.spec.alerts);
                 for n in notes {
-                    info!(target: "efftemp::audit", unit = %cfg.name, "{n}");
+                    info!(target: "efftemp::audit", unit = %cfg.spec.name, "{n}");
                 }
                 if let Err(e) = softtags.write(&ev, state) {
                     *io_error = Some(e);
@@ -449,21 +458,25 @@ impl UnitRuntime {
                 // A shift ended: write its report (outputs flushed first so it sees them).
                 let prev = last_end_ms.replace(ev.end_ms);
                 if site.shift_reports
-                    && let Some(shift) = prev
-                        .and_then(|p| crate::sinks::report::shift_containing(p, &site.shifts, &cfg.time_zone))
+                    && let Some(shift) = prev.and_then(|p| {
+                        crate::core::calendar::shift_containing(p, &site.shifts, &cfg.spec.time_zone)
+                    })
                     && ev.end_ms >= shift.end_ms
                 {
-                    let res = softtags
-                        .flush()
-                        .and_then(|()| alert_out.flush())
-                        .and_then(|()| crate::sinks::report::write(&site.name, cfg, &site.output, &shift));
+                    let res = softtags.flush().and_then(|()| alert_out.flush()).and_then(|()| {
+                        crate::sinks::report::write(
+                            &crate::sinks::report::ReportUnit::new(&site.name, &cfg.description, &cfg.spec),
+                            &site.output,
+                            &shift,
+                        )
+                    });
                     match res {
                         Ok((path, text)) => {
-                            info!(unit = %cfg.name, report = %path.display(), "shift report written");
+                            info!(unit = %cfg.spec.name, report = %path.display(), "shift report written");
                             new_reports.push((path, text));
                         }
                         Err(e) => {
-                            warn!(unit = %cfg.name, error = %e, "cannot write the shift report")
+                            warn!(unit = %cfg.spec.name, error = %e, "cannot write the shift report")
                         }
                     }
                 }
@@ -475,11 +488,11 @@ impl UnitRuntime {
                 ingest.remove(&first);
             }
         };
-        let unit_name = cfg.name.clone();
+        let unit_name = cfg.spec.name.clone();
         let stats = tailer.poll(now_mono, &mut |event| match event {
             TailEvent::Header { file, fields } => match parser.header(file.id, fields) {
                 HeaderInfo::Mapped { missing_tags, ignored_columns } => {
-                    if !missing_tags.is_empty() && matches!(cfg.input.layout, crate::config::Layout::Wide) {
+                    if !missing_tags.is_empty() && matches!(cfg.input.layout, crate::ingest::settings::Layout::Wide) {
                         warn!(unit = %unit_name, file = %file.path.display(), missing = %missing_tags.join(", "), "export file lacks columns for some tags");
                     }
                     debug!(unit = %unit_name, file = %file.path.display(), ignored_columns, "header read");
@@ -501,7 +514,7 @@ impl UnitRuntime {
                         Added::Late => {
                             counters.late += 1;
                             late += 1;
-                            warn!(unit = %unit_name, file = %file.path.display(), line = record.line, tag = %cfg.tags[s.tag].name, "late sample for an interval already closed: counted, not used");
+                            warn!(unit = %unit_name, file = %file.path.display(), line = record.line, tag = %cfg.spec.tags[s.tag].name, "late sample for an interval already closed: counted, not used");
                         }
                     }
                 }, &mut rejects);
@@ -512,7 +525,7 @@ impl UnitRuntime {
                 // Per-day data-quality counts go to the day of the newest data (this record's,
                 // or the checkpointed newest before it); none before any data was ever seen.
                 if let Some(t) = assembler.max_event() {
-                    let d = ingest.entry(days.day_at(t, &cfg.time_zone).to_owned()).or_default();
+                    let d = ingest.entry(days.day_at(t, &cfg.spec.time_zone).to_owned()).or_default();
                     d.records += 1;
                     d.late += late;
                     for r in &rejects {
@@ -527,7 +540,7 @@ impl UnitRuntime {
                 let (code, text) = describe_reject(&reason);
                 *counters.rejected.entry(code).or_default() += 1;
                 if let Some(t) = assembler.max_event() {
-                    let day = days.day_at(t, &cfg.time_zone).to_owned();
+                    let day = days.day_at(t, &cfg.spec.time_zone).to_owned();
                     *ingest.entry(day).or_default().rejected.entry(code.to_string()).or_default() += 1;
                 }
                 warn!(unit = %unit_name, file = %file.path.display(), line, reason = code, "rejected: {text}");
@@ -573,7 +586,7 @@ impl UnitRuntime {
         }
         let quiet = flush
             || last_data_mono.is_some_and(|t| {
-                now_mono.saturating_sub(t) >= u64::try_from(cfg.max_wait_ms).unwrap_or(u64::MAX)
+                now_mono.saturating_sub(t) >= u64::try_from(cfg.spec.max_wait_ms).unwrap_or(u64::MAX)
             });
         process(assembler, quiet, &mut io_error, counters, last, ingest, days);
         if quiet {
@@ -656,9 +669,9 @@ impl Pipeline {
             shift_reports: site.shift_reports,
         });
         for u in &site.units {
-            let s = saved.units.remove(&u.name);
+            let s = saved.units.remove(&u.spec.name);
             let rt = UnitRuntime::new(Arc::new(u.clone()), &site.service, info.clone(), s, stdout)
-                .map_err(|source| PipelineError::Output { unit: u.name.clone(), source })?;
+                .map_err(|source| PipelineError::Output { unit: u.spec.name.clone(), source })?;
             units.push(rt);
         }
         Ok(Pipeline { units, state, notes })
@@ -674,7 +687,7 @@ impl Pipeline {
             let before = u.counters.intervals;
             summary.records += u
                 .pass(now_mono, flush)
-                .map_err(|source| PipelineError::Output { unit: u.cfg.name.clone(), source })?;
+                .map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;
             summary.intervals += u.counters.intervals - before;
         }
         Ok(summary)
@@ -694,7 +707,7 @@ impl Pipeline {
                 .and_then(|t| serde_json::from_str(&t).map_err(|e| e.to_string()));
             match req {
                 Err(e) => warn!(file = %f.display(), error = %e, "ignoring an unreadable request"),
-                Ok(r) => match self.units.iter_mut().find(|u| u.cfg.name == r.unit) {
+                Ok(r) => match self.units.iter_mut().find(|u| u.cfg.spec.name == r.unit) {
                     None => warn!(file = %f.display(), unit = %r.unit, "request for an unknown unit ignored"),
                     Some(u) => u.apply(&r),
                 },
@@ -711,20 +724,24 @@ impl Pipeline {
             u.softtags
                 .sync()
                 .and_then(|()| u.alert_out.sync())
-                .map_err(|source| PipelineError::Output { unit: u.cfg.name.clone(), source })?;
+                .map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;
             for (day, counts) in &u.ingest {
-                let path = u.site.output.join(&u.cfg.name).join(format!("ingest-{}-{day}.json", u.cfg.name));
+                let path = u
+                    .site
+                    .output
+                    .join(&u.cfg.spec.name)
+                    .join(format!("ingest-{}-{day}.json", u.cfg.spec.name));
                 if let Ok(text) = serde_json::to_string_pretty(counts) {
                     let tmp = path.with_extension("json.tmp");
                     if std::fs::write(&tmp, text).and_then(|()| std::fs::rename(&tmp, &path)).is_err() {
-                        warn!(unit = %u.cfg.name, "cannot write the ingest counters");
+                        warn!(unit = %u.cfg.spec.name, "cannot write the ingest counters");
                     }
                 }
             }
         }
         if let Some(dir) = self.state.as_mut() {
             let cp = CheckpointRef {
-                units: self.units.iter().map(|u| (u.cfg.name.as_str(), u.state())).collect(),
+                units: self.units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect(),
             };
             if let Err(e) = dir.save(&cp) {
                 warn!(error = %e, "checkpoint write failed; will retry");
@@ -743,7 +760,7 @@ impl Pipeline {
                     *active.entry(a.cause.as_str().to_string()).or_default() += 1;
                 }
                 crate::app::http::UnitSnapshot {
-                    name: u.cfg.name.clone(),
+                    name: u.cfg.spec.name.clone(),
                     records: u.counters.records,
                     rejected: u.counters.rejected.iter().map(|(k, v)| ((*k).to_string(), *v)).collect(),
                     late: u.counters.late,
@@ -778,7 +795,7 @@ impl Pipeline {
         self.units
             .iter()
             .filter(|u| u.assembler.has_open())
-            .filter_map(|u| u.last_data_mono.map(|t| t + u64::try_from(u.cfg.max_wait_ms).unwrap_or(0)))
+            .filter_map(|u| u.last_data_mono.map(|t| t + u64::try_from(u.cfg.spec.max_wait_ms).unwrap_or(0)))
             .min()
     }
 }

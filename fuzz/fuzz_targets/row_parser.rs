@@ -12,8 +12,9 @@
 //!   one sample.
 #![no_main]
 
-use efftemp::config::{Layout, TimestampFormat};
-use efftemp::ingest::rows::{HeaderInfo, Quality, Reject, RowParser};
+use efftemp::ingest::settings::{Layout, TimestampFormat};
+use efftemp::core::vocabulary::Quality;
+use efftemp::ingest::rows::{HeaderInfo, Reject, RowParser};
 use efftemp::ingest::split::{Item, Splitter};
 use jiff::tz::TimeZone;
 use libfuzzer_sys::fuzz_target;

@@ -237,17 +237,18 @@ fn check(path: &std::path::Path) -> ExitCode {
     println!("configuration OK: site \"{}\", {} unit(s)", site.name, site.units.len());
     for u in &site.units {
         let comps: Vec<String> = u
+            .spec
             .system
             .components
             .iter()
-            .zip(&u.system.paths)
+            .zip(&u.spec.system.paths)
             .map(|(c, p)| format!("{} ({})", c.id, p.as_str()))
             .collect();
         println!(
             "  {}: {} tag(s), interval {} s, input {}/{} ({:?}), components {}",
-            u.name,
-            u.tags.len(),
-            u.interval_ms / 1000,
+            u.spec.name,
+            u.spec.tags.len(),
+            u.spec.interval_ms / 1000,
             u.input.directory.display(),
             u.input.pattern,
             u.input.layout,
@@ -342,7 +343,9 @@ fn replay(
         for u in &mut site.units {
             let hit = paths.iter().find(|p| {
                 std::fs::read_dir(p).into_iter().flatten().flatten().any(|e| {
-                    e.file_name().to_str().is_some_and(|n| crate::config::name_matches(&u.input.pattern, n))
+                    e.file_name()
+                        .to_str()
+                        .is_some_and(|n| crate::ingest::glob::name_matches(&u.input.pattern, n))
                 })
             });
             match hit {
@@ -350,7 +353,7 @@ fn replay(
                 None => {
                     eprintln!(
                         "warning: no file for unit {} ({}) in the given paths; it reads nothing",
-                        u.name, u.input.pattern
+                        u.spec.name, u.input.pattern
                     );
                     u.input.directory = p_nowhere();
                 }
@@ -417,7 +420,7 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
         Err(code) => return code,
     };
     let units: Vec<&crate::config::UnitConfig> =
-        site.units.iter().filter(|u| unit.is_none_or(|n| n == u.name)).collect();
+        site.units.iter().filter(|u| unit.is_none_or(|n| n == u.spec.name)).collect();
     if units.is_empty() {
         eprintln!("error: no unit `{}` in the configuration", unit.unwrap_or(""));
         return ExitCode::from(EXIT_CONFIG);
@@ -429,7 +432,9 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
                 let parsed = text.parse::<jiff::Timestamp>().map(|t| t.as_millisecond()).or_else(|_| {
                     text.parse::<jiff::civil::DateTime>()
                         .map_err(|e| e.to_string())
-                        .and_then(|dt| dt.to_zoned_datetime(u.time_zone.clone()).map_err(|e| e.to_string()))
+                        .and_then(|dt| {
+                            dt.to_zoned_datetime(u.spec.time_zone.clone()).map_err(|e| e.to_string())
+                        })
                         .map(|z| z.timestamp().as_millisecond())
                 });
                 match parsed {
@@ -442,21 +447,21 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
             }
         };
         let shift = match at {
-            Some(ms) => crate::sinks::report::shift_containing(ms, &site.shifts, &u.time_zone),
+            Some(ms) => crate::core::calendar::shift_containing(ms, &site.shifts, &u.spec.time_zone),
             // Without --shift: the last completed shift before the newest data on disk (the
             // last row of the newest soft-tag file), or before now.
             None => {
                 let newest = crate::sinks::softtags::newest_soft_tag_ms(
-                    &site.output_dir.join(&u.name),
-                    &u.name,
+                    &site.output_dir.join(&u.spec.name),
+                    &u.spec.name,
                     false,
                 )
                 .ok()
                 .flatten();
-                crate::sinks::report::last_completed(
+                crate::core::calendar::last_completed(
                     newest.unwrap_or_else(|| jiff::Timestamp::now().as_millisecond()),
                     &site.shifts,
-                    &u.time_zone,
+                    &u.spec.time_zone,
                 )
             }
         };
@@ -464,7 +469,11 @@ fn report(path: &std::path::Path, unit: Option<&str>, shift: Option<&str>) -> Ex
             eprintln!("error: cannot determine the shift");
             return ExitCode::from(EXIT_RUNTIME);
         };
-        match crate::sinks::report::write(&site.name, u, &site.output_dir, &shift) {
+        match crate::sinks::report::write(
+            &crate::sinks::report::ReportUnit::new(&site.name, &u.description, &u.spec),
+            &site.output_dir,
+            &shift,
+        ) {
             Ok((path, text)) => {
                 print!("{text}");
                 println!("  report: {}", path.display());
@@ -491,7 +500,7 @@ fn request(
         Ok(s) => s,
         Err(code) => return code,
     };
-    let Some(u) = site.units.iter().find(|u| u.name == unit) else {
+    let Some(u) = site.units.iter().find(|u| u.spec.name == unit) else {
         eprintln!("error: no unit `{unit}` in the configuration");
         return ExitCode::from(EXIT_CONFIG);
     };
@@ -502,14 +511,14 @@ fn request(
     let until = match duration {
         None => None,
         Some(d) => match crate::config::parse_duration_ms(&d) {
-            Ok(ms) if ms <= u.alerts.shelve_max_ms => jiff::Timestamp::now()
+            Ok(ms) if ms <= u.spec.alerts.shelve_max_ms => jiff::Timestamp::now()
                 .checked_add(jiff::SignedDuration::from_millis(ms))
                 .ok()
                 .map(|t| t.to_string()),
             Ok(_) => {
                 eprintln!(
                     "error: shelving is limited to {} h for this unit",
-                    u.alerts.shelve_max_ms / 3_600_000
+                    u.spec.alerts.shelve_max_ms / 3_600_000
                 );
                 return ExitCode::from(EXIT_CONFIG);
             }
@@ -558,16 +567,16 @@ fn identify(path: &std::path::Path, unit: &str, max_dead_time: &str) -> ExitCode
         Ok(s) => s,
         Err(code) => return code,
     };
-    site.units.retain(|u| u.name == unit);
+    site.units.retain(|u| u.spec.name == unit);
     let Some(u) = site.units.first_mut() else {
         eprintln!("error: no unit `{unit}` in the configuration");
         return ExitCode::from(EXIT_CONFIG);
     };
     // Replay without compensation into a scratch directory, then fit the dynamics.
-    u.monitor.dead_time_ms = 0;
-    u.monitor.lag_ms = 0;
-    let interval = u.interval_ms;
-    let tz = u.time_zone.clone();
+    u.spec.monitor.dead_time_ms = 0;
+    u.spec.monitor.lag_ms = 0;
+    let interval = u.spec.interval_ms;
+    let tz = u.spec.time_zone.clone();
     let max_delay = match crate::config::parse_duration_ms(max_dead_time) {
         Ok(ms) => usize::try_from(ms / interval).unwrap_or(30).max(1),
         Err(e) => {

@@ -15,7 +15,8 @@ use tokio::sync::Notify;
 use tokio::time::Instant;
 use tracing::{debug, error, info, warn};
 
-use crate::config::{SiteConfig, name_matches};
+use crate::config::SiteConfig;
+use crate::ingest::glob::name_matches;
 use crate::ingest::watch::{self, WatchStatus};
 use crate::pipeline::{Mode, Pipeline, PipelineError};
 

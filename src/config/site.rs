@@ -13,10 +13,14 @@ use indexmap::IndexMap;
 use jiff::tz::TimeZone;
 use serde::Deserialize;
 
+use crate::core::alerts::AlertConfig;
+use crate::core::spec::{ConversionConfig, FeedConfig, Signal, TagConfig, Uncertainty, UnitSpec};
+use crate::core::vocabulary::TagKind;
+use crate::ingest::settings::{InputConfig, Layout, TimestampFormat, WatchMode};
 use crate::source::{KeyPath, LocatedError, LocatedErrors, SourceText};
 use crate::thermo::balance::{Basis, DEFAULT_BOUNDS, PathChoice, Reaction, System};
 use crate::thermo::component::{ComponentSpec, Library, Origin, normalize_id};
-use crate::units::{self, Number, Quantity, Unit};
+use crate::units::{self, Number, Quantity};
 
 // ---------------------------------------------------------------------------------------------
 // Stage one: the serde mirror.
@@ -440,19 +444,6 @@ pub struct RawInclude {
 // ---------------------------------------------------------------------------------------------
 // Stage two: the checked model.
 
-/// How the directory is watched.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum WatchMode {
-    /// Native file events; falls back to polling if the watcher cannot start.
-    Auto,
-    /// Native file events only (start fails if unavailable).
-    Native,
-    /// A polling watcher at the reconcile interval.
-    Poll,
-    /// No watcher: the periodic reconcile pass only.
-    Off,
-}
-
 /// `[service]`, checked.
 #[derive(Debug, Clone)]
 pub struct ServiceConfig {
@@ -472,218 +463,20 @@ pub struct ServiceConfig {
     pub http_address: Option<std::net::SocketAddr>,
 }
 
-/// Layout of the export rows.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub enum Layout {
-    /// A timestamp column and one column per tag.
-    Wide,
-    /// Timestamp, tag, value and optionally quality columns.
-    Long {
-        /// Tag column.
-        tag: String,
-        /// Value column.
-        value: String,
-        /// Quality column.
-        quality: Option<String>,
-    },
-}
-
-/// How timestamps are written.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub enum TimestampFormat {
-    /// RFC 3339 with offset (or `Z`).
-    Rfc3339,
-    /// A strftime-style format of local time in the input's time zone.
-    Local(String),
-}
-
-/// Input files of a unit.
-#[derive(Debug, Clone)]
-pub struct InputConfig {
-    /// Export directory.
-    pub directory: PathBuf,
-    /// File-name pattern.
-    pub pattern: String,
-    /// Row layout.
-    pub layout: Layout,
-    /// Timestamp column.
-    pub timestamp_column: String,
-    /// Timestamp format.
-    pub timestamp_format: TimestampFormat,
-    /// Time zone of local timestamps.
-    pub time_zone: TimeZone,
-    /// Reject (count and log) rows of unmapped tags in long files.
-    pub reject_unknown_tags: bool,
-    /// Follow symbolic links out of the export directory.
-    pub links_outside: bool,
-}
-
-/// How a tag's samples are aggregated over an interval.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum TagKind {
-    /// Time-weighted mean (sample-and-hold between samples).
-    Continuous,
-    /// Last value (analyzers update every few minutes).
-    Analyzer,
-}
-
-/// A standard uncertainty: absolute (SI) or relative to the value.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub enum Uncertainty {
-    /// None given.
-    None,
-    /// Absolute, SI.
-    Absolute(f64),
-    /// Fraction of the value.
-    Relative(f64),
-}
-
-impl Uncertainty {
-    /// The absolute uncertainty at an SI value.
-    pub fn at(self, si: f64) -> f64 {
-        match self {
-            Uncertainty::None => 0.0,
-            Uncertainty::Absolute(u) => u,
-            Uncertainty::Relative(r) => r * si.abs(),
-        }
-    }
-}
-
-/// One tag a unit reads.
-#[derive(Debug, Clone)]
-pub struct TagConfig {
-    /// Tag name as in the files.
-    pub name: String,
-    /// Its engineering unit (values are converted to SI with it).
-    pub unit: &'static Unit,
-    /// Aggregation.
-    pub kind: TagKind,
-    /// Stale after, ms.
-    pub stale_after_ms: i64,
-    /// Valid range, in the tag's own unit.
-    pub range: Option<(f64, f64)>,
-    /// Standard uncertainty.
-    pub uncertainty: Uncertainty,
-    /// Whether interval closing waits for this tag.
-    pub required: bool,
-    /// What it is, e.g. "ester recycle flow".
-    pub role: String,
-}
-
-/// Where a model input comes from.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub enum Signal {
-    /// A tag of the unit (index into [`UnitConfig::tags`]).
-    Tag(usize),
-    /// A fixed SI value with its standard uncertainty.
-    Fixed {
-        /// Value, SI.
-        si: f64,
-        /// Standard uncertainty, SI.
-        u: f64,
-    },
-}
-
-/// A feed of a unit.
-#[derive(Debug, Clone)]
-pub struct FeedConfig {
-    /// Label.
-    pub name: String,
-    /// Total flow.
-    pub flow: Signal,
-    /// Whether the flow is a mass flow.
-    pub mass_flow: bool,
-    /// Temperature.
-    pub temperature: Signal,
-    /// Fraction signal per system component (`Fixed { si: 0 }` when absent).
-    pub composition: Vec<Signal>,
-    /// Basis of the fractions.
-    pub basis: Basis,
-    /// Rescale fractions not summing to 1.
-    pub normalize: bool,
-}
-
-/// A reaction's conversion settings.
-#[derive(Debug, Clone)]
-pub struct ConversionConfig {
-    /// Design conversion used in the prediction when no tag is mapped.
-    pub design: f64,
-    /// Its standard uncertainty.
-    pub u: f64,
-    /// Measured conversion tag.
-    pub tag: Option<Signal>,
-}
-
-/// Alert lifecycle settings.
-#[derive(Debug, Clone, Copy)]
-pub struct AlertConfig {
-    /// Intervals before raising a data-quality or model-validity alert.
-    pub on_delay: u32,
-    /// Intervals before clearing it.
-    pub off_delay: u32,
-    /// A cleared alert of the same cause and subject is not raised again within this time
-    /// unless its magnitude grew by half, ms.
-    pub realert_suppress_ms: i64,
-    /// More raises than this within `flood_window_ms` are grouped into one alert.
-    pub flood_count: u32,
-    /// Flood window, ms.
-    pub flood_window_ms: i64,
-    /// Remind about alerts active longer than this, ms.
-    pub reminder_ms: i64,
-    /// Longest shelving allowed, ms.
-    pub shelve_max_ms: i64,
-}
-
-/// A reactor unit, checked.
+/// A reactor unit, checked: what ingestion reads ([`InputConfig`]) and what the core computes
+/// with ([`UnitSpec`]).
 #[derive(Debug, Clone)]
 pub struct UnitConfig {
-    /// Name.
-    pub name: String,
     /// Description.
     pub description: String,
     /// The file that defined it.
     pub source: Arc<SourceText>,
-    /// Time zone for daily files, reports and local timestamps.
-    pub time_zone: TimeZone,
-    /// The zone's name.
+    /// The time zone's name.
     pub time_zone_name: String,
     /// Input files.
     pub input: InputConfig,
-    /// Interval, ms.
-    pub interval_ms: i64,
-    /// Lateness allowance, ms.
-    pub max_wait_ms: i64,
-    /// Components, paths, reactions.
-    pub system: System,
-    /// Every tag the unit reads.
-    pub tags: Vec<TagConfig>,
-    /// Feeds.
-    pub feeds: Vec<FeedConfig>,
-    /// Reported duty.
-    pub duty: Signal,
-    /// Heat loss.
-    pub heat_loss: Signal,
-    /// Measured effluent temperature (always a tag).
-    pub effluent_temperature: usize,
-    /// Effluent analyzer, per component, with its basis.
-    pub effluent_composition: Option<(Vec<Signal>, Basis)>,
-    /// Per reaction.
-    pub conversions: Vec<ConversionConfig>,
-    /// Reactor pressure.
-    pub pressure: Option<Signal>,
-    /// Ambient temperature.
-    pub ambient: Option<Signal>,
-    /// Bubble-point margin, K.
-    pub bubble_margin: f64,
-    /// Reaction of the apparent-conversion soft tag.
-    pub apparent_reaction: Option<usize>,
-    /// Validity flags that are shown but raise no `model_validity` alert (reviewed
-    /// extrapolations of a correlation beyond its published range).
-    pub accepted_flags: Vec<String>,
-    /// Alert lifecycle.
-    pub alerts: AlertConfig,
-    /// Monitoring.
-    pub monitor: crate::core::monitor::engine::MonitorConfig,
+    /// The unit as the core sees it.
+    pub spec: UnitSpec,
 }
 
 /// A checked site configuration.
@@ -759,31 +552,6 @@ impl Ck<'_> {
 fn resolve_path(base: &Path, rel: &str) -> PathBuf {
     let p = Path::new(rel);
     if p.is_absolute() { p.to_path_buf() } else { base.join(p) }
-}
-
-/// Glob match on a file name with `*` (any run) and `?` (one character), in linear time
-/// (backtracking only to the last `*`). The tailer, `replay` and `check` all use it.
-pub fn name_matches(pattern: &str, name: &str) -> bool {
-    let pat: Vec<char> = pattern.chars().collect();
-    let s: Vec<char> = name.chars().collect();
-    let (mut p, mut i) = (0, 0);
-    let mut star: Option<(usize, usize)> = None;
-    while i < s.len() {
-        if p < pat.len() && (pat[p] == '?' || (pat[p] != '*' && pat[p] == s[i])) {
-            p += 1;
-            i += 1;
-        } else if p < pat.len() && pat[p] == '*' {
-            star = Some((p, i));
-            p += 1;
-        } else if let Some((sp, si)) = star {
-            p = sp + 1;
-            i = si + 1;
-            star = Some((sp, si + 1));
-        } else {
-            return false;
-        }
-    }
-    pat[p..].iter().all(|&c| c == '*')
 }
 
 impl SiteConfig {
@@ -969,7 +737,7 @@ impl SiteConfig {
             return Err(LocatedErrors(errors));
         }
         Ok(SiteConfig {
-            shifts: crate::sinks::report::shift_starts(&raw.site.shifts),
+            shifts: crate::core::calendar::shift_starts(&raw.site.shifts),
             shift_reports: raw.site.shift_reports.unwrap_or(true),
             files,
             name: raw.site.name.clone().unwrap_or_else(|| "site".to_string()),
@@ -1744,29 +1512,31 @@ fn check_unit(
         }
     };
     Some(UnitConfig {
-        name,
         description: raw.description.clone().unwrap_or_default(),
         source: src.clone(),
-        time_zone,
         time_zone_name,
         input,
-        interval_ms,
-        max_wait_ms,
-        system,
-        tags: tags.tags,
-        feeds,
-        duty: duty?,
-        heat_loss: heat_loss?,
-        effluent_temperature: effluent_temperature?,
-        effluent_composition,
-        conversions,
-        pressure,
-        ambient,
-        bubble_margin,
-        apparent_reaction,
-        accepted_flags,
-        alerts,
-        monitor,
+        spec: UnitSpec {
+            name,
+            time_zone,
+            interval_ms,
+            max_wait_ms,
+            system,
+            tags: tags.tags,
+            feeds,
+            duty: duty?,
+            heat_loss: heat_loss?,
+            effluent_temperature: effluent_temperature?,
+            effluent_composition,
+            conversions,
+            pressure,
+            ambient,
+            bubble_margin,
+            apparent_reaction,
+            accepted_flags,
+            alerts,
+            monitor,
+        },
     })
 }
 
@@ -1862,30 +1632,10 @@ fn check_monitor(
     c
 }
 
-impl UnitConfig {
-    /// The unit in which the measured effluent temperature is written (soft tags use it).
-    pub fn temperature_unit(&self) -> &'static Unit {
-        self.tags[self.effluent_temperature].unit
-    }
-
-    /// Index of a tag by name.
-    pub fn tag_index(&self, name: &str) -> Option<usize> {
-        self.tags.iter().position(|t| t.name == name)
-    }
-}
-
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn glob_names() {
-        assert!(name_matches("sru_*.csv", "sru_2026-12-01.csv"));
-        assert!(!name_matches("sru_*.csv", "sru_2026-12-01.csv.tmp"));
-        assert!(name_matches("a?c", "abc"));
-        assert!(name_matches("*", "anything"));
-    }
 
     #[test]
     fn durations() {

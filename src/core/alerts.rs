@@ -9,9 +9,28 @@ use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
-use crate::config::AlertConfig;
-use crate::core::model::{Cause, Condition, Severity};
+use crate::core::vocabulary::{Cause, Condition, Severity};
 use crate::hash::fnv1a64;
+
+/// Alert lifecycle settings.
+#[derive(Debug, Clone, Copy)]
+pub struct AlertConfig {
+    /// Intervals before raising a data-quality or model-validity alert.
+    pub on_delay: u32,
+    /// Intervals before clearing it.
+    pub off_delay: u32,
+    /// A cleared alert of the same cause and subject is not raised again within this time
+    /// unless its magnitude grew by half, ms.
+    pub realert_suppress_ms: i64,
+    /// More raises than this within `flood_window_ms` are grouped into one alert.
+    pub flood_count: u32,
+    /// Flood window, ms.
+    pub flood_window_ms: i64,
+    /// Remind about alerts active longer than this, ms.
+    pub reminder_ms: i64,
+    /// Longest shelving allowed, ms.
+    pub shelve_max_ms: i64,
+}
 
 impl AlertConfig {
     /// Delays for a cause: data-quality and model-validity conditions use the configured on-

@@ -17,8 +17,8 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::config::TagKind;
-use crate::ingest::rows::{Quality, Sample};
+use crate::core::vocabulary::TagKind;
+use crate::core::vocabulary::{Quality, Sample};
 
 /// Per-tag rules the assembler needs.
 #[derive(Debug, Clone, Copy, PartialEq)]

@@ -4,5 +4,8 @@
 
 pub mod alerts;
 pub mod assembly;
+pub mod calendar;
 pub mod model;
 pub mod monitor;
+pub mod spec;
+pub mod vocabulary;

@@ -4,100 +4,17 @@
 //!
 //! Pure: the same interval and configuration always give the same result.
 
-use std::fmt;
-
 use serde::Serialize;
 
-use crate::config::{Signal, TagKind, UnitConfig};
 use crate::core::assembly::{Closed, TagStatus};
+use crate::core::spec::{Signal, UnitSpec};
+use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
 use crate::thermo::uncertainty::{InputRef, Uncertain, propagate};
 
 /// Tolerance on analyzer fractions summing to 1 before the sum is flagged (analyzers are
 /// noisier than typed-in design values; common practice is to accept about 1 mol-%).
 pub const ANALYZER_SUM_TOLERANCE: f64 = 0.01;
-
-/// What an alert is about.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Cause {
-    /// Less heat reaches the process than the duty says.
-    HeaterFouling,
-    /// The conversion (heat of reaction) drifts.
-    ConversionDrift,
-    /// A measurement is wrong.
-    InstrumentFault,
-    /// Heat is lost to the surroundings.
-    HeatLoss,
-    /// Stale, bad or missing inputs.
-    DataQuality,
-    /// The model is used outside its validity.
-    ModelValidity,
-    /// A mismatch the data cannot attribute.
-    Undetermined,
-}
-
-impl Cause {
-    /// The name used in alert events.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Cause::HeaterFouling => "heater_fouling",
-            Cause::ConversionDrift => "conversion_drift",
-            Cause::InstrumentFault => "instrument_fault",
-            Cause::HeatLoss => "heat_loss",
-            Cause::DataQuality => "data_quality",
-            Cause::ModelValidity => "model_validity",
-            Cause::Undetermined => "undetermined",
-        }
-    }
-}
-
-impl fmt::Display for Cause {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.as_str())
-    }
-}
-
-/// Alert priority (ISA-18.2 style: high, medium, low).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Severity {
-    /// Informational; no prompt action expected.
-    Low,
-    /// Act within the shift.
-    Medium,
-    /// Act promptly.
-    High,
-}
-
-impl Severity {
-    /// Lower-case name.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Severity::Low => "low",
-            Severity::Medium => "medium",
-            Severity::High => "high",
-        }
-    }
-}
-
-/// A condition present in one interval; the alert lifecycle turns persistent ones into alerts.
-#[derive(Debug, Clone, PartialEq, Serialize, serde::Deserialize)]
-pub struct Condition {
-    /// Cause.
-    pub cause: Cause,
-    /// What it is about (a tag, a flag code, a chart).
-    pub subject: String,
-    /// Priority.
-    pub severity: Severity,
-    /// One sentence an engineer can act on.
-    pub message: String,
-    /// Supporting figures.
-    pub evidence: serde_json::Map<String, serde_json::Value>,
-    /// Size of the deviation in the condition's own unit (for re-raise suppression).
-    #[serde(default)]
-    pub magnitude: Option<f64>,
-}
 
 /// Process figures of the interval that the monitor uses besides the soft tags.
 #[derive(Debug, Clone, Default, PartialEq, Serialize)]
@@ -160,7 +77,7 @@ fn evidence(pairs: &[(&str, serde_json::Value)]) -> serde_json::Map<String, serd
 }
 
 struct Reader<'a> {
-    unit: &'a UnitConfig,
+    unit: &'a UnitSpec,
     closed: &'a Closed,
 }
 
@@ -206,7 +123,7 @@ fn status_word(s: TagStatus) -> &'static str {
 }
 
 /// Evaluate one closed interval of a unit.
-pub fn evaluate(unit: &UnitConfig, closed: &Closed) -> Evaluation {
+pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
     let rd = Reader { unit, closed };
     let mut flags: Vec<String> = Vec::new();
     let mut conditions: Vec<Condition> = Vec::new();
@@ -298,7 +215,7 @@ pub fn evaluate(unit: &UnitConfig, closed: &Closed) -> Evaluation {
 type Built = (Inputs, Vec<Uncertain>);
 
 fn build_inputs(
-    unit: &UnitConfig,
+    unit: &UnitSpec,
     rd: &Reader<'_>,
     measured_k: Option<f64>,
     flags: &mut Vec<String>,
@@ -471,7 +388,7 @@ fn build_inputs(
 }
 
 fn solve_all(
-    unit: &UnitConfig,
+    unit: &UnitSpec,
     inputs: &Inputs,
     uncertain: &[Uncertain],
     measured: Option<(f64, f64)>,

@@ -7,7 +7,9 @@
 //! * [`rows`]: records to samples (layouts, timestamps, quality words, rejections).
 //! * [`watch`]: file-system events as wake-up hints.
 
+pub mod glob;
 pub mod rows;
+pub mod settings;
 pub mod split;
 pub mod tail;
 pub mod watch;

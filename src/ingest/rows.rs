@@ -10,32 +10,8 @@ use jiff::Timestamp;
 use jiff::civil::DateTime;
 use jiff::tz::{AmbiguousOffset, TimeZone};
 
-use crate::config::{InputConfig, Layout, TimestampFormat};
-
-/// Quality of a sample (the OPC UA status severities).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Quality {
-    /// Good.
-    Good,
-    /// Uncertain: used, with a doubled uncertainty and a flag.
-    Uncertain,
-    /// Bad: not used.
-    Bad,
-}
-
-/// One value of one tag at one time, in the tag's own engineering unit.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Sample {
-    /// Index of the tag in the unit's tag table.
-    pub tag: usize,
-    /// Event time, ms since the Unix epoch.
-    pub t_ms: i64,
-    /// Value in the tag's unit.
-    pub value: f64,
-    /// Quality.
-    pub quality: Quality,
-}
+use crate::core::vocabulary::{Quality, Sample, parse_quality};
+use crate::ingest::settings::{InputConfig, Layout, TimestampFormat};
 
 /// Why a record (or one value of it) was rejected.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -112,20 +88,6 @@ impl fmt::Display for Reject {
             Reject::TooLong => f.write_str("record longer than the configured limit"),
             Reject::NotUtf8 => f.write_str("record is not valid UTF-8"),
         }
-    }
-}
-
-/// Parse a quality word (case-insensitive; empty means good).
-pub fn parse_quality(text: &str) -> Option<Quality> {
-    let t = text.trim();
-    if t.is_empty() || t.eq_ignore_ascii_case("good") {
-        Some(Quality::Good)
-    } else if t.eq_ignore_ascii_case("uncertain") {
-        Some(Quality::Uncertain)
-    } else if t.eq_ignore_ascii_case("bad") {
-        Some(Quality::Bad)
-    } else {
-        None
     }
 }
 

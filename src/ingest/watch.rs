@@ -14,7 +14,7 @@ use notify::{Config, Event, PollWatcher, RecommendedWatcher, RecursiveMode, Watc
 use tokio::sync::Notify;
 use tracing::{info, warn};
 
-use crate::config::WatchMode;
+use crate::ingest::settings::WatchMode;
 
 /// What is watching the directories.
 #[derive(Debug, Clone, PartialEq, Eq)]

@@ -14,28 +14,12 @@ use jiff::Timestamp;
 use jiff::tz::TimeZone;
 
 use crate::core::alerts::AlertEvent;
+use crate::core::calendar::DayCache;
 use crate::core::model::Evaluation;
 use crate::units::{self, Quantity, Unit};
 
 /// The soft-tag CSV header (stable; documented in the README).
 pub const SOFT_TAG_HEADER: &str = "time,unit,predicted_temperature,measured_temperature,residual,prediction_uncertainty,apparent_conversion,heater_effectiveness,monitor_state,flags";
-
-/// RFC 3339 time of an instant in a zone, e.g. `2026-12-01T10:05:00+00:00`.
-pub fn rfc3339(ms: i64, tz: &TimeZone) -> String {
-    match Timestamp::from_millisecond(ms) {
-        Ok(ts) => ts.to_zoned_datetime(tz.clone()).strftime("%Y-%m-%dT%H:%M:%S%:z").to_string(),
-        Err(_) => ms.to_string(),
-    }
-}
-
-/// Local calendar date (YYYY-MM-DD) of the interval that ends at `end_ms` (an interval ending
-/// at midnight belongs to the day before).
-pub fn day_of(end_ms: i64, tz: &TimeZone) -> String {
-    match Timestamp::from_millisecond(end_ms - 1) {
-        Ok(ts) => ts.to_zoned_datetime(tz.clone()).strftime("%Y-%m-%d").to_string(),
-        Err(_) => "invalid-date".into(),
-    }
-}
 
 /// Escape a text cell for CSV: quote when needed, and defuse cells a spreadsheet would execute
 /// (leading `=`, `+`, `-`, `@`) with a leading apostrophe.
@@ -180,73 +164,6 @@ pub(crate) fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<(String
         .collect();
     v.sort();
     v
-}
-
-/// The local date of instants, cached for the day last asked about: one time-zone conversion
-/// per day instead of one per record.
-#[derive(Debug, Clone, Default)]
-pub struct DayCache {
-    /// `[start, end)` in ms of the cached day; empty when nothing is cached.
-    span: (i64, i64),
-    day: String,
-    /// The UTC offset (s) when it is the same all day (a 24-hour day without a transition).
-    offset_s: Option<i32>,
-}
-
-impl DayCache {
-    /// Local calendar date (YYYY-MM-DD) of the instant `t_ms` (ms since the epoch).
-    pub fn day_at(&mut self, t_ms: i64, tz: &TimeZone) -> &str {
-        if !(self.span.0 <= t_ms && t_ms < self.span.1) {
-            let zoned = Timestamp::from_millisecond(t_ms).map(|ts| ts.to_zoned_datetime(tz.clone()));
-            match zoned {
-                Ok(z) => {
-                    self.day = z.strftime("%Y-%m-%d").to_string();
-                    let start = z.start_of_day().map(|d| d.timestamp().as_millisecond());
-                    let end =
-                        z.tomorrow().and_then(|d| d.start_of_day()).map(|d| d.timestamp().as_millisecond());
-                    // Without bounds, cache nothing: every call converts again.
-                    self.span = match (start, end) {
-                        (Ok(a), Ok(b)) if a <= t_ms && t_ms < b => (a, b),
-                        _ => (0, 0),
-                    };
-                    let (a, b) = self.span;
-                    let last_offset = Timestamp::from_millisecond(b - 1)
-                        .map(|ts| ts.to_zoned_datetime(tz.clone()).offset().seconds());
-                    self.offset_s = match last_offset {
-                        Ok(o) if b - a == 86_400_000 && o == z.offset().seconds() => Some(o),
-                        _ => None,
-                    };
-                }
-                Err(_) => {
-                    self.day = "invalid-date".into();
-                    self.span = (0, 0);
-                    self.offset_s = None;
-                }
-            }
-        }
-        &self.day
-    }
-
-    /// Append the RFC 3339 time of the instant `t_ms` (whole seconds, as [`rfc3339`] writes
-    /// it) to `out`, from the cached day when its offset is fixed.
-    pub fn rfc3339_into(&mut self, out: &mut String, t_ms: i64, tz: &TimeZone) {
-        use std::fmt::Write as _;
-        self.day_at(t_ms, tz);
-        let Some(offset) = self.offset_s else {
-            out.push_str(&rfc3339(t_ms, tz));
-            return;
-        };
-        let secs = (t_ms - self.span.0).div_euclid(1000);
-        let (h, m, sec) = (secs / 3600, secs / 60 % 60, secs % 60);
-        let sign = if offset < 0 { '-' } else { '+' };
-        let (oh, om) = (offset.unsigned_abs() / 3600, offset.unsigned_abs() / 60 % 60);
-        let _ = write!(out, "{}T{h:02}:{m:02}:{sec:02}{sign}{oh:02}:{om:02}", self.day);
-    }
-
-    /// Local date of the interval that ends at `end_ms` (see [`day_of`]).
-    pub fn day_of_interval(&mut self, end_ms: i64, tz: &TimeZone) -> &str {
-        self.day_at(end_ms - 1, tz)
-    }
 }
 
 /// An append-only dated file with a header.
@@ -494,58 +411,6 @@ mod tests {
         assert_eq!(csv_text("a,b"), "\"a,b\"");
         assert_eq!(csv_text("=HYPERLINK(\"x\",1)"), "\"'=HYPERLINK(\"\"x\"\",1)\"");
         assert_eq!(csv_text("stale:TI-1;bad:FI-2"), "stale:TI-1;bad:FI-2");
-    }
-
-    #[test]
-    fn days_in_the_unit_time_zone() {
-        let tz = TimeZone::get("Europe/Berlin").unwrap();
-        let midnight = "2026-12-01T23:00:00Z".parse::<Timestamp>().unwrap().as_millisecond();
-        assert_eq!(day_of(midnight, &tz), "2026-12-01", "the interval ending at local midnight");
-        assert_eq!(rfc3339(midnight, &tz), "2026-12-02T00:00:00+01:00");
-    }
-
-    /// The cached date equals the direct conversion for every 7-minute instant over the
-    /// spring-forward (23 h) and fall-back (25 h) days, walked forward and then backward.
-    #[test]
-    fn the_day_cache_agrees_with_the_direct_conversion_across_dst() {
-        let tz = TimeZone::get("Europe/Berlin").unwrap();
-        let mut cache = DayCache::default();
-        for (from, to) in [
-            ("2026-03-27T00:00:00Z", "2026-03-31T00:00:00Z"),
-            ("2026-10-23T00:00:00Z", "2026-10-27T00:00:00Z"),
-        ] {
-            let a = from.parse::<Timestamp>().unwrap().as_millisecond();
-            let b = to.parse::<Timestamp>().unwrap().as_millisecond();
-            let steps: Vec<i64> = (a..b).step_by(7 * 60_000).collect();
-            for &t in steps.iter().chain(steps.iter().rev()) {
-                assert_eq!(cache.day_at(t, &tz), day_of(t + 1, &tz), "{t}");
-                assert_eq!(cache.day_of_interval(t, &tz), day_of(t, &tz), "{t}");
-            }
-        }
-    }
-
-    /// The cached RFC 3339 times equal the direct formatting: fixed-offset days, both DST days
-    /// (where the cache falls back), a half-hour negative offset, UTC, and instants with
-    /// milliseconds (truncated to the second, as the formatter does).
-    #[test]
-    fn cached_rfc3339_times_agree_with_the_formatter() {
-        for zone in ["Europe/Berlin", "America/St_Johns", "UTC"] {
-            let tz = TimeZone::get(zone).unwrap();
-            let mut cache = DayCache::default();
-            for (from, to) in [
-                ("2026-03-07T00:00:00Z", "2026-03-10T00:00:00Z"),
-                ("2026-03-27T00:00:00Z", "2026-03-31T00:00:00Z"),
-                ("2026-10-30T00:00:00Z", "2026-11-03T00:00:00Z"),
-            ] {
-                let a = from.parse::<Timestamp>().unwrap().as_millisecond();
-                let b = to.parse::<Timestamp>().unwrap().as_millisecond();
-                for t in (a..b).step_by(7 * 60_000 + 1) {
-                    let mut out = String::new();
-                    cache.rfc3339_into(&mut out, t, &tz);
-                    assert_eq!(out, rfc3339(t, &tz), "{zone} {t}");
-                }
-            }
-        }
     }
 
     /// The report's read-only look-up of the newest row: a newest file holding only its header

@@ -11,7 +11,7 @@ use std::time::{Duration, Instant};
 
 use efftemp::config::SiteConfig;
 use efftemp::core::alerts::{AlertEvent, EventKind};
-use efftemp::core::model::{Cause, Severity};
+use efftemp::core::vocabulary::{Cause, Severity};
 use efftemp::sinks::syslog::{
     Forwarder, SD_ID_ALERT, SD_ID_EVIDENCE, SyslogConfig, Transport, UDP_MAX_BYTES, syslog_severity,
 };

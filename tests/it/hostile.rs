@@ -15,9 +15,11 @@
 use std::path::Path;
 use std::sync::Arc;
 
+use efftemp::config::SiteConfig;
 use efftemp::config::case::Case;
-use efftemp::config::{Layout, SiteConfig, TimestampFormat};
-use efftemp::ingest::rows::{HeaderInfo, Quality, Reject, RowParser};
+use efftemp::core::vocabulary::Quality;
+use efftemp::ingest::rows::{HeaderInfo, Reject, RowParser};
+use efftemp::ingest::settings::{Layout, TimestampFormat};
 use efftemp::ingest::split::{Position, Splitter};
 use efftemp::source::{LocatedErrors, SourceText};
 use jiff::tz::TimeZone;

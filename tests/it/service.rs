@@ -147,7 +147,7 @@ async fn live_with_restart_equals_replay() {
     let site = Arc::new({
         let mut s = SiteConfig::load(&plant.config).unwrap();
         for u in &mut s.units {
-            u.max_wait_ms = 1_500;
+            u.spec.max_wait_ms = 1_500;
         }
         s
     });
@@ -496,12 +496,12 @@ enum Waker {
 /// replacement by a longer file — give byte-identical soft tags to a replay of the final files,
 /// whichever way the service is woken.
 async fn live_file_scenarios_equal_replay(waker: Waker) {
-    use efftemp::config::WatchMode;
+    use efftemp::ingest::settings::WatchMode;
     let plant = TestPlant::new("");
     let site = Arc::new({
         let mut s = SiteConfig::load(&plant.config).unwrap();
         for u in &mut s.units {
-            u.max_wait_ms = 1_500;
+            u.spec.max_wait_ms = 1_500;
         }
         (s.service.watch, s.service.reconcile_ms) = match waker {
             Waker::Test | Waker::Off => (WatchMode::Off, 200),

@@ -3,7 +3,7 @@
 //! properties are checked on stable and under the fuzzer.
 #![allow(dead_code)]
 
-use efftemp::config::{InputConfig, Layout, TimestampFormat};
+use efftemp::ingest::settings::{InputConfig, Layout, TimestampFormat};
 use efftemp::ingest::split::{Item, Position};
 use jiff::tz::TimeZone;
 use serde_json::Value;

@@ -20,8 +20,9 @@ use super::charts::{Cusum, Ewma, Side, cusum_h_for, ewma_l_for};
 use super::dynamics::Fopdt;
 use super::ssd::{Floor, SsdSettings, SteadyState};
 use super::stats::{self, AsymptoticFit, LineFit};
-use crate::config::{TagKind, UnitConfig};
-use crate::core::model::{Cause, Condition, Evaluation, Severity};
+use crate::core::model::Evaluation;
+use crate::core::spec::UnitSpec;
+use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 
 /// Monitor settings (defaults from the spec sheet of the monitoring research note, §8).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -432,7 +433,7 @@ impl Monitor {
 
     /// Process one interval. Replaces the evaluation's prediction and residual by their
     /// dynamically compensated values.
-    pub fn step(&mut self, cfg: &MonitorConfig, unit: &UnitConfig, e: &mut Evaluation) -> MonitorOutput {
+    pub fn step(&mut self, cfg: &MonitorConfig, unit: &UnitSpec, e: &mut Evaluation) -> MonitorOutput {
         let mut out =
             MonitorOutput { state: self.state, conditions: Vec::new(), flags: Vec::new(), note: None };
         let (Some(pred_ss), Some(meas)) = (e.predicted_k, e.measured_k) else {
@@ -620,7 +621,7 @@ impl Monitor {
     fn instrument_checks(
         &mut self,
         cfg: &MonitorConfig,
-        unit: &UnitConfig,
+        unit: &UnitSpec,
         e: &Evaluation,
         pred_ss: f64,
         meas: f64,
@@ -748,7 +749,7 @@ impl Monitor {
     fn end_block(
         &mut self,
         cfg: &MonitorConfig,
-        unit: &UnitConfig,
+        unit: &UnitSpec,
         acc: Acc,
         e: &Evaluation,
         out: &mut MonitorOutput,
@@ -777,7 +778,7 @@ impl Monitor {
         self.watch_block(cfg, unit, rec, out);
     }
 
-    fn learn(&mut self, cfg: &MonitorConfig, unit: &UnitConfig, now: i64, out: &mut MonitorOutput) {
+    fn learn(&mut self, cfg: &MonitorConfig, unit: &UnitSpec, now: i64, out: &mut MonitorOutput) {
         let resid: Vec<f64> = self.learning.iter().map(|l| l.0).collect();
         let b0 = cfg.block_intervals.max(1);
         let candidates = [b0, 2 * b0, 3 * b0, 6 * b0];
@@ -869,7 +870,7 @@ impl Monitor {
     fn watch_block(
         &mut self,
         cfg: &MonitorConfig,
-        unit: &UnitConfig,
+        unit: &UnitSpec,
         mut rec: BlockRecord,
         _out: &mut MonitorOutput,
     ) {
@@ -1021,7 +1022,7 @@ impl Monitor {
     fn step_check(
         &mut self,
         cfg: &MonitorConfig,
-        unit: &UnitConfig,
+        unit: &UnitSpec,
         e: &Evaluation,
         pred: f64,
         meas: f64,
@@ -1155,7 +1156,7 @@ impl Monitor {
         if self.active.iter().any(|a| a.cause == Cause::InstrumentFault && a.subject == tag.name) {
             return;
         }
-        let when = crate::sinks::softtags::rfc3339(self.steps[20].0, &unit.time_zone);
+        let when = crate::core::calendar::rfc3339(self.steps[20].0, &unit.time_zone);
         let message = format!(
             "The residual stepped by {dr:+.2} K at about {when} and stayed there while {why}: suspect {} ({}); check it against a reference (local gauge, duplicate sensor) before trusting the soft tags.",
             tag.name, tag.role
@@ -1181,7 +1182,7 @@ impl Monitor {
     fn attribute_drift(
         &mut self,
         cfg: &MonitorConfig,
-        unit: &UnitConfig,
+        unit: &UnitSpec,
         b: &Baseline,
         now: i64,
         signals: ChartSignals,
@@ -1391,7 +1392,7 @@ impl Monitor {
         }
     }
 
-    fn raise_fouling(&mut self, cfg: &MonitorConfig, unit: &UnitConfig, b: &Baseline, now: i64, why: &str) {
+    fn raise_fouling(&mut self, cfg: &MonitorConfig, unit: &UnitSpec, b: &Baseline, now: i64, why: &str) {
         let Some(last) = self.history.back().cloned() else { return };
         let (Some(eff), Some((m, _))) = (last.eff, b.eff) else { return };
         let loss = (m - eff) / m * 100.0;
@@ -1448,7 +1449,7 @@ impl Monitor {
         self.raise(Cause::HeaterFouling, "heater", severity, message, loss, now, evidence);
     }
 
-    fn raise_conversion(&mut self, unit: &UnitConfig, b: &Baseline, now: i64, dx: f64, why: &str, zx: f64) {
+    fn raise_conversion(&mut self, unit: &UnitSpec, b: &Baseline, now: i64, dx: f64, why: &str, zx: f64) {
         let Some(last) = self.history.back().cloned() else { return };
         let key = unit
             .apparent_reaction
@@ -1468,7 +1469,7 @@ impl Monitor {
         self.raise(Cause::ConversionDrift, &key, Severity::Medium, message, dx.abs(), now, evidence);
     }
 
-    fn raise_undetermined(&mut self, unit: &UnitConfig, b: &Baseline, now: i64, dev_k: f64, why: &str) {
+    fn raise_undetermined(&mut self, unit: &UnitSpec, b: &Baseline, now: i64, dev_k: f64, why: &str) {
         let Some(last) = self.history.back().cloned() else { return };
         let dir = if dev_k < 0.0 { "cooler" } else { "hotter" };
         let message = format!(
@@ -1566,8 +1567,8 @@ impl Monitor {
     }
 }
 
-fn day(ms: i64, unit: &UnitConfig) -> String {
-    crate::sinks::softtags::day_of(ms + 1, &unit.time_zone)
+fn day(ms: i64, unit: &UnitSpec) -> String {
+    crate::core::calendar::day_of(ms + 1, &unit.time_zone)
 }
 
 /// What is left of `y` after a least-squares fit on `xs` (with an intercept).

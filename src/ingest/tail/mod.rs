@@ -896,7 +896,7 @@ impl Tailer {
         for de in fs::read_dir(&self.dir).map_err(err)? {
             let de = de.map_err(err)?;
             let name = de.file_name().to_string_lossy().into_owned();
-            if !crate::config::name_matches(&self.opts.pattern, &name) {
+            if !crate::ingest::glob::name_matches(&self.opts.pattern, &name) {
                 continue;
             }
             let path = de.path();
@@ -2284,7 +2284,7 @@ mod tests {
 
     #[test]
     fn glob_matches_names() {
-        let glob_match = crate::config::name_matches;
+        let glob_match = crate::ingest::glob::name_matches;
         assert!(glob_match("plant_*.csv", "plant_20261201.csv"));
         assert!(glob_match("plant_*.csv", "plant_.csv"));
         assert!(!glob_match("plant_*.csv", "plant_x.csv.tmp"));

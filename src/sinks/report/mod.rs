@@ -7,80 +7,15 @@ use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
-use jiff::civil::Time;
+use jiff::Timestamp;
 use jiff::tz::TimeZone;
-use jiff::{Timestamp, ToSpan};
 
-use crate::config::UnitConfig;
 use crate::core::alerts::{AlertEvent, EventKind};
+use crate::core::calendar::Shift;
 use crate::core::monitor::stats::LineFit;
+use crate::core::spec::UnitSpec;
 use crate::sinks::softtags::SOFT_TAG_HEADER;
-
-/// A shift: [start, end) in ms, with a label in local time.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Shift {
-    /// Start, ms.
-    pub start_ms: i64,
-    /// End, ms.
-    pub end_ms: i64,
-    /// Start of the shift before this one, ms (the same shift pattern).
-    pub prev_start_ms: i64,
-    /// E.g. `2026-11-20 06:00 to 14:00 (Europe/London)`.
-    pub label: String,
-    /// For file names, e.g. `20261120-0600`.
-    pub slug: String,
-}
-
-/// Default shift starts (three 8-hour shifts).
-pub const DEFAULT_SHIFTS: [&str; 3] = ["06:00", "14:00", "22:00"];
-
-fn start_instants(day: jiff::civil::Date, starts: &[Time], tz: &TimeZone) -> Vec<i64> {
-    starts
-        .iter()
-        .filter_map(|t| day.to_datetime(*t).to_zoned_datetime(tz.clone()).ok())
-        .map(|z| z.timestamp().as_millisecond())
-        .collect()
-}
-
-/// The shift containing instant `t_ms` (DST-aware: shift starts are local wall times, so a
-/// night shift is 7 or 9 hours long on the nights the clocks change).
-pub fn shift_containing(t_ms: i64, starts: &[Time], tz: &TimeZone) -> Option<Shift> {
-    let ts = Timestamp::from_millisecond(t_ms).ok()?;
-    let date = ts.to_zoned_datetime(tz.clone()).date();
-    let mut all: Vec<i64> = Vec::new();
-    for d in [-2i64, -1, 0, 1, 2] {
-        let day = date.checked_add(d.days()).ok()?;
-        all.extend(start_instants(day, starts, tz));
-    }
-    all.sort_unstable();
-    all.dedup();
-    let start = *all.iter().rev().find(|s| **s <= t_ms)?;
-    let end = *all.iter().find(|s| **s > start)?;
-    let prev_start = *all.iter().rev().find(|s| **s < start)?;
-    let fmt = |ms: i64, f: &str| {
-        Timestamp::from_millisecond(ms)
-            .map(|t| t.to_zoned_datetime(tz.clone()).strftime(f).to_string())
-            .unwrap_or_default()
-    };
-    Some(Shift {
-        start_ms: start,
-        end_ms: end,
-        prev_start_ms: prev_start,
-        label: format!(
-            "{} to {} ({})",
-            fmt(start, "%Y-%m-%d %H:%M"),
-            fmt(end, "%H:%M"),
-            tz.iana_name().unwrap_or("local time")
-        ),
-        slug: fmt(start, "%Y%m%d-%H%M"),
-    })
-}
-
-/// The last shift that ended at or before `t_ms`.
-pub fn last_completed(t_ms: i64, starts: &[Time], tz: &TimeZone) -> Option<Shift> {
-    let cur = shift_containing(t_ms, starts, tz)?;
-    shift_containing(cur.start_ms - 1, starts, tz)
-}
+use crate::units::Unit;
 
 /// One soft-tag row.
 #[derive(Debug, Clone, PartialEq)]
@@ -137,11 +72,11 @@ fn parse_row(line: &str) -> Option<Row> {
 /// Soft-tag rows of a unit in (from, to], from the daily files whose dates overlap.
 pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone) -> Vec<Row> {
     let prefix = format!("softtags-{unit}-");
-    let first = crate::sinks::softtags::day_of(from_ms.saturating_add(1), tz);
+    let first = crate::core::calendar::day_of(from_ms.saturating_add(1), tz);
     let last = if to_ms >= i64::MAX / 2 {
         "9999-12-31".to_string()
     } else {
-        crate::sinks::softtags::day_of(to_ms, tz)
+        crate::core::calendar::day_of(to_ms, tz)
     };
     let files: Vec<PathBuf> = crate::sinks::softtags::dated_files(dir, &prefix, ".csv")
         .into_iter()
@@ -194,6 +129,40 @@ pub struct IngestDay {
     pub not_computed: u64,
 }
 
+/// What a shift report needs to know about its unit.
+#[derive(Debug, Clone)]
+pub struct ReportUnit {
+    /// Site name.
+    pub site: String,
+    /// Unit name.
+    pub name: String,
+    /// Unit description.
+    pub description: String,
+    /// Time zone of the shifts.
+    pub time_zone: TimeZone,
+    /// Window of the heater-effectiveness trend, ms.
+    pub trend_window_ms: i64,
+    /// Heater effectiveness at which cleaning is due.
+    pub effectiveness_limit: f64,
+    /// Unit of the measured effluent temperature.
+    pub temperature_unit: &'static Unit,
+}
+
+impl ReportUnit {
+    /// The report settings of a unit.
+    pub fn new(site: &str, description: &str, spec: &UnitSpec) -> ReportUnit {
+        ReportUnit {
+            site: site.to_string(),
+            name: spec.name.clone(),
+            description: description.to_string(),
+            time_zone: spec.time_zone.clone(),
+            trend_window_ms: spec.monitor.trend_window_ms,
+            effectiveness_limit: spec.monitor.effectiveness_limit,
+            temperature_unit: spec.temperature_unit(),
+        }
+    }
+}
+
 /// Everything the report shows.
 #[derive(Debug, Clone)]
 pub struct ReportData {
@@ -224,11 +193,11 @@ pub struct ReportData {
 }
 
 /// Load the report data of a unit for a shift.
-pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> ReportData {
+pub fn load(unit: &ReportUnit, output_dir: &Path, shift: &Shift) -> ReportData {
     let dir = output_dir.join(&unit.name);
     let tz = unit.time_zone.clone();
     // One read covers the previous shift (same shift pattern), this shift and the trend window.
-    let window_start = shift.end_ms - unit.monitor.trend_window_ms;
+    let window_start = shift.end_ms - unit.trend_window_ms;
     let all = load_rows(&dir, &unit.name, shift.prev_start_ms.min(window_start), shift.end_ms, &tz);
     let effectiveness = all
         .iter()
@@ -241,8 +210,8 @@ pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> 
     let events = load_events(&dir, &unit.name, shift.end_ms);
     let mut ingest = IngestDay::default();
     let mut days: Vec<String> = vec![
-        crate::sinks::softtags::day_of(shift.start_ms + 1, &tz),
-        crate::sinks::softtags::day_of(shift.end_ms, &tz),
+        crate::core::calendar::day_of(shift.start_ms + 1, &tz),
+        crate::core::calendar::day_of(shift.end_ms, &tz),
     ];
     days.dedup();
     for d in days {
@@ -268,7 +237,7 @@ pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> 
         (m, 3.0 * s)
     });
     ReportData {
-        site: site.to_string(),
+        site: unit.site.clone(),
         unit: (unit.name.clone(), unit.description.clone()),
         shift: shift.clone(),
         rows,
@@ -276,27 +245,16 @@ pub fn load(site: &str, unit: &UnitConfig, output_dir: &Path, shift: &Shift) -> 
         effectiveness,
         events,
         ingest,
-        unit_symbol: match unit.temperature_unit().symbol {
+        unit_symbol: match unit.temperature_unit.symbol {
             "degC" => "°C".to_string(),
             "degF" => "°F".to_string(),
             "degR" => "°R".to_string(),
             other => other.to_string(),
         },
-        effectiveness_limit: unit.monitor.effectiveness_limit,
+        effectiveness_limit: unit.effectiveness_limit,
         tz,
         residual_limits,
     }
-}
-
-/// Parse shift start times ("06:00"); the defaults when empty or invalid.
-pub fn shift_starts(texts: &[String]) -> Vec<Time> {
-    let parse = |s: &str| s.parse::<Time>().ok();
-    let mut v: Vec<Time> = texts.iter().filter_map(|s| parse(s)).collect();
-    if v.is_empty() {
-        v = DEFAULT_SHIFTS.iter().filter_map(|s| parse(s)).collect();
-    }
-    v.sort();
-    v
 }
 
 /// Alert lifecycles seen up to the shift end: (first event, last event).
@@ -722,9 +680,9 @@ pub fn plots(d: &ReportData) -> Vec<(String, String)> {
                 day(*at),
                 &format!(
                     "projected to reach the limit on {} ({} to {})",
-                    crate::sinks::softtags::day_of(*at + 1, &d.tz),
-                    crate::sinks::softtags::day_of(*lo + 1, &d.tz),
-                    crate::sinks::softtags::day_of(*hi + 1, &d.tz)
+                    crate::core::calendar::day_of(*at + 1, &d.tz),
+                    crate::core::calendar::day_of(*lo + 1, &d.tz),
+                    crate::core::calendar::day_of(*hi + 1, &d.tz)
                 ),
             );
         }
@@ -951,9 +909,9 @@ pub fn render_text(d: &ReportData) -> String {
                     s,
                     "; cleaning limit {:.0} % projected {} ({} to {})",
                     d.effectiveness_limit * 100.0,
-                    crate::sinks::softtags::day_of(at + 1, &d.tz),
-                    crate::sinks::softtags::day_of(lo + 1, &d.tz),
-                    crate::sinks::softtags::day_of(hi + 1, &d.tz)
+                    crate::core::calendar::day_of(at + 1, &d.tz),
+                    crate::core::calendar::day_of(lo + 1, &d.tz),
+                    crate::core::calendar::day_of(hi + 1, &d.tz)
                 );
             }
             None => {
@@ -969,13 +927,8 @@ pub fn render_text(d: &ReportData) -> String {
 }
 
 /// Write the HTML report of a unit for a shift; returns its path.
-pub fn write(
-    site: &str,
-    unit: &UnitConfig,
-    output_dir: &Path,
-    shift: &Shift,
-) -> std::io::Result<(PathBuf, String)> {
-    let data = load(site, unit, output_dir, shift);
+pub fn write(unit: &ReportUnit, output_dir: &Path, shift: &Shift) -> std::io::Result<(PathBuf, String)> {
+    let data = load(unit, output_dir, shift);
     let html = render_html(&data);
     let dir = output_dir.join(&unit.name).join("reports");
     std::fs::create_dir_all(&dir)?;
@@ -984,57 +937,4 @@ pub fn write(
     std::fs::write(&tmp, html)?;
     std::fs::rename(&tmp, &path)?;
     Ok((path, render_text(&data)))
-}
-
-#[cfg(test)]
-#[allow(clippy::unwrap_used)]
-mod tests {
-    use super::*;
-
-    fn ms(s: &str) -> i64 {
-        s.parse::<Timestamp>().unwrap().as_millisecond()
-    }
-
-    /// Source: IANA tz database, Europe/Berlin: clocks go forward at 02:00 on 2026-03-29 and
-    /// back at 03:00 on 2026-10-25, so the 22:00-06:00 night shift lasts 7 h and 9 h.
-    #[test]
-    fn night_shifts_across_daylight_saving_changes() {
-        let tz = TimeZone::get("Europe/Berlin").unwrap();
-        let starts = shift_starts(&[]);
-        let spring = shift_containing(ms("2026-03-29T01:30:00Z"), &starts, &tz).unwrap();
-        assert_eq!((spring.end_ms - spring.start_ms) / 3_600_000, 7, "{spring:?}");
-        let autumn = shift_containing(ms("2026-10-25T02:30:00Z"), &starts, &tz).unwrap();
-        assert_eq!((autumn.end_ms - autumn.start_ms) / 3_600_000, 9, "{autumn:?}");
-        let day = shift_containing(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
-        assert_eq!(day.label, "2026-11-20 06:00 to 14:00 (Europe/Berlin)");
-        let last = last_completed(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
-        assert_eq!(last.end_ms, day.start_ms);
-    }
-
-    /// The previous shift follows the site's own pattern (two 12-hour shifts here), not the
-    /// default three.
-    #[test]
-    fn the_previous_shift_uses_the_configured_pattern() {
-        let tz = TimeZone::get("Europe/London").unwrap();
-        let starts = shift_starts(&["07:00".into(), "19:00".into()]);
-        let day = shift_containing(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
-        assert_eq!(day.start_ms, ms("2026-11-20T07:00:00Z"));
-        assert_eq!(day.prev_start_ms, ms("2026-11-19T19:00:00Z"));
-        let last = last_completed(ms("2026-11-20T10:00:00Z"), &starts, &tz).unwrap();
-        assert_eq!(last.start_ms, day.prev_start_ms);
-    }
-
-    #[test]
-    fn every_instant_belongs_to_exactly_one_shift() {
-        let tz = TimeZone::get("Europe/London").unwrap();
-        let starts = shift_starts(&["07:00".into(), "19:00".into()]);
-        let mut t = ms("2026-10-24T00:00:00Z");
-        while t < ms("2026-10-27T00:00:00Z") {
-            let s = shift_containing(t, &starts, &tz).unwrap();
-            assert!(s.start_ms <= t && t < s.end_ms);
-            let next = shift_containing(s.end_ms, &starts, &tz).unwrap();
-            assert_eq!(next.start_ms, s.end_ms);
-            t += 17 * 60_000;
-        }
-    }
 }

@@ -85,7 +85,7 @@ use std::time::{Duration, Instant};
 use serde::{Deserialize, Serialize};
 
 use crate::core::alerts::{AlertEvent, EventKind};
-use crate::core::model::{Cause, Severity};
+use crate::core::vocabulary::{Cause, Severity};
 
 /// SD-ID of the alert element. `32473` is the enterprise number RFC 5612 reserves for
 /// documentation; it keeps our names out of the IANA-registered space without claiming a number.

@@ -1,0 +1,154 @@
+//! The unit as the core sees it: its tags with their units, kinds and uncertainties, where each
+//! model input comes from, the thermodynamic system, the reactions' conversions, and the
+//! settings of the monitor and the alert lifecycle. Built once by the site loader.
+
+use jiff::tz::TimeZone;
+
+use crate::core::alerts::AlertConfig;
+use crate::core::monitor::engine::MonitorConfig;
+use crate::core::vocabulary::TagKind;
+use crate::thermo::balance::{Basis, System};
+use crate::units::Unit;
+
+/// A reactor unit as the core sees it: no file names, directories or layouts.
+#[derive(Debug, Clone)]
+pub struct UnitSpec {
+    /// Name (file names, alert ids).
+    pub name: String,
+    /// Time zone for daily files, reports and local timestamps.
+    pub time_zone: TimeZone,
+    /// Interval, ms.
+    pub interval_ms: i64,
+    /// Lateness allowance, ms.
+    pub max_wait_ms: i64,
+    /// Components, paths, reactions.
+    pub system: System,
+    /// Every tag the unit reads.
+    pub tags: Vec<TagConfig>,
+    /// Feeds.
+    pub feeds: Vec<FeedConfig>,
+    /// Reported duty.
+    pub duty: Signal,
+    /// Heat loss.
+    pub heat_loss: Signal,
+    /// Measured effluent temperature (always a tag).
+    pub effluent_temperature: usize,
+    /// Effluent analyzer, per component, with its basis.
+    pub effluent_composition: Option<(Vec<Signal>, Basis)>,
+    /// Per reaction.
+    pub conversions: Vec<ConversionConfig>,
+    /// Reactor pressure.
+    pub pressure: Option<Signal>,
+    /// Ambient temperature.
+    pub ambient: Option<Signal>,
+    /// Bubble-point margin, K.
+    pub bubble_margin: f64,
+    /// Reaction of the apparent-conversion soft tag.
+    pub apparent_reaction: Option<usize>,
+    /// Validity flags that are shown but raise no `model_validity` alert (reviewed
+    /// extrapolations of a correlation beyond its published range).
+    pub accepted_flags: Vec<String>,
+    /// Alert lifecycle.
+    pub alerts: AlertConfig,
+    /// Monitoring.
+    pub monitor: MonitorConfig,
+}
+
+impl UnitSpec {
+    /// The unit in which the measured effluent temperature is written (soft tags use it).
+    pub fn temperature_unit(&self) -> &'static Unit {
+        self.tags[self.effluent_temperature].unit
+    }
+
+    /// Index of a tag by name.
+    pub fn tag_index(&self, name: &str) -> Option<usize> {
+        self.tags.iter().position(|t| t.name == name)
+    }
+}
+
+/// A standard uncertainty: absolute (SI) or relative to the value.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Uncertainty {
+    /// None given.
+    None,
+    /// Absolute, SI.
+    Absolute(f64),
+    /// Fraction of the value.
+    Relative(f64),
+}
+
+impl Uncertainty {
+    /// The absolute uncertainty at an SI value.
+    pub fn at(self, si: f64) -> f64 {
+        match self {
+            Uncertainty::None => 0.0,
+            Uncertainty::Absolute(u) => u,
+            Uncertainty::Relative(r) => r * si.abs(),
+        }
+    }
+}
+
+/// One tag a unit reads.
+#[derive(Debug, Clone)]
+pub struct TagConfig {
+    /// Tag name as in the files.
+    pub name: String,
+    /// Its engineering unit (values are converted to SI with it).
+    pub unit: &'static Unit,
+    /// Aggregation.
+    pub kind: TagKind,
+    /// Stale after, ms.
+    pub stale_after_ms: i64,
+    /// Valid range, in the tag's own unit.
+    pub range: Option<(f64, f64)>,
+    /// Standard uncertainty.
+    pub uncertainty: Uncertainty,
+    /// Whether interval closing waits for this tag.
+    pub required: bool,
+    /// What it is, e.g. "ester recycle flow".
+    pub role: String,
+}
+
+/// Where a model input comes from.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Signal {
+    /// A tag of the unit (index into [`UnitConfig::tags`]).
+    Tag(usize),
+    /// A fixed SI value with its standard uncertainty.
+    Fixed {
+        /// Value, SI.
+        si: f64,
+        /// Standard uncertainty, SI.
+        u: f64,
+    },
+}
+
+/// A feed of a unit.
+#[derive(Debug, Clone)]
+pub struct FeedConfig {
+    /// Label.
+    pub name: String,
+    /// Total flow.
+    pub flow: Signal,
+    /// Whether the flow is a mass flow.
+    pub mass_flow: bool,
+    /// Temperature.
+    pub temperature: Signal,
+    /// Fraction signal per system component (`Fixed { si: 0 }` when absent).
+    pub composition: Vec<Signal>,
+    /// Basis of the fractions.
+    pub basis: Basis,
+    /// Rescale fractions not summing to 1.
+    pub normalize: bool,
+}
+
+/// A reaction's conversion settings.
+#[derive(Debug, Clone)]
+pub struct ConversionConfig {
+    /// Design conversion used in the prediction when no tag is mapped.
+    pub design: f64,
+    /// Its standard uncertainty.
+    pub u: f64,
+    /// Measured conversion tag.
+    pub tag: Option<Signal>,
+}
