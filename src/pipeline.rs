@@ -603,6 +603,35 @@ impl UnitRuntime {
     }
 }
 
+/// Figures of one unit.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct UnitSnapshot {
+    /// Unit name.
+    pub name: String,
+    /// Data records read.
+    pub records: u64,
+    /// Rejections by reason.
+    pub rejected: BTreeMap<String, u64>,
+    /// Late samples.
+    pub late: u64,
+    /// Intervals closed.
+    pub intervals: u64,
+    /// Intervals not computed.
+    pub not_computed: u64,
+    /// Solver failures.
+    pub solver_failures: u64,
+    /// Alert events written, by (cause, event).
+    pub alert_events: BTreeMap<(String, String), u64>,
+    /// Active alerts by cause.
+    pub active_alerts: BTreeMap<String, u64>,
+    /// Newest data time, ms.
+    pub last_data_ms: Option<i64>,
+    /// Monitor state.
+    pub monitor_state: String,
+    /// Bytes read from export files.
+    pub bytes: u64,
+}
+
 /// The pipeline of a site.
 pub struct Pipeline {
     /// Units.
@@ -751,7 +780,7 @@ impl Pipeline {
     }
 
     /// The per-unit figures for `/metrics`.
-    pub fn snapshot_units(&self) -> Vec<crate::app::http::UnitSnapshot> {
+    pub fn snapshot_units(&self) -> Vec<UnitSnapshot> {
         self.units
             .iter()
             .map(|u| {
@@ -759,7 +788,7 @@ impl Pipeline {
                 for a in u.alerts.active() {
                     *active.entry(a.cause.as_str().to_string()).or_default() += 1;
                 }
-                crate::app::http::UnitSnapshot {
+                UnitSnapshot {
                     name: u.cfg.spec.name.clone(),
                     records: u.counters.records,
                     rejected: u.counters.rejected.iter().map(|(k, v)| ((*k).to_string(), *v)).collect(),

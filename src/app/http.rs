@@ -5,7 +5,6 @@
 //! The service publishes a [`Snapshot`] after every pass through a `watch` channel; the HTTP
 //! side only renders the latest one, so scraping never touches the pipeline.
 
-use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::future::Future;
 
@@ -17,34 +16,7 @@ use axum::routing::get;
 use tokio::net::TcpListener;
 use tokio::sync::watch;
 
-/// Figures of one unit.
-#[derive(Debug, Clone, Default, PartialEq)]
-pub struct UnitSnapshot {
-    /// Unit name.
-    pub name: String,
-    /// Data records read.
-    pub records: u64,
-    /// Rejections by reason.
-    pub rejected: BTreeMap<String, u64>,
-    /// Late samples.
-    pub late: u64,
-    /// Intervals closed.
-    pub intervals: u64,
-    /// Intervals not computed.
-    pub not_computed: u64,
-    /// Solver failures.
-    pub solver_failures: u64,
-    /// Alert events written, by (cause, event).
-    pub alert_events: BTreeMap<(String, String), u64>,
-    /// Active alerts by cause.
-    pub active_alerts: BTreeMap<String, u64>,
-    /// Newest data time, ms.
-    pub last_data_ms: Option<i64>,
-    /// Monitor state.
-    pub monitor_state: String,
-    /// Bytes read from export files.
-    pub bytes: u64,
-}
+use crate::pipeline::UnitSnapshot;
 
 /// Everything `/metrics` and `/readyz` show.
 #[derive(Debug, Clone, Default, PartialEq)]

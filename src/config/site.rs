@@ -1545,8 +1545,8 @@ fn check_monitor(
     key: &KeyPath,
     m: &RawMonitor,
     interval_ms: i64,
-) -> crate::core::monitor::engine::MonitorConfig {
-    let mut c = crate::core::monitor::engine::MonitorConfig::default();
+) -> crate::core::monitor::settings::MonitorConfig {
+    let mut c = crate::core::monitor::settings::MonitorConfig::default();
     if let Some(b) = &m.block {
         let ms = ck.duration(&key.key("block"), Some(b), interval_ms * 10);
         if ms % interval_ms != 0 || ms < interval_ms {

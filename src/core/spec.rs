@@ -5,7 +5,7 @@
 use jiff::tz::TimeZone;
 
 use crate::core::alerts::AlertConfig;
-use crate::core::monitor::engine::MonitorConfig;
+use crate::core::monitor::settings::MonitorConfig;
 use crate::core::vocabulary::TagKind;
 use crate::thermo::balance::{Basis, System};
 use crate::units::Unit;

@@ -10,6 +10,7 @@ mod demo;
 mod forward;
 mod handbook;
 mod hostile;
+mod layout;
 mod monitor;
 mod physics;
 mod reference;

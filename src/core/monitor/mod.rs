@@ -10,5 +10,6 @@
 pub mod charts;
 pub mod dynamics;
 pub mod engine;
+pub mod settings;
 pub mod ssd;
 pub mod stats;
