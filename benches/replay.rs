@@ -168,7 +168,7 @@ fn main() {
     let before = vm("VmHWM:").unwrap_or(0);
     let t = Instant::now();
     let c = cpu_seconds();
-    let sum = efftemp::app::service::replay(&site, Some(work.path().join("output"))).unwrap();
+    let sum = efftemp::app::replay::replay(&site, Some(work.path().join("output"))).unwrap();
     let dt = t.elapsed().as_secs_f64();
     let cpu = cpu_seconds() - c;
     let peak = vm("VmHWM:").unwrap_or(0);

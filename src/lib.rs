@@ -25,6 +25,7 @@ pub mod core;
 pub mod hash;
 pub mod ingest;
 pub mod pipeline;
+pub mod requests;
 pub mod rng;
 pub mod sinks;
 pub mod source;

@@ -2,8 +2,12 @@
 //! health and metrics endpoint, logging, and the embedded demo with its plant simulator.
 
 pub mod cli;
+pub mod commands;
 pub mod demo;
 pub mod http;
 pub mod logging;
+pub mod notify;
+pub mod replay;
 pub mod service;
+pub mod signals;
 pub mod sim;

@@ -17,6 +17,7 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::core::spec::UnitSpec;
 use crate::core::vocabulary::TagKind;
 use crate::core::vocabulary::{Quality, Sample};
 
@@ -31,6 +32,21 @@ pub struct TagRule {
     pub stale_after_ms: i64,
     /// Valid range in the tag's unit.
     pub range: Option<(f64, f64)>,
+}
+
+impl TagRule {
+    /// The rules of every tag of a unit, in tag-table order.
+    pub fn of(spec: &UnitSpec) -> Vec<TagRule> {
+        spec.tags
+            .iter()
+            .map(|t| TagRule {
+                kind: t.kind,
+                required: t.required,
+                stale_after_ms: t.stale_after_ms,
+                range: t.range,
+            })
+            .collect()
+    }
 }
 
 /// What happened to a sample.
@@ -54,6 +70,18 @@ pub enum TagStatus {
     Missing,
     /// Samples arrived but none was usable (bad quality or out of range).
     Bad,
+}
+
+impl TagStatus {
+    /// The word used in flags and messages.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            TagStatus::Ok => "ok",
+            TagStatus::Stale => "stale",
+            TagStatus::Missing => "missing",
+            TagStatus::Bad => "bad",
+        }
+    }
 }
 
 /// One tag over one interval.

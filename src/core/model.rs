@@ -7,6 +7,7 @@
 use serde::Serialize;
 
 use crate::core::assembly::{Closed, TagStatus};
+use crate::core::flags::Flag;
 use crate::core::spec::{Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
@@ -42,7 +43,7 @@ pub struct Signals {
 }
 
 /// Everything computed for one interval.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct Evaluation {
     /// Interval start, ms.
     pub start_ms: i64,
@@ -62,8 +63,8 @@ pub struct Evaluation {
     pub apparent_conversion: Option<f64>,
     /// Duty needed / duty reported.
     pub effectiveness: Option<f64>,
-    /// Validity and data-quality flags (codes).
-    pub flags: Vec<String>,
+    /// Validity and data-quality flags.
+    pub flags: Vec<Flag>,
     /// Why the prediction could not be computed.
     pub reason: Option<String>,
     /// Conditions for the alert lifecycle.
@@ -99,7 +100,7 @@ impl Reader<'_> {
                         }
                         Ok((si, u))
                     }
-                    (status, _) => Err(format!("{} ({}) is {}", tag.name, tag.role, status_word(status))),
+                    (status, _) => Err(format!("{} ({}) is {}", tag.name, tag.role, status.as_str())),
                 }
             }
         }
@@ -113,39 +114,30 @@ impl Reader<'_> {
     }
 }
 
-fn status_word(s: TagStatus) -> &'static str {
-    match s {
-        TagStatus::Ok => "ok",
-        TagStatus::Stale => "stale",
-        TagStatus::Missing => "missing",
-        TagStatus::Bad => "bad",
-    }
-}
-
 /// Evaluate one closed interval of a unit.
 pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
     let rd = Reader { unit, closed };
-    let mut flags: Vec<String> = Vec::new();
+    let mut flags: Vec<Flag> = Vec::new();
     let mut conditions: Vec<Condition> = Vec::new();
     let mut signals = Signals::default();
 
     // Data quality of every tag.
-    for (tag, tv) in unit.tags.iter().zip(&closed.tags) {
+    for (i, (tag, tv)) in unit.tags.iter().zip(&closed.tags).enumerate() {
         signals.tag_values_si.push(match tv.status {
             TagStatus::Ok => tv.value.map(|v| tag.unit.to_si(v)),
             _ => None,
         });
         signals.tag_ranges_si.push(tv.min_max.map(|(a, b)| (tag.unit.to_si(a), tag.unit.to_si(b))));
         if tv.uncertain {
-            flags.push(format!("uncertain:{}", tag.name));
+            flags.push(Flag::Uncertain(i));
         }
         if tv.out_of_range > 0 {
-            flags.push(format!("range:{}", tag.name));
+            flags.push(Flag::OutOfRange(i));
         }
         if tv.status == TagStatus::Ok {
             continue;
         }
-        flags.push(format!("{}:{}", status_word(tv.status), tag.name));
+        flags.push(Flag::Unusable(i, tv.status));
         let age = tv.age_ms.map(|a| a as f64 / 60_000.0);
         let what = if tag.kind == TagKind::Analyzer { "analyzer value" } else { "value" };
         let message = match (tv.status, age) {
@@ -170,7 +162,7 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
             message,
             evidence: evidence(&[
                 ("tag", tag.name.clone().into()),
-                ("status", status_word(tv.status).into()),
+                ("status", tv.status.as_str().into()),
                 ("age_min", age.map_or(serde_json::Value::Null, Into::into)),
                 ("bad_samples", tv.bad.into()),
                 ("out_of_range_samples", tv.out_of_range.into()),
@@ -204,9 +196,9 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
         }
     }
     if eval.reason.is_some() {
-        flags.push("not_computed".into());
+        flags.push(Flag::NotComputed);
     }
-    flags.dedup();
+    flags.dedup_by(|a, b| a.same_code(b));
     eval.flags = flags;
     eval.conditions = conditions;
     eval
@@ -218,7 +210,7 @@ fn build_inputs(
     unit: &UnitSpec,
     rd: &Reader<'_>,
     measured_k: Option<f64>,
-    flags: &mut Vec<String>,
+    flags: &mut Vec<Flag>,
     conditions: &mut Vec<Condition>,
     signals: &mut Signals,
 ) -> Result<Built, String> {
@@ -264,7 +256,7 @@ fn build_inputs(
         }
         if (sum - 1.0).abs() > ANALYZER_SUM_TOLERANCE {
             let code = format!("composition_sum:{}", f.name.replace(' ', "_"));
-            flags.push(code.clone());
+            flags.push(Flag::CompositionSum(j));
             conditions.push(Condition {
                 cause: Cause::ModelValidity,
                 subject: code,
@@ -371,7 +363,7 @@ fn build_inputs(
     }
     let pressure = unit.pressure.and_then(|p| rd.get(p).ok()).map(|p| p.0);
     if unit.pressure.is_some() && pressure.is_none() {
-        flags.push("no_pressure".into());
+        flags.push(Flag::NoPressure);
     }
     Ok((
         Inputs {
@@ -393,7 +385,7 @@ fn solve_all(
     uncertain: &[Uncertain],
     measured: Option<(f64, f64)>,
     eval: &mut Evaluation,
-    flags: &mut Vec<String>,
+    flags: &mut Vec<Flag>,
     conditions: &mut Vec<Condition>,
 ) {
     let sys = &unit.system;
@@ -401,7 +393,7 @@ fn solve_all(
         Ok(o) => o,
         Err(e) => {
             eval.reason = Some(e.to_string());
-            flags.push("solver_failed".into());
+            flags.push(Flag::SolverFailed);
             return;
         }
     };
@@ -420,7 +412,7 @@ fn solve_all(
     for f in &outcome.flags {
         let code = f.code();
         if unit.accepted_flags.contains(&code) {
-            flags.push(code);
+            flags.push(Flag::Model(f.clone()));
             continue;
         }
         let severity = match f {
@@ -437,7 +429,7 @@ fn solve_all(
             evidence: evidence(&[("flag", code.clone().into()), ("predicted_k", outcome.t_out.into())]),
             magnitude: None,
         });
-        flags.push(code);
+        flags.push(Flag::Model(f.clone()));
     }
     let Some((t_meas, _)) = measured else { return };
     eval.residual_k = Some(t_meas - outcome.t_out);
@@ -460,7 +452,7 @@ fn solve_all(
             at_measured.effluent = Effluent::Reacted { conversions: c };
             match sys.solve(&at_measured, Unknown::Conversion(r)) {
                 Ok(o) => eval.apparent_conversion = Some(o.conversions[r]),
-                Err(_) => flags.push("apparent_conversion_unavailable".into()),
+                Err(_) => flags.push(Flag::ApparentConversionUnavailable),
             }
         }
     }

@@ -8,6 +8,7 @@
 //! * [`watch`]: file-system events as wake-up hints.
 
 pub mod glob;
+pub mod reader;
 pub mod rows;
 pub mod settings;
 pub mod split;

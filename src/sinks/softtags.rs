@@ -6,16 +6,18 @@
 //! half-written last line left by a crash) and then skips whatever is already there, so
 //! re-processing after a crash never writes an interval or an alert event twice.
 
-use std::fs::{self, File, OpenOptions};
-use std::io::{self, BufWriter, Read, Seek, SeekFrom, Write};
+use std::io::{self, Write};
 use std::path::{Path, PathBuf};
 
 use jiff::Timestamp;
 use jiff::tz::TimeZone;
 
-use crate::core::alerts::AlertEvent;
+use crate::core::Outcome;
 use crate::core::calendar::DayCache;
+use crate::core::flags::{FlagNames, write_codes};
 use crate::core::model::Evaluation;
+use crate::sinks::Sink;
+use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, last_complete_line};
 use crate::units::{self, Quantity, Unit};
 
 /// The soft-tag CSV header (stable; documented in the README).
@@ -104,35 +106,6 @@ fn fixed_into(out: &mut String, x: f64, decimals: usize) {
     }
 }
 
-/// Read the last complete line of a file. With `repair`, a half-written tail is truncated
-/// first (the writers, at start); without, it is only skipped (readers such as the report).
-fn last_complete_line(path: &Path, repair: bool) -> io::Result<Option<String>> {
-    let mut f = OpenOptions::new().read(true).write(repair).open(path)?;
-    let len = f.metadata()?.len();
-    if len == 0 {
-        return Ok(None);
-    }
-    let window = len.min(256 * 1024);
-    f.seek(SeekFrom::Start(len - window))?;
-    let mut buf = Vec::with_capacity(usize::try_from(window).unwrap_or(0));
-    f.read_to_end(&mut buf)?;
-    let keep = match buf.iter().rposition(|&b| b == b'\n') {
-        Some(i) => i + 1,
-        None if window == len => 0,
-        None => return Ok(None),
-    };
-    if keep < buf.len() {
-        if repair {
-            // A crash left a partial line: drop it (its content is regenerated on re-processing).
-            f.set_len(len - window + keep as u64)?;
-            f.sync_all()?;
-        }
-        buf.truncate(keep);
-    }
-    let text = String::from_utf8_lossy(&buf);
-    Ok(text.lines().rev().find(|l| !l.trim().is_empty()).map(str::to_string))
-}
-
 /// End (ms) of the newest interval in a unit's soft-tag files in `dir`: the last row of the
 /// newest file that has one (files holding only the header are skipped). `repair` as in
 /// [`last_complete_line`].
@@ -150,71 +123,6 @@ pub(crate) fn newest_soft_tag_ms(dir: &Path, unit: &str, repair: bool) -> io::Re
     Ok(None)
 }
 
-/// Files in `dir` named `<prefix><YYYY-MM-DD><suffix>`, with their date, oldest first.
-pub(crate) fn dated_files(dir: &Path, prefix: &str, suffix: &str) -> Vec<(String, PathBuf)> {
-    let mut v: Vec<(String, PathBuf)> = fs::read_dir(dir)
-        .into_iter()
-        .flatten()
-        .flatten()
-        .filter_map(|e| {
-            let name = e.file_name();
-            let date = name.to_str()?.strip_prefix(prefix)?.strip_suffix(suffix)?;
-            (date.len() == 10).then(|| (date.to_string(), e.path()))
-        })
-        .collect();
-    v.sort();
-    v
-}
-
-/// An append-only dated file with a header.
-struct DayFile {
-    day: String,
-    out: BufWriter<File>,
-}
-
-fn open_day(dir: &Path, name: &str, day: &str, header: Option<&str>) -> io::Result<DayFile> {
-    fs::create_dir_all(dir)?;
-    let path = dir.join(name);
-    let fresh = fs::metadata(&path).map(|m| m.len() == 0).unwrap_or(true);
-    let file = OpenOptions::new().create(true).append(true).open(&path)?;
-    let mut out = BufWriter::with_capacity(64 * 1024, file);
-    if fresh && let Some(h) = header {
-        writeln!(out, "{h}")?;
-    }
-    Ok(DayFile { day: day.to_string(), out })
-}
-
-/// The file of `day` (`<prefix><day><suffix>`), switching to it from the current one (which
-/// is flushed and synced first) when the day changed.
-fn day_file<'a>(
-    current: &'a mut Option<DayFile>,
-    dir: &Path,
-    prefix: &str,
-    suffix: &str,
-    day: &str,
-    header: Option<&str>,
-) -> io::Result<&'a mut DayFile> {
-    if current.as_ref().is_some_and(|c| c.day != day) {
-        flush_day(current, true)?;
-        *current = None;
-    }
-    match current {
-        Some(c) => Ok(c),
-        None => Ok(current.insert(open_day(dir, &format!("{prefix}{day}{suffix}"), day, header)?)),
-    }
-}
-
-/// Flush the current file, and fsync it when `sync`.
-fn flush_day(current: &mut Option<DayFile>, sync: bool) -> io::Result<()> {
-    if let Some(c) = current.as_mut() {
-        c.out.flush()?;
-        if sync {
-            c.out.get_ref().sync_all()?;
-        }
-    }
-    Ok(())
-}
-
 /// Soft-tag CSV writer of one unit.
 pub struct SoftTagWriter {
     dir: PathBuf,
@@ -228,8 +136,12 @@ pub struct SoftTagWriter {
     /// Local dates of interval ends (for the file) and of instants (for the time column).
     days: DayCache,
     times: DayCache,
+    /// Tag and feed names of the flags.
+    names: FlagNames,
     /// The row being formatted (reused).
     row: String,
+    /// The flags cell being formatted (reused).
+    flags: String,
     /// End (ms) of the last interval on disk.
     pub last_written_end: Option<i64>,
 }
@@ -241,6 +153,7 @@ impl SoftTagWriter {
         unit: &str,
         tz: TimeZone,
         temperature: &'static Unit,
+        names: FlagNames,
     ) -> io::Result<SoftTagWriter> {
         let prefix = format!("softtags-{unit}-");
         let last = newest_soft_tag_ms(dir, unit, true)?;
@@ -256,13 +169,15 @@ impl SoftTagWriter {
             current: None,
             days: DayCache::default(),
             times: DayCache::default(),
+            names,
             row: String::with_capacity(256),
+            flags: String::with_capacity(64),
             last_written_end: last,
         })
     }
 
     /// Append one interval, unless it is already on disk. Returns whether it was written.
-    pub fn write(&mut self, ev: &Evaluation, monitor_state: &str) -> io::Result<bool> {
+    pub fn write_row(&mut self, ev: &Evaluation, monitor_state: &str) -> io::Result<bool> {
         if self.last_written_end.is_some_and(|l| ev.end_ms <= l) {
             return Ok(false);
         }
@@ -288,92 +203,26 @@ impl SoftTagWriter {
         row.push(',');
         csv_text_into(row, monitor_state);
         row.push(',');
-        csv_text_into(row, &ev.flags.join(";"));
+        self.flags.clear();
+        write_codes(&mut self.flags, &ev.flags, &self.names);
+        csv_text_into(row, &self.flags);
         row.push('\n');
         file.out.write_all(self.row.as_bytes())?;
         self.last_written_end = Some(ev.end_ms);
         Ok(true)
     }
-
-    /// Flush buffered rows and fsync (before a checkpoint is written).
-    pub fn sync(&mut self) -> io::Result<()> {
-        flush_day(&mut self.current, true)
-    }
-
-    /// Flush buffered rows to the file (no fsync).
-    pub fn flush(&mut self) -> io::Result<()> {
-        flush_day(&mut self.current, false)
-    }
 }
 
-/// Alert JSON-lines writer of one unit.
-pub struct AlertWriter {
-    dir: PathBuf,
-    /// File-name prefix, `alerts-<unit>-`.
-    prefix: String,
-    tz: TimeZone,
-    current: Option<DayFile>,
-    days: DayCache,
-    stdout: bool,
-    /// Sequence number of the last event on disk.
-    pub last_sequence: u64,
-}
-
-impl AlertWriter {
-    /// Open the writer; finds the last sequence number on disk.
-    pub fn open(dir: &Path, unit: &str, tz: TimeZone, stdout: bool) -> io::Result<AlertWriter> {
-        let prefix = format!("alerts-{unit}-");
-        let mut last = 0;
-        for (_, path) in dated_files(dir, &prefix, ".jsonl").into_iter().rev() {
-            if let Some(line) = last_complete_line(&path, true)?
-                && let Ok(v) = serde_json::from_str::<serde_json::Value>(&line)
-            {
-                last = v.get("sequence").and_then(serde_json::Value::as_u64).unwrap_or(0);
-                break;
-            }
-        }
-        Ok(AlertWriter {
-            dir: dir.to_path_buf(),
-            prefix,
-            tz,
-            current: None,
-            days: DayCache::default(),
-            stdout,
-            last_sequence: last,
-        })
+impl Sink for SoftTagWriter {
+    fn write(&mut self, outcome: &Outcome) -> io::Result<()> {
+        self.write_row(&outcome.evaluation, outcome.state.as_str()).map(drop)
     }
 
-    /// Whether an event is not yet on disk (it would be written).
-    pub fn is_new(&self, ev: &AlertEvent) -> bool {
-        ev.sequence > self.last_sequence
-    }
-
-    /// Append an event unless its sequence number is already on disk. Returns whether it was
-    /// written (callers forward only written events).
-    pub fn write(&mut self, ev: &AlertEvent) -> io::Result<bool> {
-        if ev.sequence <= self.last_sequence {
-            return Ok(false);
-        }
-        let day = self.days.day_at(ev.time_ms, &self.tz);
-        let file = day_file(&mut self.current, &self.dir, &self.prefix, ".jsonl", day, None)?;
-        let line = serde_json::to_string(ev).map_err(io::Error::other)?;
-        writeln!(file.out, "{line}")?;
-        if self.stdout {
-            let mut out = io::stdout().lock();
-            writeln!(out, "{line}")?;
-            out.flush()?;
-        }
-        self.last_sequence = ev.sequence;
-        Ok(true)
-    }
-
-    /// Flush buffered events to the file (no fsync).
-    pub fn flush(&mut self) -> io::Result<()> {
+    fn flush(&mut self) -> io::Result<()> {
         flush_day(&mut self.current, false)
     }
 
-    /// Flush and fsync.
-    pub fn sync(&mut self) -> io::Result<()> {
+    fn sync(&mut self) -> io::Result<()> {
         flush_day(&mut self.current, true)
     }
 }
@@ -381,6 +230,8 @@ impl AlertWriter {
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
 mod tests {
+    use std::fs;
+
     use super::*;
 
     #[test]
@@ -440,6 +291,7 @@ mod tests {
             "R-1",
             TimeZone::UTC,
             units::lookup(Quantity::Temperature, "K").unwrap(),
+            FlagNames::default(),
         )
         .unwrap();
         let expected = "2026-12-01T10:01:00Z".parse::<Timestamp>().unwrap().as_millisecond();

@@ -38,7 +38,7 @@ fn short_demo_detects_every_event_with_the_right_cause_and_nothing_else() {
     // Live vs replay: the same exports replayed give the same soft-tag files, byte for byte.
     let site = efftemp::config::SiteConfig::load(&r.dir.join("site.toml")).unwrap();
     let again = dir.path().join("replayed");
-    efftemp::app::service::replay(&site, Some(again.clone())).unwrap();
+    efftemp::app::replay::replay(&site, Some(again.clone())).unwrap();
     // The live service stopped before the wait for late data expired on the last interval,
     // which a replay closes at the end of its input: the last file may lack that one row.
     for (i, live) in r.soft_tags.iter().enumerate() {

@@ -143,7 +143,8 @@ fn modules() -> Vec<Module> {
         if parts.last().is_some_and(|l| l == "mod" || l == "lib") {
             parts.pop();
         }
-        if parts == ["main"] {
+        // The binary's entry point, and test-only modules (`mod tests;` files).
+        if parts == ["main"] || parts.last().is_some_and(|l| l == "tests") {
             continue;
         }
         let text = std::fs::read_to_string(&path).unwrap();

@@ -37,7 +37,7 @@ fn replay(scenario: &Scenario) -> Run {
     let (dir, cfg) = setup(scenario);
     let site = SiteConfig::load(&cfg).unwrap();
     let out = dir.path().join("output");
-    efftemp::app::service::replay(&site, Some(out.clone())).unwrap();
+    efftemp::app::replay::replay(&site, Some(out.clone())).unwrap();
     let events = efftemp::sinks::report::load_events(&out.join("R-204"), "R-204", i64::MAX);
     Run { events, _dir: dir, out }
 }

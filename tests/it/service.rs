@@ -97,7 +97,7 @@ fn includes_are_followed_and_located() {
 
 fn replay(plant: &TestPlant, output: &Path) -> String {
     let site = SiteConfig::load(&plant.config).unwrap();
-    service::replay(&site, Some(output.to_path_buf())).unwrap();
+    efftemp::app::replay::replay(&site, Some(output.to_path_buf())).unwrap();
     TestPlant::soft_tags(output)
 }
 
@@ -267,7 +267,7 @@ fn local_timestamps_through_the_autumn_clock_change() {
     plant.append("plant_20261025.csv", &text);
     let out = tempfile::tempdir().unwrap();
     let site = SiteConfig::load(&plant.config).unwrap();
-    let sum = service::replay(&site, Some(out.path().to_path_buf())).unwrap();
+    let sum = efftemp::app::replay::replay(&site, Some(out.path().to_path_buf())).unwrap();
     assert_eq!((sum.rejected, sum.intervals), (0, 240));
 }
 

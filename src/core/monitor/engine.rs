@@ -21,6 +21,7 @@ use super::dynamics::Fopdt;
 use super::settings::MonitorConfig;
 use super::ssd::{Floor, SteadyState};
 use super::stats::{self, AsymptoticFit, LineFit};
+use crate::core::flags::Flag;
 use crate::core::model::Evaluation;
 use crate::core::spec::UnitSpec;
 use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
@@ -289,7 +290,7 @@ pub struct MonitorOutput {
     /// Statistical conditions for the alert lifecycle.
     pub conditions: Vec<Condition>,
     /// Extra soft-tag flags.
-    pub flags: Vec<String>,
+    pub flags: Vec<Flag>,
     /// A log line when something notable happened (baseline learned...).
     pub note: Option<String>,
 }
@@ -363,7 +364,7 @@ impl Monitor {
         {
             self.pause();
             out.state = self.state;
-            out.flags.push("unit_down".into());
+            out.flags.push(Flag::UnitDown);
             return out;
         }
         self.instrument_checks(cfg, unit, e, pred_ss, meas, r, &mut out);
@@ -387,7 +388,7 @@ impl Monitor {
             // stationary across operating changes) and completes with later steady intervals.
             self.state = MonitorState::Unsteady;
             self.settle_until_ms = None;
-            out.flags.push("unsteady".into());
+            out.flags.push(Flag::Unsteady);
             self.gross_check(cfg, e, r, &mut out);
             out.state = self.state;
             self.emit_active(&mut out);
@@ -448,7 +449,7 @@ impl Monitor {
             self.end_block(cfg, unit, acc, e, &mut out);
         }
         if e.u_pred_k.is_some_and(|u| u > cfg.max_prediction_uncertainty) {
-            out.flags.push("uncertain_inputs".into());
+            out.flags.push(Flag::UncertainInputs);
         } else {
             self.emit_active(&mut out);
         }
@@ -560,8 +561,7 @@ impl Monitor {
             dev.sort_unstable_by(f64::total_cmp);
             let mad = (1.4826 * dev[3]).max(sigma_i);
             if (centre - med).abs() > 3.0 * mad && self.baseline.is_some() {
-                let tag = &unit.tags[unit.effluent_temperature].name;
-                out.flags.push(format!("spike:{tag}"));
+                out.flags.push(Flag::Spike(unit.effluent_temperature));
                 self.spikes.push_back(e.end_ms);
             }
         }
@@ -652,7 +652,7 @@ impl Monitor {
         let Some(b) = &self.baseline else { return };
         let z = (r - b.mu) / b.sigma_interval.max(1e-3);
         if z.abs() > cfg.gross_z {
-            out.flags.push("gross_residual".into());
+            out.flags.push(Flag::GrossResidual);
             let _ = e;
         }
     }

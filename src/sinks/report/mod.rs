@@ -78,7 +78,7 @@ pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone
     } else {
         crate::core::calendar::day_of(to_ms, tz)
     };
-    let files: Vec<PathBuf> = crate::sinks::softtags::dated_files(dir, &prefix, ".csv")
+    let files: Vec<PathBuf> = crate::sinks::daily::dated_files(dir, &prefix, ".csv")
         .into_iter()
         .filter(|(d, _)| *d >= first && *d <= last)
         .map(|(_, p)| p)
@@ -98,7 +98,7 @@ pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone
 
 /// Every alert event of a unit up to `to_ms` (all files: active alerts may be old).
 pub fn load_events(dir: &Path, unit: &str, to_ms: i64) -> Vec<AlertEvent> {
-    let files = crate::sinks::softtags::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
+    let files = crate::sinks::daily::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
     let mut out = Vec::new();
     for (_, f) in files {
         for line in std::fs::read_to_string(&f).unwrap_or_default().lines() {

@@ -1,0 +1,93 @@
+//! The alert log: one JSON object per alert event, one file per unit and local day
+//! (`alerts-<unit>-<date>.jsonl`), optionally echoed on standard output. Idempotent: an event
+//! whose sequence number is already on disk is not written again.
+
+use std::io::{self, Write};
+use std::path::{Path, PathBuf};
+
+use jiff::tz::TimeZone;
+
+use crate::core::Outcome;
+use crate::core::alerts::AlertEvent;
+use crate::core::calendar::DayCache;
+use crate::sinks::Sink;
+use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, last_complete_line};
+
+/// Alert JSON-lines writer of one unit.
+pub struct AlertWriter {
+    dir: PathBuf,
+    /// File-name prefix, `alerts-<unit>-`.
+    prefix: String,
+    tz: TimeZone,
+    current: Option<DayFile>,
+    days: DayCache,
+    stdout: bool,
+    /// Sequence number of the last event on disk.
+    pub last_sequence: u64,
+}
+
+impl AlertWriter {
+    /// Open the writer; finds the last sequence number on disk.
+    pub fn open(dir: &Path, unit: &str, tz: TimeZone, stdout: bool) -> io::Result<AlertWriter> {
+        let prefix = format!("alerts-{unit}-");
+        let mut last = 0;
+        for (_, path) in dated_files(dir, &prefix, ".jsonl").into_iter().rev() {
+            if let Some(line) = last_complete_line(&path, true)?
+                && let Ok(v) = serde_json::from_str::<serde_json::Value>(&line)
+            {
+                last = v.get("sequence").and_then(serde_json::Value::as_u64).unwrap_or(0);
+                break;
+            }
+        }
+        Ok(AlertWriter {
+            dir: dir.to_path_buf(),
+            prefix,
+            tz,
+            current: None,
+            days: DayCache::default(),
+            stdout,
+            last_sequence: last,
+        })
+    }
+
+    /// Whether an event is not yet on disk (it would be written).
+    pub fn is_new(&self, ev: &AlertEvent) -> bool {
+        ev.sequence > self.last_sequence
+    }
+
+    /// Append an event unless its sequence number is already on disk. Returns whether it was
+    /// written (callers forward only written events).
+    pub fn write_event(&mut self, ev: &AlertEvent) -> io::Result<bool> {
+        if ev.sequence <= self.last_sequence {
+            return Ok(false);
+        }
+        let day = self.days.day_at(ev.time_ms, &self.tz);
+        let file = day_file(&mut self.current, &self.dir, &self.prefix, ".jsonl", day, None)?;
+        let line = serde_json::to_string(ev).map_err(io::Error::other)?;
+        writeln!(file.out, "{line}")?;
+        if self.stdout {
+            let mut out = io::stdout().lock();
+            writeln!(out, "{line}")?;
+            out.flush()?;
+        }
+        self.last_sequence = ev.sequence;
+        Ok(true)
+    }
+}
+
+impl Sink for AlertWriter {
+    fn write(&mut self, outcome: &Outcome) -> io::Result<()> {
+        for event in &outcome.events {
+            self.write_event(event)?;
+        }
+        Ok(())
+    }
+
+    fn flush(&mut self) -> io::Result<()> {
+        flush_day(&mut self.current, false)
+    }
+
+    fn sync(&mut self) -> io::Result<()> {
+        flush_day(&mut self.current, true)
+    }
+}
