@@ -1,7 +1,9 @@
-//! The data path, shared by `run`, `replay` and the demo. Per unit: the export files are read
-//! ([`ExportReader`]: tail → rows) into samples, assembled into intervals in event time
-//! ([`Assembler`]), each closed interval is computed by the pure core ([`UnitCore::step`]) and
-//! its outcome written by the [`Sinks`]; then everything is checkpointed.
+//! The data path, shared by `run`, `replay` and the demo. Per unit ([`UnitRuntime`]): the
+//! export files are read ([`ExportReader`](crate::ingest::reader::ExportReader): tail → rows)
+//! into samples, assembled into intervals in event time
+//! ([`Assembler`](crate::core::assembly::Assembler)), each closed interval is computed by the
+//! pure core ([`UnitCore::step`](crate::core::UnitCore::step)) and its outcome written by the
+//! [`Sinks`](crate::sinks::Sinks); then everything is checkpointed ([`state`]).
 //!
 //! Synchronous and driven by its caller: `run` calls [`Pipeline::pass`] on file events and
 //! ticks, `replay` in a loop until the input is exhausted. The caller injects the monotonic
@@ -14,27 +16,18 @@ use std::sync::Arc;
 
 use tracing::{info, warn};
 
-use crate::config::{ServiceConfig, SiteConfig, UnitConfig};
-use crate::core::alerts::AlertEvent;
-use crate::core::assembly::{Added, Assembler, Closed, TagRule};
-use crate::core::flags::{Flag, FlagNames};
-use crate::core::model::Evaluation;
-use crate::core::{Note, UnitCore};
-use crate::ingest::reader::{ExportReader, Read};
-use crate::ingest::tail::TailOptions;
-use crate::sinks::alert_log::AlertWriter;
+use crate::config::SiteConfig;
 use crate::sinks::checkpoint::StateDir;
-use crate::sinks::report::ReportUnit;
-use crate::sinks::shift_reports::ShiftReports;
-use crate::sinks::softtags::SoftTagWriter;
 use crate::sinks::syslog::Forwarder;
-use crate::sinks::{Sinks, SyslogSink, ingest_counts};
 
 mod counters;
 pub mod state;
+mod unit;
 
 pub use counters::{Counters, Tally, UnitSnapshot};
-use state::{Stored, StoredRef, UnitState, UnitStateRef};
+use state::{Stored, StoredRef};
+use unit::Outputs;
+pub use unit::UnitRuntime;
 
 /// Where a pipeline writes and how it treats its state.
 #[derive(Debug, Clone, PartialEq)]
@@ -46,238 +39,6 @@ pub enum Mode {
         /// Output directory (the site's when `None`).
         output: Option<PathBuf>,
     },
-}
-
-/// One unit's runtime.
-pub struct UnitRuntime {
-    /// Configuration.
-    pub cfg: Arc<UnitConfig>,
-    reader: ExportReader,
-    assembler: Assembler,
-    core: UnitCore,
-    sinks: Sinks,
-    tally: Tally,
-    /// The unit's output directory.
-    dir: PathBuf,
-    /// Counters.
-    pub counters: Counters,
-    /// The last evaluation (for status displays).
-    pub last: Option<Evaluation>,
-    /// Events written in the last pass (for the terminal display of the demo).
-    pub new_events: Vec<AlertEvent>,
-    /// Shift reports written in the last pass: (path, text summary).
-    pub new_reports: Vec<(PathBuf, String)>,
-    /// Monotonic time of the last accepted sample.
-    last_data_mono: Option<u64>,
-    /// Whether a pass has run since this runtime was created.
-    started: bool,
-}
-
-/// What the reader's records and the closed intervals flow through in one pass.
-struct Downstream<'a> {
-    assembler: &'a mut Assembler,
-    core: &'a mut UnitCore,
-    sinks: &'a mut Sinks,
-    tally: &'a mut Tally,
-    counters: &'a mut Counters,
-    last: &'a mut Option<Evaluation>,
-    new_events: &'a mut Vec<AlertEvent>,
-    new_reports: &'a mut Vec<(PathBuf, String)>,
-    got_data: bool,
-    error: Option<io::Error>,
-}
-
-impl Downstream<'_> {
-    /// A record from the reader: its samples into the assembler, intervals closed when ready.
-    fn read(&mut self, read: Read<'_>) {
-        let spec = self.core.spec();
-        match read {
-            Read::Record { file, line, samples, rejects } => {
-                self.counters.records += 1;
-                let mut late = 0;
-                for s in samples {
-                    match self.assembler.add(s) {
-                        Added::Accepted => {
-                            self.counters.samples += 1;
-                            self.got_data = true;
-                        }
-                        Added::Late => {
-                            self.counters.late += 1;
-                            late += 1;
-                            warn!(unit = %spec.name, file = %file.display(), line, tag = %spec.tags[s.tag].name, "late sample for an interval already closed: counted, not used");
-                        }
-                    }
-                }
-                for r in rejects {
-                    *self.counters.rejected.entry(r.code()).or_default() += 1;
-                }
-                self.tally.record(self.assembler.max_event(), &spec.time_zone, late, rejects);
-                if self.assembler.ready(false) {
-                    self.close(false);
-                }
-            }
-            Read::Rejected { code } => {
-                *self.counters.rejected.entry(code).or_default() += 1;
-                self.tally.rejected(self.assembler.max_event(), &spec.time_zone, code);
-            }
-        }
-    }
-
-    /// Close every interval that is ready: compute it, write its outcome.
-    fn close(&mut self, quiet: bool) {
-        while self.error.is_none() {
-            let Some(closed) = self.assembler.close_next(quiet) else { break };
-            if let Err(e) = self.interval(&closed) {
-                self.error = Some(e);
-            }
-        }
-        self.tally.trim();
-    }
-
-    fn interval(&mut self, closed: &Closed) -> io::Result<()> {
-        self.counters.conflicting_duplicates += u64::from(closed.conflicting_duplicates);
-        let o = self.core.step(closed);
-        let spec = self.core.spec();
-        for note in &o.notes {
-            match note {
-                Note::Monitor(n) => info!(unit = %spec.name, "{n}"),
-                Note::Audit(n) => info!(target: "efftemp::audit", unit = %spec.name, "{n}"),
-            }
-        }
-        let ev = &o.evaluation;
-        self.counters.intervals += 1;
-        self.tally.interval(ev.end_ms, &spec.time_zone, ev.predicted_k.is_some());
-        if ev.predicted_k.is_none() {
-            self.counters.not_computed += 1;
-            self.counters.solver_failures += u64::from(ev.flags.contains(&Flag::SolverFailed));
-        }
-        let written = self.sinks.write(&o)?;
-        for e in written.events {
-            let k = (e.cause.as_str().to_string(), e.event.as_str().to_string());
-            *self.counters.alert_events.entry(k).or_default() += 1;
-            self.new_events.push(e);
-        }
-        self.new_reports.extend(written.report);
-        *self.last = Some(o.evaluation);
-        Ok(())
-    }
-}
-
-/// Site facts every unit's sinks need.
-struct Outputs<'a> {
-    site: &'a SiteConfig,
-    dir: PathBuf,
-    stdout: bool,
-}
-
-impl UnitRuntime {
-    fn new(
-        cfg: &UnitConfig,
-        service: &ServiceConfig,
-        out: &Outputs<'_>,
-        saved: UnitState,
-    ) -> io::Result<Self> {
-        let spec = Arc::new(cfg.spec.clone());
-        let options = TailOptions {
-            pattern: cfg.input.pattern.clone(),
-            max_record_bytes: service.max_record_bytes,
-            seal_after_ms: service.seal_after_ms,
-            links_outside: cfg.input.links_outside,
-            ..TailOptions::default()
-        };
-        let names: Vec<String> = spec.tags.iter().map(|t| t.name.clone()).collect();
-        let reader = ExportReader::new(&spec.name, &cfg.input, options, &names, Some(saved.tail));
-        let rules = TagRule::of(&spec);
-        let assembler = match saved.assembler {
-            Some(a) => Assembler::restore(a, spec.interval_ms, spec.max_wait_ms, rules),
-            None => Assembler::new(spec.interval_ms, spec.max_wait_ms, rules),
-        };
-        let dir = out.dir.join(&spec.name);
-        let (tz, unit) = (spec.time_zone.clone(), spec.temperature_unit());
-        let saved_end = saved.last_end_ms;
-        let sinks = Sinks {
-            soft_tags: SoftTagWriter::open(&dir, &spec.name, tz.clone(), unit, FlagNames::new(&spec))?,
-            syslog: None,
-            alert_log: AlertWriter::open(&dir, &spec.name, tz, out.stdout)?,
-            reports: Some(ShiftReports::new(
-                ReportUnit::new(&out.site.name, &cfg.description, &spec),
-                out.dir.clone(),
-                out.site.shifts.clone(),
-                out.site.shift_reports,
-                saved_end,
-            )),
-        };
-        Ok(UnitRuntime {
-            cfg: Arc::new(cfg.clone()),
-            reader,
-            assembler,
-            core: UnitCore::new(spec, saved.monitor, saved.alerts),
-            sinks,
-            tally: Tally::new(saved.ingest),
-            dir,
-            counters: Counters::default(),
-            last: None,
-            new_events: Vec::new(),
-            new_reports: Vec::new(),
-            last_data_mono: None,
-            started: false,
-        })
-    }
-
-    fn state(&self) -> UnitStateRef<'_> {
-        UnitStateRef {
-            tail: self.reader.state(),
-            assembler: &self.assembler,
-            alerts: self.core.alerts(),
-            monitor: self.core.monitor(),
-            ingest: &self.tally.days,
-            last_end_ms: self.sinks.reports.as_ref().and_then(|r| r.last_end_ms),
-        }
-    }
-
-    /// One pass: read what is new, close what is ready. `flush` closes the open intervals (end
-    /// of the replay input); they are also closed when the stream has been quiet for
-    /// `max_wait` of monotonic time (live).
-    fn pass(&mut self, now_mono: u64, flush: bool) -> io::Result<u64> {
-        let mut down = Downstream {
-            assembler: &mut self.assembler,
-            core: &mut self.core,
-            sinks: &mut self.sinks,
-            tally: &mut self.tally,
-            counters: &mut self.counters,
-            last: &mut self.last,
-            new_events: &mut self.new_events,
-            new_reports: &mut self.new_reports,
-            got_data: false,
-            error: None,
-        };
-        let stats = self.reader.poll(now_mono, &mut |read| down.read(read));
-        down.counters.bytes += stats.bytes_read;
-        if down.got_data {
-            self.last_data_mono = Some(now_mono);
-        }
-        if !self.started {
-            // Intervals restored open from the checkpoint wait for late data like any others:
-            // without new data they close after max_wait from this start.
-            self.started = true;
-            if self.last_data_mono.is_none() && down.assembler.has_open() {
-                self.last_data_mono = Some(now_mono);
-            }
-        }
-        let wait = u64::try_from(down.core.spec().max_wait_ms).unwrap_or(u64::MAX);
-        let quiet = flush || self.last_data_mono.is_some_and(|t| now_mono.saturating_sub(t) >= wait);
-        down.close(quiet);
-        if quiet {
-            // Flushed: nothing more to do until new data arrive (no timer keeps firing).
-            self.last_data_mono = None;
-        }
-        if let Some(e) = down.error {
-            return Err(e);
-        }
-        // Make what this pass wrote visible to readers at once (fsync waits for the checkpoint).
-        self.sinks.flush()?;
-        Ok(stats.records)
-    }
 }
 
 /// The pipeline of a site.
@@ -373,7 +134,7 @@ impl Pipeline {
                         warn!(file = %file.display(), unit = %r.unit, "request for an unknown unit ignored")
                     }
                     Some(u) => {
-                        let note = r.apply(&mut u.core);
+                        let note = u.apply(&r);
                         info!(target: "efftemp::audit", unit = %r.unit, action = r.action_name(), by = %r.by, reason = %r.reason, "{note}");
                     }
                 },
@@ -387,9 +148,7 @@ impl Pipeline {
     /// Sync the outputs, then write the checkpoint (outputs are never behind the checkpoint).
     pub fn checkpoint(&mut self) -> Result<(), PipelineError> {
         for u in &mut self.units {
-            let name = &u.cfg.spec.name;
-            u.sinks.sync().map_err(|source| PipelineError::Output { unit: name.clone(), source })?;
-            ingest_counts::write_days(&u.dir, name, &u.tally.days);
+            u.sync().map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;
         }
         if let Some(dir) = self.state.as_mut() {
             let units = self.units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect();
@@ -402,36 +161,14 @@ impl Pipeline {
 
     /// The per-unit figures for `/metrics`.
     pub fn snapshot_units(&self) -> Vec<UnitSnapshot> {
-        self.units
-            .iter()
-            .map(|u| {
-                let mut active: BTreeMap<String, u64> = BTreeMap::new();
-                for a in u.core.alerts().active() {
-                    *active.entry(a.cause.as_str().to_string()).or_default() += 1;
-                }
-                UnitSnapshot {
-                    name: u.cfg.spec.name.clone(),
-                    records: u.counters.records,
-                    rejected: u.counters.rejected.iter().map(|(k, v)| ((*k).to_string(), *v)).collect(),
-                    late: u.counters.late,
-                    intervals: u.counters.intervals,
-                    not_computed: u.counters.not_computed,
-                    solver_failures: u.counters.solver_failures,
-                    alert_events: u.counters.alert_events.clone(),
-                    active_alerts: active,
-                    last_data_ms: u.assembler.max_event(),
-                    monitor_state: u.core.monitor().state.as_str().to_string(),
-                    bytes: u.counters.bytes,
-                }
-            })
-            .collect()
+        self.units.iter().map(UnitRuntime::snapshot).collect()
     }
 
     /// Forward every new alert event to syslog through `f` (the live service): events already
     /// in a unit's alert log are not sent again.
     pub fn set_forwarder(&mut self, f: &Arc<Forwarder>) {
         for u in &mut self.units {
-            u.sinks.syslog = Some(SyslogSink::new(f.clone(), u.sinks.alert_log.last_sequence));
+            u.forward_to(f);
         }
     }
 
@@ -443,10 +180,6 @@ impl Pipeline {
     /// Earliest monotonic time at which a quiet stream should be flushed (for the service's
     /// timer: no periodic wake-ups are needed for it).
     pub fn next_quiet_deadline(&self) -> Option<u64> {
-        self.units
-            .iter()
-            .filter(|u| u.assembler.has_open())
-            .filter_map(|u| u.last_data_mono.map(|t| t + u64::try_from(u.cfg.spec.max_wait_ms).unwrap_or(0)))
-            .min()
+        self.units.iter().filter_map(UnitRuntime::quiet_deadline).min()
     }
 }

@@ -99,7 +99,7 @@ impl fmt::Display for Location {
     }
 }
 
-/// An error located in a source file. Display: `case.toml:12:9: `feed[1].flow`: message`.
+/// An error located in a source file. Display: ``case.toml:12:9: `feed[1].flow`: message``.
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
 #[error("{location}: {message}")]
 pub struct LocatedError {

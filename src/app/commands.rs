@@ -1,5 +1,5 @@
 //! The commands. Each returns `Ok` or a [`Failure`]; [`crate::app::cli`] prints the failure and
-//! maps it to the exit code. What a command prints on standard output goes through [`say`],
+//! maps it to the exit code. What a command prints on standard output goes through `say`,
 //! so that a closed pipe ends it quietly.
 
 use std::fmt::Display;

@@ -112,7 +112,7 @@ pub struct TagConfig {
 /// Where a model input comes from.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Signal {
-    /// A tag of the unit (index into [`UnitConfig::tags`]).
+    /// A tag of the unit (index into [`UnitSpec::tags`]).
     Tag(usize),
     /// A fixed SI value with its standard uncertainty.
     Fixed {
