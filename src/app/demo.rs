@@ -177,74 +177,215 @@ fn day_label(ms: i64) -> String {
         .unwrap_or_default()
 }
 
+/// Write the demo's site file into `dir` and load it.
+fn write_site(dir: &Path, scenario: &Scenario) -> anyhow::Result<Arc<SiteConfig>> {
+    let cfg_path = dir.join("site.toml");
+    std::fs::write(
+        &cfg_path,
+        sim::site_config("exports", "state", "output", scenario.conversion_analyzer, "10m", 100),
+    )?;
+    Ok(Arc::new(SiteConfig::load(&cfg_path).map_err(|e| anyhow::anyhow!("demo configuration: {e}"))?))
+}
+
+/// Say what the demo simulates and which events it injects.
+fn announce(opts: &DemoOptions, scenario: &Scenario, speed: f64, dir: &Path) {
+    eprintln!(
+        "efftemp demo: reactor R-204 of the (invented) Larchmoor works, {} simulated days from {} at {:.0}x; files in {}",
+        opts.days,
+        day_label(sim::START_S * 1000),
+        speed,
+        dir.display()
+    );
+    eprintln!("  injected events:");
+    for e in &scenario.events {
+        eprintln!("    {}  {}", day_label(e.start_s * 1000), e.description);
+    }
+    eprintln!(
+        "  the first ~1.5 days teach the monitor its baseline; alerts appear below as the service raises them.\n"
+    );
+}
+
+/// What the service's observer shares with the demo while it runs: how far the service has
+/// processed, the alert events and the shift reports so far.
+#[derive(Default)]
+struct Seen {
+    last_end: Arc<AtomicI64>,
+    events: Arc<Mutex<Vec<AlertEvent>>>,
+    reports: Arc<Mutex<Vec<PathBuf>>>,
+}
+
+impl Seen {
+    /// The service's observer: records progress, events and reports, and prints each alert
+    /// event when `verbose` (clearing a progress line first on a terminal).
+    fn observer(&self, verbose: bool, tty: bool) -> service::Observer {
+        let (le, ev, rp) = (self.last_end.clone(), self.events.clone(), self.reports.clone());
+        Box::new(move |p| {
+            for u in &p.units {
+                if let Some(last) = &u.last {
+                    le.store(last.end_ms, Ordering::Relaxed);
+                }
+                for e in &u.new_events {
+                    if verbose {
+                        print_event(e, tty);
+                    }
+                    if let Ok(mut v) = ev.lock() {
+                        v.push(e.clone());
+                    }
+                }
+                for (path, _) in &u.new_reports {
+                    if let Ok(mut v) = rp.lock() {
+                        v.push(path.clone());
+                    }
+                }
+            }
+        })
+    }
+}
+
+/// One alert event as a line on standard error.
+fn print_event(e: &AlertEvent, tty: bool) {
+    let mark = match e.event {
+        AlertKind::Raised => "RAISED ",
+        AlertKind::Updated => "update ",
+        AlertKind::Cleared => "cleared",
+    };
+    let msg: String = e.message.chars().take(150).collect();
+    eprintln!(
+        "{}[{}] {mark} {:<16} {:<6} {}: {msg}",
+        if tty { "\r\x1b[K" } else { "" },
+        day_label(e.time_ms),
+        e.cause.as_str(),
+        e.severity.as_str(),
+        e.subject
+    );
+}
+
+/// Append the plant's rows up to simulated time `target` to the export files (one file per
+/// day, a header first in a new file).
+fn append_rows(plant: &mut Plant, target: i64, exports: &Path) -> std::io::Result<()> {
+    let mut chunks: Vec<(String, String)> = Vec::new();
+    while plant.time_s() <= target {
+        let t = plant.time_s();
+        let Some(row) = plant.next_row() else { break };
+        let name = Plant::file_name(t);
+        match chunks.last_mut() {
+            Some((n, text)) if *n == name => {
+                text.push_str(&row);
+                text.push('\n');
+            }
+            _ => chunks.push((name, format!("{row}\n"))),
+        }
+    }
+    for (name, text) in chunks {
+        let path = exports.join(&name);
+        let fresh = !path.exists();
+        let mut f = std::fs::OpenOptions::new().create(true).append(true).open(&path)?;
+        if fresh {
+            writeln!(f, "{}", Plant::header())?;
+        }
+        f.write_all(text.as_bytes())?;
+    }
+    Ok(())
+}
+
+/// The writer: the plant in accelerated time, writing into the export directory.
+struct Writer<'a> {
+    scenario: &'a Scenario,
+    exports: PathBuf,
+    /// Simulated seconds per wall second.
+    speed: f64,
+    /// Simulated seconds from the start to the end of the scenario.
+    total_s: i64,
+    /// Redraw a progress line (verbose, on a terminal).
+    progress: bool,
+    seen: &'a Seen,
+}
+
+impl Writer<'_> {
+    /// Write the plant's rows as their simulated time comes (from `started`) until the scenario
+    /// ends, then give the service up to 2 minutes to process the last complete interval.
+    async fn run(&self, started: Instant) -> anyhow::Result<()> {
+        let mut plant = Plant::new(self.scenario.clone());
+        let mut last_draw = Instant::now();
+        loop {
+            let target = sim::START_S + (started.elapsed().as_secs_f64() * self.speed) as i64;
+            append_rows(&mut plant, target, &self.exports)?;
+            if self.progress && last_draw.elapsed() > Duration::from_millis(250) {
+                self.draw_progress(&plant);
+                last_draw = Instant::now();
+            }
+            if plant.time_s() >= self.scenario.end_s() {
+                break;
+            }
+            tokio::time::sleep(Duration::from_millis(20)).await;
+        }
+        // Let the service catch up with the last complete interval.
+        let goal = (self.scenario.end_s() - 120) * 1000;
+        let deadline = Instant::now() + Duration::from_secs(120);
+        while self.seen.last_end.load(Ordering::Relaxed) < goal && Instant::now() < deadline {
+            tokio::time::sleep(Duration::from_millis(100)).await;
+        }
+        Ok(())
+    }
+
+    /// The progress line: simulated time, how far the service has processed, alerts raised.
+    fn draw_progress(&self, plant: &Plant) {
+        let done = (plant.time_s() - sim::START_S) as f64 / self.total_s as f64;
+        let n = self
+            .seen
+            .events
+            .lock()
+            .map(|v| v.iter().filter(|e| e.event == AlertKind::Raised).count())
+            .unwrap_or(0);
+        eprint!(
+            "\r\x1b[K  simulated {} ({:.0} %), processed to {}, {n} alert(s) raised ",
+            day_label(plant.time_s() * 1000),
+            done * 100.0,
+            day_label(self.seen.last_end.load(Ordering::Relaxed))
+        );
+        let _ = std::io::stderr().flush();
+    }
+}
+
+/// What the demo left in `dir`: the unit's alert events scored against the injected events,
+/// and its output files.
+fn results(dir: &Path, scenario: &Scenario) -> DemoResult {
+    let out = dir.join("output").join("R-204");
+    let all = crate::sinks::report::load_events(&out, "R-204", i64::MAX);
+    let (scores, false_alerts) = score(&all, &scenario.events);
+    DemoResult {
+        dir: dir.to_path_buf(),
+        scores,
+        false_alerts,
+        soft_tags: files(&out, "softtags-"),
+        alert_logs: files(&out, "alerts-"),
+        reports: files(&out.join("reports"), "shift-"),
+        events: all,
+    }
+}
+
 /// Run the demo.
 pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
     let dir = fresh_dir(opts)?;
     let scenario = Scenario::demo(opts.seed, opts.days);
     let total_s = scenario.end_s() - sim::START_S;
     let speed = opts.speed.unwrap_or(total_s as f64 / 40.0).max(1.0);
-    let cfg_path = dir.join("site.toml");
-    std::fs::write(
-        &cfg_path,
-        sim::site_config("exports", "state", "output", scenario.conversion_analyzer, "10m", 100),
-    )?;
-    let site = Arc::new(SiteConfig::load(&cfg_path).map_err(|e| anyhow::anyhow!("demo configuration: {e}"))?);
+    let site = write_site(&dir, &scenario)?;
     let tty = std::io::stderr().is_terminal();
     if opts.verbose {
-        eprintln!(
-            "efftemp demo: reactor R-204 of the (invented) Larchmoor works, {} simulated days from {} at {:.0}x; files in {}",
-            opts.days,
-            day_label(sim::START_S * 1000),
-            speed,
-            dir.display()
-        );
-        eprintln!("  injected events:");
-        for e in &scenario.events {
-            eprintln!("    {}  {}", day_label(e.start_s * 1000), e.description);
-        }
-        eprintln!(
-            "  the first ~1.5 days teach the monitor its baseline; alerts appear below as the service raises them.\n"
-        );
+        announce(opts, &scenario, speed, &dir);
     }
     let rt = tokio::runtime::Builder::new_multi_thread().worker_threads(2).enable_all().build()?;
-    let last_end = Arc::new(AtomicI64::new(0));
-    let events: Arc<Mutex<Vec<AlertEvent>>> = Arc::new(Mutex::new(Vec::new()));
-    let reports: Arc<Mutex<Vec<PathBuf>>> = Arc::new(Mutex::new(Vec::new()));
-    let (le, ev, rp, verbose) = (last_end.clone(), events.clone(), reports.clone(), opts.verbose);
-    let observer: service::Observer = Box::new(move |p| {
-        for u in &p.units {
-            if let Some(last) = &u.last {
-                le.store(last.end_ms, Ordering::Relaxed);
-            }
-            for e in &u.new_events {
-                if verbose {
-                    let mark = match e.event {
-                        AlertKind::Raised => "RAISED ",
-                        AlertKind::Updated => "update ",
-                        AlertKind::Cleared => "cleared",
-                    };
-                    let msg: String = e.message.chars().take(150).collect();
-                    eprintln!(
-                        "{}[{}] {mark} {:<16} {:<6} {}: {msg}",
-                        if tty { "\r\x1b[K" } else { "" },
-                        day_label(e.time_ms),
-                        e.cause.as_str(),
-                        e.severity.as_str(),
-                        e.subject
-                    );
-                }
-                if let Ok(mut v) = ev.lock() {
-                    v.push(e.clone());
-                }
-            }
-            for (path, _) in &u.new_reports {
-                if let Ok(mut v) = rp.lock() {
-                    v.push(path.clone());
-                }
-            }
-        }
-    });
-    let exports = dir.join("exports");
+    let seen = Seen::default();
+    let observer = seen.observer(opts.verbose, tty);
+    let writer = Writer {
+        scenario: &scenario,
+        exports: dir.join("exports"),
+        speed,
+        total_s,
+        progress: tty && opts.verbose,
+        seen: &seen,
+    };
     let started = Instant::now();
     let result: anyhow::Result<()> = rt.block_on(async {
         let (tx, rx) = tokio::sync::oneshot::channel::<()>();
@@ -257,59 +398,7 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
             Some(observer),
             None,
         ));
-        // The writer: the plant in accelerated time.
-        let mut plant = Plant::new(scenario.clone());
-        let mut last_draw = Instant::now();
-        loop {
-            let target = sim::START_S + (started.elapsed().as_secs_f64() * speed) as i64;
-            let mut chunks: Vec<(String, String)> = Vec::new();
-            while plant.time_s() <= target {
-                let t = plant.time_s();
-                let Some(row) = plant.next_row() else { break };
-                let name = Plant::file_name(t);
-                match chunks.last_mut() {
-                    Some((n, text)) if *n == name => {
-                        text.push_str(&row);
-                        text.push('\n');
-                    }
-                    _ => chunks.push((name, format!("{row}\n"))),
-                }
-            }
-            for (name, text) in chunks {
-                let path = exports.join(&name);
-                let fresh = !path.exists();
-                let mut f = std::fs::OpenOptions::new().create(true).append(true).open(&path)?;
-                if fresh {
-                    writeln!(f, "{}", Plant::header())?;
-                }
-                f.write_all(text.as_bytes())?;
-            }
-            if tty && opts.verbose && last_draw.elapsed() > Duration::from_millis(250) {
-                let done = (plant.time_s() - sim::START_S) as f64 / total_s as f64;
-                let n = events
-                    .lock()
-                    .map(|v| v.iter().filter(|e| e.event == AlertKind::Raised).count())
-                    .unwrap_or(0);
-                eprint!(
-                    "\r\x1b[K  simulated {} ({:.0} %), processed to {}, {n} alert(s) raised ",
-                    day_label(plant.time_s() * 1000),
-                    done * 100.0,
-                    day_label(last_end.load(Ordering::Relaxed))
-                );
-                let _ = std::io::stderr().flush();
-                last_draw = Instant::now();
-            }
-            if plant.time_s() >= scenario.end_s() {
-                break;
-            }
-            tokio::time::sleep(Duration::from_millis(20)).await;
-        }
-        // Let the service catch up with the last complete interval.
-        let goal = (scenario.end_s() - 120) * 1000;
-        let deadline = Instant::now() + Duration::from_secs(120);
-        while last_end.load(Ordering::Relaxed) < goal && Instant::now() < deadline {
-            tokio::time::sleep(Duration::from_millis(100)).await;
-        }
+        writer.run(started).await?;
         let _ = tx.send(());
         svc.await??;
         Ok(())
@@ -318,18 +407,7 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
     if tty && opts.verbose {
         eprint!("\r\x1b[K");
     }
-    let out = dir.join("output").join("R-204");
-    let all = crate::sinks::report::load_events(&out, "R-204", i64::MAX);
-    let (scores, false_alerts) = score(&all, &scenario.events);
-    let res = DemoResult {
-        dir: dir.clone(),
-        scores,
-        false_alerts,
-        soft_tags: files(&out, "softtags-"),
-        alert_logs: files(&out, "alerts-"),
-        reports: files(&out.join("reports"), "shift-"),
-        events: all,
-    };
+    let res = results(&dir, &scenario);
     if opts.discard {
         std::fs::remove_dir_all(&dir)?;
     }

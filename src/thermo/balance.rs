@@ -836,14 +836,7 @@ impl System {
 
     /// Solve the balance for `unknown` and compute every reported figure.
     pub fn solve(&self, inputs: &Inputs, unknown: Unknown) -> Result<Outcome, SolveError> {
-        for f in &inputs.feeds {
-            if !f.temperature.is_finite() {
-                return Err(SolveError::NotFinite("feed temperature"));
-            }
-            if !f.flow.value().is_finite() {
-                return Err(SolveError::NotFinite("feed flow"));
-            }
-        }
+        check_feeds_finite(inputs)?;
         let mut streams = self.streams(inputs, true)?;
         // Finite inputs can still overflow on the way (a flow of 1e308 t/h is about 1e309
         // mol/s of water): never go on with infinities, which would end as a NaN result.
@@ -854,74 +847,110 @@ impl System {
         if !h_in.is_finite() {
             return Err(SolveError::NotFinite("feed enthalpy flow"));
         }
-        let need_t = |what: &str| {
-            inputs.effluent_temperature.ok_or_else(|| {
-                SolveError::MissingInput(format!("solving for the {what} needs the effluent temperature"))
-            })
+        let solution = match unknown {
+            Unknown::Temperature => self.solve_for_temperature(inputs, &streams, h_in)?,
+            Unknown::Duty => self.solve_for_duty(inputs, &streams, h_in)?,
+            Unknown::Conversion(r) => self.solve_for_conversion(inputs, &mut streams, h_in, r)?,
         };
-        let (t_out, duty, method) = match unknown {
-            Unknown::Temperature => {
-                let duty = inputs.duty.ok_or_else(|| {
-                    SolveError::MissingInput("solving for the temperature needs the heater duty".into())
-                })?;
-                let target = h_in + duty - inputs.heat_loss;
-                // Start from the flow-weighted feed temperature.
-                let (mut wt, mut w) = (0.0, 0.0);
-                for (f, flows) in inputs.feeds.iter().zip(&streams.feed_flows) {
-                    let n: f64 = flows.iter().sum();
-                    wt += n * f.temperature;
-                    w += n;
-                }
-                let guess = if w > 0.0 { wt / w } else { T_REF };
-                let (t, method) = self.solve_temperature(&streams.out_flows, target, guess)?;
-                (t, duty, Some(method))
+        self.outcome(inputs, unknown, streams, h_in, solution)
+    }
+
+    /// The effluent temperature for a given duty: `H_out(T) = H_in + Q − Q_loss`, solved from
+    /// the flow-weighted feed temperature.
+    fn solve_for_temperature(
+        &self,
+        inputs: &Inputs,
+        streams: &Streams,
+        h_in: f64,
+    ) -> Result<(f64, f64, Option<Method>), SolveError> {
+        let duty = inputs.duty.ok_or_else(|| {
+            SolveError::MissingInput("solving for the temperature needs the heater duty".into())
+        })?;
+        let target = h_in + duty - inputs.heat_loss;
+        // Start from the flow-weighted feed temperature.
+        let (mut wt, mut w) = (0.0, 0.0);
+        for (f, flows) in inputs.feeds.iter().zip(&streams.feed_flows) {
+            let n: f64 = flows.iter().sum();
+            wt += n * f.temperature;
+            w += n;
+        }
+        let guess = if w > 0.0 { wt / w } else { T_REF };
+        let (t, method) = self.solve_temperature(&streams.out_flows, target, guess)?;
+        Ok((t, duty, Some(method)))
+    }
+
+    /// The duty that gives the measured effluent temperature.
+    fn solve_for_duty(
+        &self,
+        inputs: &Inputs,
+        streams: &Streams,
+        h_in: f64,
+    ) -> Result<(f64, f64, Option<Method>), SolveError> {
+        let t = effluent_temperature(inputs, "duty")?;
+        let duty = self.stream_h(&streams.out_flows, t) - h_in + inputs.heat_loss;
+        Ok((t, duty, None))
+    }
+
+    /// The conversion of reaction `r` that gives the measured effluent temperature at the given
+    /// duty; `streams` (built with that reaction at zero conversion) get its extent.
+    fn solve_for_conversion(
+        &self,
+        inputs: &Inputs,
+        streams: &mut Streams,
+        h_in: f64,
+        r: usize,
+    ) -> Result<(f64, f64, Option<Method>), SolveError> {
+        let t = effluent_temperature(inputs, "conversion")?;
+        let duty = inputs.duty.ok_or_else(|| {
+            SolveError::MissingInput("solving for the conversion needs the heater duty".into())
+        })?;
+        let reaction = &self.reactions[r];
+        let key_in = self.key_feed(&streams.feed_total, r);
+        if key_in <= 0.0 {
+            return Err(SolveError::NoKeyFeed {
+                reaction: r,
+                component: self.components[reaction.key].id.clone(),
+            });
+        }
+        // Streams were built with this reaction at zero conversion.
+        let f0 = self.stream_h(&streams.out_flows, t) - (h_in + duty - inputs.heat_loss);
+        let dh = self.reaction_enthalpy(r, t);
+        let per_key = dh / -reaction.nu[reaction.key];
+        if per_key.abs() < 1.0 {
+            return Err(SolveError::ThermallyNeutral { reaction: r, t, dh: per_key });
+        }
+        let xi = -f0 / dh;
+        let x = xi * -reaction.nu[reaction.key] / key_in;
+        streams.extents[r] = xi;
+        streams.conversions[r] = x;
+        for (o, nu) in streams.out_flows.iter_mut().zip(&reaction.nu) {
+            *o += nu * xi;
+        }
+        let scale: f64 = streams.feed_total.iter().sum();
+        for (i, &f) in streams.out_flows.iter().enumerate() {
+            if f < -1e-12 * scale {
+                return Err(SolveError::ImpossibleConversion {
+                    reaction: r,
+                    conversion: x,
+                    component: self.components[i].id.clone(),
+                    flow: f,
+                });
             }
-            Unknown::Duty => {
-                let t = need_t("duty")?;
-                let duty = self.stream_h(&streams.out_flows, t) - h_in + inputs.heat_loss;
-                (t, duty, None)
-            }
-            Unknown::Conversion(r) => {
-                let t = need_t("conversion")?;
-                let duty = inputs.duty.ok_or_else(|| {
-                    SolveError::MissingInput("solving for the conversion needs the heater duty".into())
-                })?;
-                let reaction = &self.reactions[r];
-                let key_in = self.key_feed(&streams.feed_total, r);
-                if key_in <= 0.0 {
-                    return Err(SolveError::NoKeyFeed {
-                        reaction: r,
-                        component: self.components[reaction.key].id.clone(),
-                    });
-                }
-                // Streams were built with this reaction at zero conversion.
-                let f0 = self.stream_h(&streams.out_flows, t) - (h_in + duty - inputs.heat_loss);
-                let dh = self.reaction_enthalpy(r, t);
-                let per_key = dh / -reaction.nu[reaction.key];
-                if per_key.abs() < 1.0 {
-                    return Err(SolveError::ThermallyNeutral { reaction: r, t, dh: per_key });
-                }
-                let xi = -f0 / dh;
-                let x = xi * -reaction.nu[reaction.key] / key_in;
-                streams.extents[r] = xi;
-                streams.conversions[r] = x;
-                for (o, nu) in streams.out_flows.iter_mut().zip(&reaction.nu) {
-                    *o += nu * xi;
-                }
-                let scale: f64 = streams.feed_total.iter().sum();
-                for (i, &f) in streams.out_flows.iter().enumerate() {
-                    if f < -1e-12 * scale {
-                        return Err(SolveError::ImpossibleConversion {
-                            reaction: r,
-                            conversion: x,
-                            component: self.components[i].id.clone(),
-                            flow: f,
-                        });
-                    }
-                }
-                (t, duty, None)
-            }
-        };
+        }
+        Ok((t, duty, None))
+    }
+
+    /// Every reported figure of a solved balance (`solution` = effluent temperature, duty and
+    /// how the temperature was found), with the element balance and the validity flags.
+    fn outcome(
+        &self,
+        inputs: &Inputs,
+        unknown: Unknown,
+        streams: Streams,
+        h_in: f64,
+        solution: (f64, f64, Option<Method>),
+    ) -> Result<Outcome, SolveError> {
+        let (t_out, duty, method) = solution;
         let (h_out, cp_out) = self.stream_h_cp(&streams.out_flows, t_out);
         let out_total: f64 = streams.out_flows.iter().sum();
         let out_mass =
@@ -1092,6 +1121,26 @@ impl System {
         }
         outcome.flags.extend(flags);
     }
+}
+
+/// Feed temperatures and flows must be finite numbers.
+fn check_feeds_finite(inputs: &Inputs) -> Result<(), SolveError> {
+    for f in &inputs.feeds {
+        if !f.temperature.is_finite() {
+            return Err(SolveError::NotFinite("feed temperature"));
+        }
+        if !f.flow.value().is_finite() {
+            return Err(SolveError::NotFinite("feed flow"));
+        }
+    }
+    Ok(())
+}
+
+/// The measured effluent temperature, which solving for `what` needs.
+fn effluent_temperature(inputs: &Inputs, what: &str) -> Result<f64, SolveError> {
+    inputs.effluent_temperature.ok_or_else(|| {
+        SolveError::MissingInput(format!("solving for the {what} needs the effluent temperature"))
+    })
 }
 
 #[cfg(test)]

@@ -301,219 +301,278 @@ fn poly5(c: &[f64; 5], t: f64) -> f64 {
     c[0] + t * (c[1] + t * (c[2] + t * (c[3] + t * c[4])))
 }
 
+/// The values of a spec in SI units and checked form; `None` where a field is not set or could
+/// not be read (the reason is then in the error list).
+struct Values {
+    molar_mass: Option<f64>,
+    tb: Option<f64>,
+    tc: Option<f64>,
+    pc: Option<f64>,
+    hvap_tb: Option<f64>,
+    hf_ig: Option<f64>,
+    hf_liq: Option<f64>,
+    cp_ig_range: Option<(f64, f64)>,
+    cp_liq_range: Option<(f64, f64)>,
+    psat_range: Option<(f64, f64)>,
+    cp_ig: Option<[f64; 5]>,
+    cp_liq: Option<[f64; 5]>,
+    psat: Option<[f64; 5]>,
+}
+
+/// A number in SI units of `q`.
+fn si_value(field: &'static str, v: Option<&Number>, q: Quantity, errs: &mut Vec<FieldError>) -> Option<f64> {
+    match v {
+        None => None,
+        Some(n) => match n.si(q) {
+            Ok(x) => Some(x),
+            Err(e) => {
+                errs.push(FieldError { field, message: e.to_string() });
+                None
+            }
+        },
+    }
+}
+
+/// A temperature range `[low, high]` in K, with `0 < low < high`.
+fn temperature_range(
+    field: &'static str,
+    r: Option<&[Number; 2]>,
+    errs: &mut Vec<FieldError>,
+) -> Option<(f64, f64)> {
+    let r = r?;
+    let lo = r[0].si(Quantity::Temperature);
+    let hi = r[1].si(Quantity::Temperature);
+    match (lo, hi) {
+        (Ok(lo), Ok(hi)) if lo > 0.0 && hi > lo => Some((lo, hi)),
+        (Ok(lo), Ok(hi)) => {
+            errs.push(FieldError {
+                field,
+                message: format!("range must be [low, high] with 0 < low < high, got [{lo}, {hi}]"),
+            });
+            None
+        }
+        (Err(e), _) | (_, Err(e)) => {
+            errs.push(FieldError { field, message: e.to_string() });
+            None
+        }
+    }
+}
+
+/// 1 to 5 finite correlation coefficients, padded with zeros to 5.
+fn coefficients(field: &'static str, v: Option<&[f64]>, errs: &mut Vec<FieldError>) -> Option<[f64; 5]> {
+    let v = v?;
+    if v.is_empty() || v.len() > 5 {
+        errs.push(FieldError { field, message: format!("expected 1 to 5 coefficients, got {}", v.len()) });
+        return None;
+    }
+    if let Some(bad) = v.iter().find(|x| !x.is_finite()) {
+        errs.push(FieldError { field, message: format!("coefficient {bad} is not finite") });
+        return None;
+    }
+    let mut c = [0.0; 5];
+    c[..v.len()].copy_from_slice(v);
+    Some(c)
+}
+
+/// Read every numeric field of a spec: constants, validity ranges, correlation coefficients.
+fn read_values(spec: &ComponentSpec, errs: &mut Vec<FieldError>) -> Values {
+    let molar_mass = si_value("molar_mass", spec.molar_mass.as_ref(), Quantity::MolarMass, errs);
+    let tb = si_value("tb", spec.tb.as_ref(), Quantity::Temperature, errs);
+    let tc = si_value("tc", spec.tc.as_ref(), Quantity::Temperature, errs);
+    let pc = si_value("pc", spec.pc.as_ref(), Quantity::Pressure, errs);
+    let hvap_tb = si_value("hvap_tb", spec.hvap_tb.as_ref(), Quantity::MolarEnergy, errs);
+    let hf_ig = si_value("hf_ig", spec.hf_ig.as_ref(), Quantity::MolarEnergy, errs);
+    let hf_liq = si_value("hf_liq", spec.hf_liq.as_ref(), Quantity::MolarEnergy, errs);
+    let cp_ig_range = temperature_range("cp_ig_range", spec.cp_ig_range.as_ref(), errs);
+    let cp_liq_range = temperature_range("cp_liq_range", spec.cp_liq_range.as_ref(), errs);
+    let psat_range = temperature_range("psat_range", spec.psat_range.as_ref(), errs);
+    let cp_ig = coefficients("cp_ig", spec.cp_ig.as_deref(), errs);
+    let cp_liq = coefficients("cp_liq", spec.cp_liq.as_deref(), errs);
+    let psat = coefficients("psat", spec.psat.as_deref(), errs);
+    Values {
+        molar_mass,
+        tb,
+        tc,
+        pc,
+        hvap_tb,
+        hf_ig,
+        hf_liq,
+        cp_ig_range,
+        cp_liq_range,
+        psat_range,
+        cp_ig,
+        cp_liq,
+        psat,
+    }
+}
+
+/// The physical checks of the constants: required ones present, signs, `tb < tc`, the Watson
+/// exponent and the acentric factor in range.
+fn check_constants(spec: &ComponentSpec, v: &Values, errs: &mut Vec<FieldError>) {
+    let mut err = |field: &'static str, message: String| errs.push(FieldError { field, message });
+    match v.molar_mass {
+        None => err("molar_mass", "molar mass is required".into()),
+        Some(m) if m <= 0.0 => err("molar_mass", format!("molar mass must be positive, got {m} g/mol")),
+        _ => {}
+    }
+    match v.tc {
+        None => err("tc", "critical temperature is required (validity check: no liquid above Tc)".into()),
+        Some(t) if t <= 0.0 => err("tc", format!("critical temperature must be positive, got {t} K")),
+        _ => {}
+    }
+    if let Some(t) = v.tb {
+        if t <= 0.0 {
+            err("tb", format!("boiling point must be positive, got {t} K"));
+        } else if let Some(c) = v.tc
+            && c <= t
+        {
+            err("tc", format!("critical temperature {c} K must be above the boiling point {t} K"));
+        }
+    }
+    if let Some(p) = v.pc
+        && p <= 0.0
+    {
+        err("pc", format!("critical pressure must be positive, got {p} Pa"));
+    }
+    if let Some(h) = v.hvap_tb
+        && h <= 0.0
+    {
+        err("hvap_tb", format!("enthalpy of vaporization must be positive, got {h} J/mol"));
+    }
+    if let Some(n) = spec.watson_n
+        && !(n > 0.0 && n <= 1.0)
+    {
+        err("watson_n", format!("Watson exponent must be in (0, 1], got {n}"));
+    }
+    if let Some(w) = spec.omega
+        && (!w.is_finite() || !(-1.0..=2.0).contains(&w))
+    {
+        err("omega", format!("acentric factor {w} is outside -1..2"));
+    }
+}
+
+/// Heat capacities must be positive where they are published to hold (at the ends of the
+/// validity range and at 298.15 K if it lies inside; at 298.15 K without a range).
+fn check_heat_capacity(
+    field: &'static str,
+    c: Option<&[f64; 5]>,
+    r: Option<(f64, f64)>,
+    errs: &mut Vec<FieldError>,
+) {
+    if let Some(c) = c {
+        let mut points = vec![298.15];
+        if let Some((lo, hi)) = r {
+            points = vec![lo, hi];
+            if (lo..=hi).contains(&298.15) {
+                points.push(298.15);
+            }
+        }
+        for t in points {
+            let cp = poly5(c, t);
+            if cp <= 0.0 {
+                errs.push(FieldError {
+                    field,
+                    message: format!("heat capacity must be positive, but is {cp:.4} J/(mol K) at {t} K"),
+                });
+                break;
+            }
+        }
+    }
+}
+
+/// The chemical formula, if the spec sets one.
+fn read_formula(spec: &ComponentSpec, errs: &mut Vec<FieldError>) -> Option<Formula> {
+    match &spec.formula {
+        None => None,
+        Some(f) => match Formula::parse(f) {
+            Ok(f) => Some(f),
+            Err(e) => {
+                errs.push(FieldError {
+                    field: "formula",
+                    message: format!("cannot read formula `{f}`: {e}"),
+                });
+                None
+            }
+        },
+    }
+}
+
+/// The ideal-gas + Watson path data when complete, and the names of its missing fields.
+fn ideal_gas_data(spec: &ComponentSpec, v: &Values) -> (Option<IdealGasData>, Vec<&'static str>) {
+    let mut missing = Vec::new();
+    for (present, name) in [
+        (v.hf_ig.is_some(), "hf_ig"),
+        (v.cp_ig.is_some(), "cp_ig"),
+        (v.tb.is_some(), "tb"),
+        (v.hvap_tb.is_some(), "hvap_tb"),
+    ] {
+        if !present {
+            missing.push(name);
+        }
+    }
+    let data = match (v.hf_ig, v.cp_ig, v.tb, v.hvap_tb) {
+        (Some(hf_ig), Some(cp), Some(tb), Some(hvap_tb)) => {
+            Some(IdealGasData { hf_ig, cp, cp_range: v.cp_ig_range, tb, hvap_tb, watson_n: spec.watson_n })
+        }
+        _ => None,
+    };
+    (data, missing)
+}
+
+/// The liquid path data when complete, and the names of its missing fields.
+fn liquid_data(v: &Values) -> (Option<LiquidData>, Vec<&'static str>) {
+    let mut missing = Vec::new();
+    for (present, name) in [(v.hf_liq.is_some(), "hf_liq"), (v.cp_liq.is_some(), "cp_liq")] {
+        if !present {
+            missing.push(name);
+        }
+    }
+    let data = match (v.hf_liq, v.cp_liq) {
+        (Some(hf_liq), Some(cp)) => Some(LiquidData { hf_liq, cp, cp_range: v.cp_liq_range }),
+        _ => None,
+    };
+    (data, missing)
+}
+
+/// Field → source, from the spec's `source` note.
+fn source_map(spec: &ComponentSpec) -> BTreeMap<String, String> {
+    match &spec.source {
+        None => BTreeMap::new(),
+        Some(SourceNote::Text(t)) => BTreeMap::from([("all".to_string(), t.clone())]),
+        Some(SourceNote::PerField(m)) => m.clone(),
+    }
+}
+
 impl Component {
     /// Check a (merged) spec. Returns every problem found.
     pub fn from_spec(id: &str, spec: &ComponentSpec) -> Result<Component, Vec<FieldError>> {
         let mut errs: Vec<FieldError> = Vec::new();
-        let mut err = |field: &'static str, message: String| errs.push(FieldError { field, message });
-
-        let num = |field: &'static str,
-                   v: &Option<Number>,
-                   q: Quantity,
-                   errs: &mut Vec<FieldError>|
-         -> Option<f64> {
-            match v {
-                None => None,
-                Some(n) => match n.si(q) {
-                    Ok(x) => Some(x),
-                    Err(e) => {
-                        errs.push(FieldError { field, message: e.to_string() });
-                        None
-                    }
-                },
-            }
-        };
-        let mut local: Vec<FieldError> = Vec::new();
-        let molar_mass = num("molar_mass", &spec.molar_mass, Quantity::MolarMass, &mut local);
-        let tb = num("tb", &spec.tb, Quantity::Temperature, &mut local);
-        let tc = num("tc", &spec.tc, Quantity::Temperature, &mut local);
-        let pc = num("pc", &spec.pc, Quantity::Pressure, &mut local);
-        let hvap_tb = num("hvap_tb", &spec.hvap_tb, Quantity::MolarEnergy, &mut local);
-        let hf_ig = num("hf_ig", &spec.hf_ig, Quantity::MolarEnergy, &mut local);
-        let hf_liq = num("hf_liq", &spec.hf_liq, Quantity::MolarEnergy, &mut local);
-        let range = |field: &'static str,
-                     r: &Option<[Number; 2]>,
-                     errs: &mut Vec<FieldError>|
-         -> Option<(f64, f64)> {
-            let r = r.as_ref()?;
-            let lo = r[0].si(Quantity::Temperature);
-            let hi = r[1].si(Quantity::Temperature);
-            match (lo, hi) {
-                (Ok(lo), Ok(hi)) if lo > 0.0 && hi > lo => Some((lo, hi)),
-                (Ok(lo), Ok(hi)) => {
-                    errs.push(FieldError {
-                        field,
-                        message: format!("range must be [low, high] with 0 < low < high, got [{lo}, {hi}]"),
-                    });
-                    None
-                }
-                (Err(e), _) | (_, Err(e)) => {
-                    errs.push(FieldError { field, message: e.to_string() });
-                    None
-                }
-            }
-        };
-        let cp_ig_range = range("cp_ig_range", &spec.cp_ig_range, &mut local);
-        let cp_liq_range = range("cp_liq_range", &spec.cp_liq_range, &mut local);
-        let psat_range = range("psat_range", &spec.psat_range, &mut local);
-        let coeffs =
-            |field: &'static str, v: &Option<Vec<f64>>, errs: &mut Vec<FieldError>| -> Option<[f64; 5]> {
-                let v = v.as_ref()?;
-                if v.is_empty() || v.len() > 5 {
-                    errs.push(FieldError {
-                        field,
-                        message: format!("expected 1 to 5 coefficients, got {}", v.len()),
-                    });
-                    return None;
-                }
-                if let Some(bad) = v.iter().find(|x| !x.is_finite()) {
-                    errs.push(FieldError { field, message: format!("coefficient {bad} is not finite") });
-                    return None;
-                }
-                let mut c = [0.0; 5];
-                c[..v.len()].copy_from_slice(v);
-                Some(c)
-            };
-        let cp_ig = coeffs("cp_ig", &spec.cp_ig, &mut local);
-        let cp_liq = coeffs("cp_liq", &spec.cp_liq, &mut local);
-        let psat = coeffs("psat", &spec.psat, &mut local);
-        for e in local {
-            err(e.field, e.message);
-        }
-
-        match molar_mass {
-            None => err("molar_mass", "molar mass is required".into()),
-            Some(m) if m <= 0.0 => err("molar_mass", format!("molar mass must be positive, got {m} g/mol")),
-            _ => {}
-        }
-        match tc {
-            None => err("tc", "critical temperature is required (validity check: no liquid above Tc)".into()),
-            Some(t) if t <= 0.0 => err("tc", format!("critical temperature must be positive, got {t} K")),
-            _ => {}
-        }
-        if let Some(t) = tb {
-            if t <= 0.0 {
-                err("tb", format!("boiling point must be positive, got {t} K"));
-            } else if let Some(c) = tc
-                && c <= t
-            {
-                err("tc", format!("critical temperature {c} K must be above the boiling point {t} K"));
-            }
-        }
-        if let Some(p) = pc
-            && p <= 0.0
-        {
-            err("pc", format!("critical pressure must be positive, got {p} Pa"));
-        }
-        if let Some(h) = hvap_tb
-            && h <= 0.0
-        {
-            err("hvap_tb", format!("enthalpy of vaporization must be positive, got {h} J/mol"));
-        }
-        if let Some(n) = spec.watson_n
-            && !(n > 0.0 && n <= 1.0)
-        {
-            err("watson_n", format!("Watson exponent must be in (0, 1], got {n}"));
-        }
-        if let Some(w) = spec.omega
-            && (!w.is_finite() || !(-1.0..=2.0).contains(&w))
-        {
-            err("omega", format!("acentric factor {w} is outside -1..2"));
-        }
-        // Heat capacities must be positive where they are published to hold.
-        let check_cp =
-            |field: &'static str, c: &Option<[f64; 5]>, r: Option<(f64, f64)>, errs: &mut Vec<FieldError>| {
-                if let Some(c) = c {
-                    let mut points = vec![298.15];
-                    if let Some((lo, hi)) = r {
-                        points = vec![lo, hi];
-                        if (lo..=hi).contains(&298.15) {
-                            points.push(298.15);
-                        }
-                    }
-                    for t in points {
-                        let cp = poly5(c, t);
-                        if cp <= 0.0 {
-                            errs.push(FieldError {
-                                field,
-                                message: format!(
-                                    "heat capacity must be positive, but is {cp:.4} J/(mol K) at {t} K"
-                                ),
-                            });
-                            break;
-                        }
-                    }
-                }
-            };
-        let mut local = Vec::new();
-        check_cp("cp_ig", &cp_ig, cp_ig_range, &mut local);
-        check_cp("cp_liq", &cp_liq, cp_liq_range, &mut local);
-        let formula = match &spec.formula {
-            None => None,
-            Some(f) => match Formula::parse(f) {
-                Ok(f) => Some(f),
-                Err(e) => {
-                    local.push(FieldError {
-                        field: "formula",
-                        message: format!("cannot read formula `{f}`: {e}"),
-                    });
-                    None
-                }
-            },
-        };
-        errs.extend(local);
+        let v = read_values(spec, &mut errs);
+        check_constants(spec, &v, &mut errs);
+        check_heat_capacity("cp_ig", v.cp_ig.as_ref(), v.cp_ig_range, &mut errs);
+        check_heat_capacity("cp_liq", v.cp_liq.as_ref(), v.cp_liq_range, &mut errs);
+        let formula = read_formula(spec, &mut errs);
         if !errs.is_empty() {
             return Err(errs);
         }
-
-        let mut ideal_gas_missing = Vec::new();
-        for (present, name) in [
-            (hf_ig.is_some(), "hf_ig"),
-            (cp_ig.is_some(), "cp_ig"),
-            (tb.is_some(), "tb"),
-            (hvap_tb.is_some(), "hvap_tb"),
-        ] {
-            if !present {
-                ideal_gas_missing.push(name);
-            }
-        }
-        let ideal_gas = match (hf_ig, cp_ig, tb, hvap_tb) {
-            (Some(hf_ig), Some(cp), Some(tb), Some(hvap_tb)) => {
-                Some(IdealGasData { hf_ig, cp, cp_range: cp_ig_range, tb, hvap_tb, watson_n: spec.watson_n })
-            }
-            _ => None,
-        };
-        let mut liquid_missing = Vec::new();
-        for (present, name) in [(hf_liq.is_some(), "hf_liq"), (cp_liq.is_some(), "cp_liq")] {
-            if !present {
-                liquid_missing.push(name);
-            }
-        }
-        let liquid = match (hf_liq, cp_liq) {
-            (Some(hf_liq), Some(cp)) => Some(LiquidData { hf_liq, cp, cp_range: cp_liq_range }),
-            _ => None,
-        };
-        let sources = match &spec.source {
-            None => BTreeMap::new(),
-            Some(SourceNote::Text(t)) => BTreeMap::from([("all".to_string(), t.clone())]),
-            Some(SourceNote::PerField(m)) => m.clone(),
-        };
+        let (ideal_gas, ideal_gas_missing) = ideal_gas_data(spec, &v);
+        let (liquid, liquid_missing) = liquid_data(&v);
         Ok(Component {
             id: id.to_string(),
             name: spec.name.clone().unwrap_or_else(|| id.to_string()),
             cas: spec.cas.clone(),
             formula,
-            molar_mass: molar_mass.unwrap_or_default(),
-            tc: tc.unwrap_or_default(),
-            tb,
-            pc,
+            molar_mass: v.molar_mass.unwrap_or_default(),
+            tc: v.tc.unwrap_or_default(),
+            tb: v.tb,
+            pc: v.pc,
             omega: spec.omega,
             ideal_gas,
             ideal_gas_missing,
             liquid,
             liquid_missing,
-            psat: psat.map(|c| PsatData { c, range: psat_range }),
-            sources,
+            psat: v.psat.map(|c| PsatData { c, range: v.psat_range }),
+            sources: source_map(spec),
             note: spec.note.clone(),
         })
     }

@@ -72,49 +72,35 @@
 //!   `truncated="evidence"` or `truncated="evidence message"`. UDP has no delivery guarantee:
 //!   the queue covers local errors and an "ICMP port unreachable" answer, nothing more. Use TCP
 //!   when every alert must arrive.
+//!
+//! The message format is in `format`, the on-disk queue in `queue`, and the delivery thread in
+//! `deliver`; this file has the configuration, the [`Forwarder`] and its counters.
 
-use std::collections::{HashSet, VecDeque};
-use std::fs::{self, File, OpenOptions};
-use std::io::{self, Read, Write};
-use std::net::{SocketAddr, TcpStream, ToSocketAddrs, UdpSocket};
-use std::path::{Path, PathBuf};
+mod deliver;
+mod format;
+mod queue;
+
+use std::io;
+use std::path::PathBuf;
 use std::sync::{Arc, Condvar, Mutex, MutexGuard, PoisonError};
 use std::thread::JoinHandle;
 use std::time::{Duration, Instant};
 
-use serde::{Deserialize, Serialize};
+use serde::Serialize;
 
-use crate::core::alerts::{AlertEvent, EventKind};
-use crate::core::vocabulary::{Cause, Severity};
+use self::deliver::deliver;
+use self::format::{APP_NAME_MAX, HOSTNAME_MAX};
+pub use self::format::{
+    SD_ID_ALERT, SD_ID_EVIDENCE, SEVERITY_SERVICE_FAILURE, UDP_MAX_BYTES, format_datagram, format_rfc5424,
+    frame_octet_counted, local_hostname, sd_escape, sd_name, syslog_severity,
+};
+use self::queue::{DiskQueue, Record};
+use crate::core::alerts::AlertEvent;
 
-/// SD-ID of the alert element. `32473` is the enterprise number RFC 5612 reserves for
-/// documentation; it keeps our names out of the IANA-registered space without claiming a number.
-pub const SD_ID_ALERT: &str = "alert@32473";
-/// SD-ID of the evidence element (kept apart from the alert element so evidence names can
-/// never collide with the fixed parameters).
-pub const SD_ID_EVIDENCE: &str = "evidence@32473";
-/// Largest UDP datagram sent. RFC 5426 §3.2: receivers SHOULD accept 2048 octets (IPv4 ones
-/// MUST accept 480). Larger datagrams are often dropped or fragmented on the way.
-pub const UDP_MAX_BYTES: usize = 2048;
 /// Default facility: 16, `local0`, the usual choice for site applications.
 pub const DEFAULT_FACILITY: u8 = 16;
 /// Default queue bound, events: about a week of a busy site's alerts.
 pub const DEFAULT_QUEUE_MAX: usize = 10_000;
-/// Syslog severity for a service or solver failure (monitoring research §6.5). Alert events
-/// never use it; it is here so the service's own failure records use the same table.
-pub const SEVERITY_SERVICE_FAILURE: u8 = 3;
-
-/// Longest a single connect or write may block the delivery thread.
-const IO_TIMEOUT: Duration = Duration::from_secs(2);
-/// UTF-8 byte order mark (RFC 5424 §6.4).
-const BOM: &str = "\u{feff}";
-/// Header field lengths (RFC 5424 §6).
-const HOSTNAME_MAX: usize = 255;
-const APP_NAME_MAX: usize = 48;
-/// SD-NAME length (RFC 5424 §6.3.3).
-const SD_NAME_MAX: usize = 32;
-const QUEUE_EXT: &str = "evt";
-const QUEUE_LOCK: &str = "queue.lock";
 
 /// How messages travel to the collector.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -255,211 +241,6 @@ pub fn facility_from_name(name: &str) -> Option<u8> {
     (n <= 7).then_some(16 + n)
 }
 
-/// The syslog severity of an event (module docs: high 4, medium 5, low 6, data quality 5).
-pub fn syslog_severity(ev: &AlertEvent) -> u8 {
-    if ev.cause == Cause::DataQuality {
-        return 5;
-    }
-    match ev.severity {
-        Severity::High => 4,
-        Severity::Medium => 5,
-        Severity::Low => 6,
-    }
-}
-
-/// MSGID of an event: its kind in upper case.
-fn msgid(kind: EventKind) -> &'static str {
-    match kind {
-        EventKind::Raised => "RAISED",
-        EventKind::Updated => "UPDATED",
-        EventKind::Cleared => "CLEARED",
-    }
-}
-
-/// An evidence name cut to the SD-NAME rules (printable US-ASCII except `=`, space, `]`, `"`;
-/// 1 to 32 characters), so any evidence key can travel as a parameter name.
-pub fn sd_name(raw: &str) -> String {
-    let name: String = raw
-        .chars()
-        .map(|c| if c.is_ascii_graphic() && !matches!(c, '=' | ']' | '"') { c } else { '_' })
-        .take(SD_NAME_MAX)
-        .collect();
-    if name.is_empty() { "_".to_string() } else { name }
-}
-
-/// A parameter value with `\`, `"` and `]` escaped (RFC 5424 §6.3.3).
-pub fn sd_escape(value: &str) -> String {
-    let mut out = String::with_capacity(value.len());
-    for c in value.chars() {
-        if matches!(c, '\\' | '"' | ']') {
-            out.push('\\');
-        }
-        out.push(c);
-    }
-    out
-}
-
-/// A header field: printable US-ASCII only (others become `_`), at most `max` characters,
-/// `-` (the NILVALUE) when empty.
-fn header_field(text: &str, max: usize) -> String {
-    let t: String = text.chars().map(|c| if c.is_ascii_graphic() { c } else { '_' }).take(max).collect();
-    if t.is_empty() { "-".to_string() } else { t }
-}
-
-fn evidence_text(v: &serde_json::Value) -> String {
-    match v {
-        serde_json::Value::String(s) => s.clone(),
-        serde_json::Value::Null => String::new(),
-        other => other.to_string(),
-    }
-}
-
-fn push_param(out: &mut String, name: &str, value: &str) {
-    out.push(' ');
-    out.push_str(name);
-    out.push_str("=\"");
-    out.push_str(&sd_escape(value));
-    out.push('"');
-}
-
-/// Everything before the BOM: header, structured data and the separating space.
-fn prefix(
-    ev: &AlertEvent,
-    cfg: &SyslogConfig,
-    hostname: &str,
-    procid: u32,
-    emit_time: jiff::Timestamp,
-    evidence: bool,
-    truncated: Option<&str>,
-) -> String {
-    let pri = u16::from(cfg.facility.min(23)) * 8 + u16::from(syslog_severity(ev));
-    let ts = jiff::fmt::temporal::DateTimePrinter::new().precision(Some(6)).timestamp_to_string(&emit_time);
-    let mut out = format!(
-        "<{pri}>1 {ts} {} {} {procid} {} [{SD_ID_ALERT}",
-        header_field(hostname, HOSTNAME_MAX),
-        header_field(&cfg.app_name, APP_NAME_MAX),
-        msgid(ev.event),
-    );
-    let event = ev.event.as_str();
-    for (name, value) in [
-        ("unit", ev.unit.as_str()),
-        ("alert_id", ev.alert_id.as_str()),
-        ("event", event),
-        ("cause", ev.cause.as_str()),
-        ("severity", ev.severity.as_str()),
-        ("subject", ev.subject.as_str()),
-        ("sequence", ev.sequence.to_string().as_str()),
-        ("data_time", ev.time.as_str()),
-    ] {
-        push_param(&mut out, name, value);
-    }
-    if let Some(t) = truncated {
-        push_param(&mut out, "truncated", t);
-    }
-    out.push(']');
-    if evidence && !ev.evidence.is_empty() {
-        out.push('[');
-        out.push_str(SD_ID_EVIDENCE);
-        let mut used = HashSet::new();
-        for (k, v) in &ev.evidence {
-            let base = sd_name(k);
-            let mut name = base.clone();
-            let mut n = 2;
-            while !used.insert(name.clone()) {
-                let suffix = format!("~{n}");
-                let keep: String = base.chars().take(SD_NAME_MAX - suffix.len()).collect();
-                name = format!("{keep}{suffix}");
-                n += 1;
-            }
-            push_param(&mut out, &name, &evidence_text(v));
-        }
-        out.push(']');
-    }
-    out.push_str("[origin software=\"efftemp\" swVersion=\"");
-    out.push_str(&sd_escape(env!("CARGO_PKG_VERSION")));
-    out.push_str("\"] ");
-    out
-}
-
-/// One RFC 5424 message for an event (without transport framing); see the module docs for the
-/// fields. `emit_time` is the TIMESTAMP (UTC, microseconds); the event's own data time travels
-/// as `data_time`.
-pub fn format_rfc5424(
-    ev: &AlertEvent,
-    cfg: &SyslogConfig,
-    hostname: &str,
-    procid: u32,
-    emit_time: jiff::Timestamp,
-) -> String {
-    let mut out = prefix(ev, cfg, hostname, procid, emit_time, true, None);
-    out.push_str(BOM);
-    out.push_str(&ev.message);
-    out
-}
-
-/// The message as one UDP datagram of at most [`UDP_MAX_BYTES`]: the evidence element goes
-/// first, then the end of the text (cut at a character boundary); the alert element says what
-/// was cut in `truncated`.
-pub fn format_datagram(
-    ev: &AlertEvent,
-    cfg: &SyslogConfig,
-    hostname: &str,
-    procid: u32,
-    emit_time: jiff::Timestamp,
-) -> String {
-    let full = format_rfc5424(ev, cfg, hostname, procid, emit_time);
-    if full.len() <= UDP_MAX_BYTES {
-        return full;
-    }
-    let mut out = prefix(ev, cfg, hostname, procid, emit_time, false, Some("evidence"));
-    if out.len() + BOM.len() + ev.message.len() <= UDP_MAX_BYTES {
-        out.push_str(BOM);
-        out.push_str(&ev.message);
-        return out;
-    }
-    let mut out = prefix(ev, cfg, hostname, procid, emit_time, false, Some("evidence message"));
-    out.push_str(BOM);
-    out.push_str(&ev.message);
-    cut_at_char_boundary(&mut out, UDP_MAX_BYTES);
-    out
-}
-
-fn cut_at_char_boundary(s: &mut String, max: usize) {
-    if s.len() <= max {
-        return;
-    }
-    let mut end = max;
-    while !s.is_char_boundary(end) {
-        end -= 1;
-    }
-    s.truncate(end);
-}
-
-/// Octet-counting framing (RFC 6587 §3.4.1): `MSG-LEN SP SYSLOG-MSG`, the length in octets.
-/// Unlike newline framing it survives line breaks inside the message.
-pub fn frame_octet_counted(msg: &str) -> Vec<u8> {
-    let mut out = format!("{} ", msg.len()).into_bytes();
-    out.extend_from_slice(msg.as_bytes());
-    out
-}
-
-/// The machine's host name, for the HOSTNAME field when none is configured. Read from the
-/// kernel (no `unsafe` call), falling back to `/etc/hostname`, `$HOSTNAME`, then `-`.
-pub fn local_hostname() -> String {
-    for path in ["/proc/sys/kernel/hostname", "/etc/hostname"] {
-        if let Ok(text) = fs::read_to_string(path) {
-            let t = text.trim();
-            if !t.is_empty() {
-                return t.to_string();
-            }
-        }
-    }
-    std::env::var("HOSTNAME").ok().filter(|h| !h.trim().is_empty()).unwrap_or_else(|| "-".to_string())
-}
-
-// ---------------------------------------------------------------------------------------------
-// The on-disk queue.
-
 /// Why the forwarder cannot start.
 #[derive(Debug, thiserror::Error)]
 pub enum ForwardError {
@@ -499,106 +280,6 @@ pub struct ForwardStats {
     pub reconnects: u64,
     /// Whether a connection to the collector is open now.
     pub connected: bool,
-}
-
-/// What is stored per queued event: the event plus what must not change if it is resent.
-#[derive(Debug, Serialize, Deserialize)]
-struct Record {
-    emit_time: jiff::Timestamp,
-    procid: u32,
-    event: AlertEvent,
-}
-
-/// One file per event, named by a zero-padded counter so a directory listing gives the order.
-#[derive(Debug)]
-struct DiskQueue {
-    dir: PathBuf,
-    ids: VecDeque<u64>,
-    next: u64,
-    _lock: File,
-}
-
-fn queue_err(dir: &Path) -> impl FnOnce(io::Error) -> ForwardError + '_ {
-    move |source| ForwardError::Queue { dir: dir.to_path_buf(), source }
-}
-
-impl DiskQueue {
-    fn open(dir: &Path) -> Result<DiskQueue, ForwardError> {
-        fs::create_dir_all(dir).map_err(queue_err(dir))?;
-        let lock = OpenOptions::new()
-            .create(true)
-            .truncate(false)
-            .write(true)
-            .open(dir.join(QUEUE_LOCK))
-            .map_err(queue_err(dir))?;
-        match lock.try_lock() {
-            Ok(()) => {}
-            Err(fs::TryLockError::WouldBlock) => return Err(ForwardError::Locked { dir: dir.to_path_buf() }),
-            Err(fs::TryLockError::Error(e)) => return Err(queue_err(dir)(e)),
-        }
-        let mut ids = Vec::new();
-        for entry in fs::read_dir(dir).map_err(queue_err(dir))? {
-            let path = entry.map_err(queue_err(dir))?.path();
-            let (Some(stem), Some(ext)) =
-                (path.file_stem().and_then(|s| s.to_str()), path.extension().and_then(|s| s.to_str()))
-            else {
-                continue;
-            };
-            match (ext, stem.parse::<u64>()) {
-                (QUEUE_EXT, Ok(id)) => ids.push(id),
-                // A write interrupted before its rename: the event was never acknowledged.
-                ("tmp", Ok(_)) => {
-                    let _ = fs::remove_file(&path);
-                }
-                _ => {}
-            }
-        }
-        ids.sort_unstable();
-        // Ids grow across runs even when the queue was empty (wall-clock microseconds as a
-        // floor), so a delivered file that reappears after a power cut still sorts as older.
-        let now_us = u64::try_from(jiff::Timestamp::now().as_microsecond()).unwrap_or(0);
-        let next = ids.last().map_or(1, |l| l + 1).max(now_us);
-        Ok(DiskQueue { dir: dir.to_path_buf(), ids: ids.into(), next, _lock: lock })
-    }
-
-    fn path(&self, id: u64) -> PathBuf {
-        self.dir.join(format!("{id:020}.{QUEUE_EXT}"))
-    }
-
-    fn append(&mut self, rec: &Record) -> io::Result<()> {
-        let id = self.next;
-        let bytes = serde_json::to_vec(rec).map_err(io::Error::other)?;
-        let tmp = self.dir.join(format!("{id:020}.tmp"));
-        let written = File::create(&tmp).and_then(|mut f| {
-            f.write_all(&bytes)?;
-            f.sync_all()
-        });
-        if let Err(e) = written.and_then(|()| fs::rename(&tmp, self.path(id))) {
-            let _ = fs::remove_file(&tmp);
-            return Err(e);
-        }
-        self.next += 1;
-        self.ids.push_back(id);
-        if let Err(e) = File::open(&self.dir).and_then(|d| d.sync_all()) {
-            // The event is queued; only its survival of a power cut is in doubt.
-            tracing::warn!(dir = %self.dir.display(), error = %e, "syslog queue: directory fsync failed");
-        }
-        Ok(())
-    }
-
-    /// Delete the event at `index` of the queue order.
-    fn remove_at(&mut self, index: usize) {
-        if let Some(id) = self.ids.remove(index)
-            && let Err(e) = fs::remove_file(self.path(id))
-            && e.kind() != io::ErrorKind::NotFound
-        {
-            tracing::warn!(
-                file = %self.path(id).display(),
-                error = %e,
-                "syslog queue: cannot delete a queued event"
-            );
-        }
-    }
 }
 
 #[derive(Debug)]
@@ -769,278 +450,6 @@ impl Drop for Forwarder {
     }
 }
 
-// ---------------------------------------------------------------------------------------------
-// Delivery.
-
-/// An open path to the collector.
-enum Link {
-    Tcp(TcpStream),
-    Udp(UdpSocket),
-}
-
-impl Link {
-    fn open(cfg: &SyslogConfig, timeout: Duration) -> io::Result<Link> {
-        let addrs: Vec<SocketAddr> = cfg.address.trim().to_socket_addrs()?.collect();
-        let mut last = io::Error::new(io::ErrorKind::NotFound, "the address resolved to nothing");
-        for addr in addrs {
-            let opened = match cfg.transport {
-                Transport::Tcp => TcpStream::connect_timeout(&addr, timeout).and_then(|s| {
-                    s.set_nodelay(true)?;
-                    s.set_write_timeout(Some(IO_TIMEOUT))?;
-                    Ok(Link::Tcp(s))
-                }),
-                Transport::Udp => {
-                    let local: SocketAddr =
-                        if addr.is_ipv4() { ([0, 0, 0, 0], 0).into() } else { ([0u16; 8], 0).into() };
-                    UdpSocket::bind(local).and_then(|s| {
-                        s.connect(addr)?;
-                        s.set_nonblocking(true)?;
-                        Ok(Link::Udp(s))
-                    })
-                }
-            };
-            match opened {
-                Ok(link) => return Ok(link),
-                Err(e) => last = e,
-            }
-        }
-        Err(last)
-    }
-
-    fn write(&mut self, msg: &str) -> io::Result<()> {
-        match self {
-            Link::Tcp(s) => s.write_all(&frame_octet_counted(msg)),
-            Link::Udp(s) => {
-                let n = s.send(msg.as_bytes())?;
-                if n == msg.len() { Ok(()) } else { Err(io::Error::other("short datagram")) }
-            }
-        }
-    }
-
-    /// Whether the link still looks usable. A collector never sends to us, so anything readable
-    /// on TCP is the end of the stream or an error; on connected UDP, a pending "port
-    /// unreachable" shows as a refused connection.
-    fn check(&mut self) -> io::Result<()> {
-        let mut buf = [0u8; 512];
-        match self {
-            Link::Tcp(s) => {
-                s.set_nonblocking(true)?;
-                let r = loop {
-                    match s.read(&mut buf) {
-                        Ok(0) => {
-                            break Err(io::Error::new(
-                                io::ErrorKind::UnexpectedEof,
-                                "the collector closed the connection",
-                            ));
-                        }
-                        Ok(_) => continue,
-                        Err(e) if e.kind() == io::ErrorKind::WouldBlock => break Ok(()),
-                        Err(e) if e.kind() == io::ErrorKind::Interrupted => continue,
-                        Err(e) => break Err(e),
-                    }
-                };
-                s.set_nonblocking(false)?;
-                r
-            }
-            Link::Udp(s) => loop {
-                match s.recv(&mut buf) {
-                    Ok(_) => continue,
-                    Err(e) if e.kind() == io::ErrorKind::WouldBlock => return Ok(()),
-                    Err(e) if e.kind() == io::ErrorKind::Interrupted => continue,
-                    Err(e) => return Err(e),
-                }
-            },
-        }
-    }
-}
-
-/// Mutable state of the delivery loop.
-struct Delivery<'a> {
-    shared: &'a Shared,
-    cfg: &'a SyslogConfig,
-    link: Option<Link>,
-    failures: u32,
-    ever_connected: bool,
-    outage_since: Option<Instant>,
-}
-
-impl Delivery<'_> {
-    /// Record a failure: drop the link, log (once per outage), give the event back to the queue,
-    /// and wait the backoff delay. Returns false when it is time to stop.
-    fn fail(&mut self, what: &str, e: &io::Error) -> bool {
-        self.link = None;
-        let queued = {
-            let mut st = self.shared.lock();
-            st.connected = false;
-            st.in_flight = None;
-            st.queue.ids.len()
-        };
-        if self.outage_since.is_none() {
-            self.outage_since = Some(Instant::now());
-            tracing::warn!(
-                collector = %self.cfg.address, error = %e, queued,
-                "syslog forwarding: {what} failed; events stay queued and are retried with backoff"
-            );
-        } else {
-            tracing::debug!(
-                collector = %self.cfg.address,
-                error = %e,
-                queued,
-                "syslog forwarding: {what} failed again"
-            );
-        }
-        let shift = self.failures.min(20);
-        self.failures = self.failures.saturating_add(1);
-        let delay = self.cfg.reconnect_min_ms.saturating_mul(1u64 << shift).min(self.cfg.reconnect_max_ms);
-        self.wait(Duration::from_millis(delay))
-    }
-
-    /// Sleep up to `d`, cut short by the stop time. Returns false when it is time to stop.
-    fn wait(&self, d: Duration) -> bool {
-        let until = Instant::now() + d;
-        let mut st = self.shared.lock();
-        loop {
-            let now = Instant::now();
-            if st.stop_at.is_some_and(|s| now >= s) {
-                return false;
-            }
-            if now >= until {
-                return true;
-            }
-            let mut left = until - now;
-            if let Some(s) = st.stop_at {
-                left = left.min(s - now);
-            }
-            st = self.shared.wake.wait_timeout(st, left).unwrap_or_else(PoisonError::into_inner).0;
-        }
-    }
-
-    /// The next event to send (marked in flight), or None when it is time to stop.
-    fn next(&self) -> Option<(u64, PathBuf)> {
-        let mut st = self.shared.lock();
-        loop {
-            let now = Instant::now();
-            if st.stop_at.is_some_and(|s| now >= s) {
-                return None;
-            }
-            if let Some(&id) = st.queue.ids.front() {
-                st.in_flight = Some(id);
-                return Some((id, st.queue.path(id)));
-            }
-            if st.stop_at.is_some() {
-                return None;
-            }
-            st = self
-                .shared
-                .wake
-                .wait_timeout(st, Duration::from_millis(500))
-                .unwrap_or_else(PoisonError::into_inner)
-                .0;
-        }
-    }
-
-    /// How long a connect may take: the I/O timeout, or less when stopping.
-    fn budget(&self) -> Duration {
-        let st = self.shared.lock();
-        match st.stop_at {
-            Some(s) => {
-                s.saturating_duration_since(Instant::now()).clamp(Duration::from_millis(10), IO_TIMEOUT)
-            }
-            None => IO_TIMEOUT,
-        }
-    }
-
-    fn connect(&mut self) -> io::Result<()> {
-        let link = Link::open(self.cfg, self.budget())?;
-        self.link = Some(link);
-        let mut st = self.shared.lock();
-        st.connected = true;
-        if self.ever_connected {
-            st.reconnects += 1;
-        }
-        self.ever_connected = true;
-        Ok(())
-    }
-
-    /// The event left the building: delete it and count it.
-    fn delivered(&mut self, id: u64) {
-        let mut st = self.shared.lock();
-        if let Some(i) = st.queue.ids.iter().position(|x| *x == id) {
-            st.queue.remove_at(i);
-        }
-        st.in_flight = None;
-        st.sent += 1;
-        drop(st);
-        self.failures = 0;
-        if let Some(since) = self.outage_since.take() {
-            tracing::info!(
-                collector = %self.cfg.address,
-                outage_s = since.elapsed().as_secs_f64(),
-                "syslog forwarding resumed"
-            );
-        }
-    }
-}
-
-fn deliver(shared: &Shared, cfg: &SyslogConfig, hostname: &str) {
-    let mut d = Delivery { shared, cfg, link: None, failures: 0, ever_connected: false, outage_since: None };
-    while let Some((id, path)) = d.next() {
-        let rec: Record = match fs::read(&path).and_then(|b| {
-            serde_json::from_slice(&b).map_err(|e| io::Error::new(io::ErrorKind::InvalidData, e))
-        }) {
-            Ok(r) => r,
-            Err(e) => {
-                let mut st = shared.lock();
-                if let Some(i) = st.queue.ids.iter().position(|x| *x == id) {
-                    st.queue.remove_at(i);
-                }
-                st.in_flight = None;
-                st.dropped += 1;
-                tracing::warn!(
-                    file = %path.display(),
-                    error = %e,
-                    "syslog queue: dropped 1 unreadable queued event"
-                );
-                continue;
-            }
-        };
-        // A link that went away while idle is noticed before writing, not after.
-        if let Some(link) = d.link.as_mut()
-            && link.check().is_err()
-        {
-            d.link = None;
-            shared.lock().connected = false;
-        }
-        if d.link.is_none()
-            && let Err(e) = d.connect()
-        {
-            if d.fail("connecting", &e) {
-                continue;
-            }
-            break;
-        }
-        let msg = match cfg.transport {
-            Transport::Tcp => format_rfc5424(&rec.event, cfg, hostname, rec.procid, rec.emit_time),
-            Transport::Udp => format_datagram(&rec.event, cfg, hostname, rec.procid, rec.emit_time),
-        };
-        let Some(link) = d.link.as_mut() else { continue };
-        let mut sent = link.write(&msg);
-        if sent.is_ok() {
-            std::thread::sleep(Duration::from_millis(cfg.confirm_ms));
-            sent = link.check();
-        }
-        match sent {
-            Ok(()) => d.delivered(id),
-            Err(e) => {
-                if !d.fail("sending", &e) {
-                    break;
-                }
-            }
-        }
-    }
-    shared.lock().connected = false;
-}
-
 #[cfg(test)]
 #[path = "../../../tests/it/rfc5424.rs"]
 mod rfc5424;
@@ -1048,8 +457,13 @@ mod rfc5424;
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
 mod tests {
+    use std::fs;
+    use std::io::Read;
+
     use super::rfc5424::parse;
     use super::*;
+    use crate::core::alerts::EventKind;
+    use crate::core::vocabulary::{Cause, Severity};
 
     fn event(severity: Severity, cause: Cause) -> AlertEvent {
         AlertEvent {

@@ -1,0 +1,267 @@
+//! What a shift report is made of: soft-tag rows and alert events read back from the unit's
+//! output files, the ingest counters, and the figures derived from them (alert lifecycles, the
+//! heater-effectiveness trend).
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use jiff::Timestamp;
+use jiff::tz::TimeZone;
+
+use super::ReportUnit;
+use crate::core::alerts::AlertEvent;
+use crate::core::calendar::Shift;
+use crate::core::monitor::stats::LineFit;
+use crate::sinks::softtags::SOFT_TAG_HEADER;
+
+/// One soft-tag row.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Row {
+    /// Interval end, ms.
+    pub t_ms: i64,
+    /// Predicted temperature (measured tag's unit).
+    pub predicted: Option<f64>,
+    /// Measured.
+    pub measured: Option<f64>,
+    /// Residual.
+    pub residual: Option<f64>,
+    /// Standard uncertainty of the prediction.
+    pub u: Option<f64>,
+    /// Apparent conversion.
+    pub conversion: Option<f64>,
+    /// Heater effectiveness.
+    pub effectiveness: Option<f64>,
+    /// Monitor state.
+    pub state: String,
+    /// Flags.
+    pub flags: Vec<String>,
+}
+
+fn parse_row(line: &str) -> Option<Row> {
+    let mut cells = Vec::new();
+    let mut cur = String::new();
+    let mut quoted = false;
+    for c in line.chars() {
+        match c {
+            '"' => quoted = !quoted,
+            ',' if !quoted => cells.push(std::mem::take(&mut cur)),
+            _ => cur.push(c),
+        }
+    }
+    cells.push(cur);
+    if cells.len() < 10 {
+        return None;
+    }
+    let f = |i: usize| cells[i].trim().parse::<f64>().ok();
+    Some(Row {
+        t_ms: cells[0].parse::<Timestamp>().ok()?.as_millisecond(),
+        predicted: f(2),
+        measured: f(3),
+        residual: f(4),
+        u: f(5),
+        conversion: f(6),
+        effectiveness: f(7),
+        state: cells[8].clone(),
+        flags: cells[9].split(';').filter(|s| !s.is_empty()).map(str::to_string).collect(),
+    })
+}
+
+/// Soft-tag rows of a unit in (from, to], from the daily files whose dates overlap.
+pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone) -> Vec<Row> {
+    let prefix = format!("softtags-{unit}-");
+    let first = crate::core::calendar::day_of(from_ms.saturating_add(1), tz);
+    let last = if to_ms >= i64::MAX / 2 {
+        "9999-12-31".to_string()
+    } else {
+        crate::core::calendar::day_of(to_ms, tz)
+    };
+    let files: Vec<PathBuf> = crate::sinks::daily::dated_files(dir, &prefix, ".csv")
+        .into_iter()
+        .filter(|(d, _)| *d >= first && *d <= last)
+        .map(|(_, p)| p)
+        .collect();
+    let mut rows: Vec<Row> = files
+        .iter()
+        .filter_map(|f| std::fs::read_to_string(f).ok())
+        .flat_map(|text| {
+            text.lines().filter(|l| *l != SOFT_TAG_HEADER).filter_map(parse_row).collect::<Vec<_>>()
+        })
+        .collect();
+    rows.retain(|r| r.t_ms > from_ms && r.t_ms <= to_ms);
+    rows.sort_by_key(|r| r.t_ms);
+    rows.dedup_by_key(|r| r.t_ms);
+    rows
+}
+
+/// Every alert event of a unit up to `to_ms` (all files: active alerts may be old).
+pub fn load_events(dir: &Path, unit: &str, to_ms: i64) -> Vec<AlertEvent> {
+    let files = crate::sinks::daily::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
+    let mut out = Vec::new();
+    for (_, f) in files {
+        for line in std::fs::read_to_string(&f).unwrap_or_default().lines() {
+            if let Ok(mut e) = serde_json::from_str::<AlertEvent>(line) {
+                e.time_ms = e.time.parse::<Timestamp>().map(|t| t.as_millisecond()).unwrap_or(0);
+                if e.time_ms <= to_ms {
+                    out.push(e);
+                }
+            }
+        }
+    }
+    out.sort_by_key(|e| e.sequence);
+    out
+}
+
+/// Ingest counters the service keeps per unit and day (`ingest-<unit>-<date>.json`).
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct IngestDay {
+    /// Data records read.
+    pub records: u64,
+    /// Rejected records and values by reason.
+    pub rejected: BTreeMap<String, u64>,
+    /// Late samples.
+    pub late: u64,
+    /// Intervals closed.
+    pub intervals: u64,
+    /// Intervals not computed.
+    pub not_computed: u64,
+}
+
+/// Everything the report shows.
+#[derive(Debug, Clone)]
+pub struct ReportData {
+    /// Site name.
+    pub site: String,
+    /// Unit name and description.
+    pub unit: (String, String),
+    /// The shift.
+    pub shift: Shift,
+    /// Rows of the shift.
+    pub rows: Vec<Row>,
+    /// Rows of the previous shift (for "what changed").
+    pub previous: Vec<Row>,
+    /// Effectiveness over the trend window: (ms, value) of watching intervals.
+    pub effectiveness: Vec<(i64, f64)>,
+    /// Alert events up to the shift end.
+    pub events: Vec<AlertEvent>,
+    /// Ingest counters of the days the shift touches.
+    pub ingest: IngestDay,
+    /// Temperature unit symbol.
+    pub unit_symbol: String,
+    /// Effectiveness limit for cleaning.
+    pub effectiveness_limit: f64,
+    /// Time zone.
+    pub tz: TimeZone,
+    /// Residual alert limits (centre, half-width) in the temperature unit, if known.
+    pub residual_limits: Option<(f64, f64)>,
+}
+
+/// Load the report data of a unit for a shift.
+pub fn load(unit: &ReportUnit, output_dir: &Path, shift: &Shift) -> ReportData {
+    let dir = output_dir.join(&unit.name);
+    let tz = unit.time_zone.clone();
+    // One read covers the previous shift (same shift pattern), this shift and the trend window.
+    let window_start = shift.end_ms - unit.trend_window_ms;
+    let all = load_rows(&dir, &unit.name, shift.prev_start_ms.min(window_start), shift.end_ms, &tz);
+    let effectiveness = all
+        .iter()
+        .filter(|r| r.t_ms > window_start)
+        .filter(|r| r.state == "watching" || r.state == "learning")
+        .filter_map(|r| r.effectiveness.map(|e| (r.t_ms, e)))
+        .collect();
+    let (prev, rows): (Vec<Row>, Vec<Row>) =
+        all.into_iter().filter(|r| r.t_ms > shift.prev_start_ms).partition(|r| r.t_ms <= shift.start_ms);
+    let events = load_events(&dir, &unit.name, shift.end_ms);
+    let mut ingest = IngestDay::default();
+    let mut days: Vec<String> = vec![
+        crate::core::calendar::day_of(shift.start_ms + 1, &tz),
+        crate::core::calendar::day_of(shift.end_ms, &tz),
+    ];
+    days.dedup();
+    for d in days {
+        if let Ok(text) = std::fs::read_to_string(dir.join(format!("ingest-{}-{d}.json", unit.name)))
+            && let Ok(day) = serde_json::from_str::<IngestDay>(&text)
+        {
+            ingest.records += day.records;
+            ingest.late += day.late;
+            ingest.intervals += day.intervals;
+            ingest.not_computed += day.not_computed;
+            for (k, v) in day.rejected {
+                *ingest.rejected.entry(k).or_default() += v;
+            }
+        }
+    }
+    // Residual limits from the watching rows of the window: the baseline centre and scatter
+    // are not in the soft tags, so use the median and robust scale of steady residuals.
+    let steady: Vec<f64> =
+        rows.iter().chain(prev.iter()).filter(|r| r.state == "watching").filter_map(|r| r.residual).collect();
+    let residual_limits = (steady.len() >= 30).then(|| {
+        let m = crate::core::monitor::stats::median(&steady);
+        let s = crate::core::monitor::stats::mad_sigma(&steady).max(0.01);
+        (m, 3.0 * s)
+    });
+    ReportData {
+        site: unit.site.clone(),
+        unit: (unit.name.clone(), unit.description.clone()),
+        shift: shift.clone(),
+        rows,
+        previous: prev,
+        effectiveness,
+        events,
+        ingest,
+        unit_symbol: match unit.temperature_unit.symbol {
+            "degC" => "°C".to_string(),
+            "degF" => "°F".to_string(),
+            "degR" => "°R".to_string(),
+            other => other.to_string(),
+        },
+        effectiveness_limit: unit.effectiveness_limit,
+        tz,
+        residual_limits,
+    }
+}
+
+/// Alert lifecycles seen up to the shift end: (first event, last event).
+pub(super) fn lifecycles(events: &[AlertEvent]) -> Vec<(AlertEvent, AlertEvent)> {
+    let mut by: BTreeMap<String, (AlertEvent, AlertEvent)> = BTreeMap::new();
+    for e in events {
+        by.entry(e.alert_id.clone())
+            .and_modify(|x| x.1 = e.clone())
+            .or_insert_with(|| (e.clone(), e.clone()));
+    }
+    let mut v: Vec<_> = by.into_values().collect();
+    v.sort_by_key(|x| x.0.sequence);
+    v
+}
+
+/// A projected date to the limit and its ±2σ range, ms.
+pub type Projection = (i64, i64, i64);
+
+/// The effectiveness trend with its projection to the limit (linear fit of 4-hour means;
+/// reported only when the slope is negative with |t| ≥ 2).
+pub fn effectiveness_trend(
+    points: &[(i64, f64)],
+    limit: f64,
+    now_ms: i64,
+) -> Option<(LineFit, Option<Projection>)> {
+    let mut means: BTreeMap<i64, (f64, usize)> = BTreeMap::new();
+    for (t, e) in points {
+        let slot = t.div_euclid(4 * 3_600_000);
+        let m = means.entry(slot).or_insert((0.0, 0));
+        m.0 += e;
+        m.1 += 1;
+    }
+    let t: Vec<f64> = means.keys().map(|s| (*s as f64 + 0.5) * 4.0 / 24.0).collect();
+    let y: Vec<f64> = means.values().map(|(s, n)| s / *n as f64).collect();
+    if t.len() < 6 {
+        return None;
+    }
+    let fit = LineFit::fit(&t, &y)?;
+    let now_d = now_ms as f64 / 86_400_000.0;
+    let proj = (fit.b < 0.0 && fit.t_stat().abs() >= 2.0).then(|| fit.time_to(limit, now_d)).flatten().map(
+        |(dt, sd)| {
+            let d = |x: f64| now_ms + (x * 86_400_000.0) as i64;
+            (d(dt), d((dt - 2.0 * sd).max(0.0)), d(dt + 2.0 * sd))
+        },
+    );
+    Some((fit, proj))
+}
