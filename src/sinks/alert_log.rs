@@ -5,6 +5,7 @@
 use std::io::{self, Write};
 use std::path::{Path, PathBuf};
 
+use jiff::Timestamp;
 use jiff::tz::TimeZone;
 
 use crate::core::Outcome;
@@ -90,4 +91,22 @@ impl Sink for AlertWriter {
     fn sync(&mut self) -> io::Result<()> {
         flush_day(&mut self.current, true)
     }
+}
+
+/// Every alert event of a unit up to `to_ms` (all files: active alerts may be old).
+pub fn load_events(dir: &Path, unit: &str, to_ms: i64) -> Vec<AlertEvent> {
+    let files = crate::sinks::daily::dated_files(dir, &format!("alerts-{unit}-"), ".jsonl");
+    let mut out = Vec::new();
+    for (_, f) in files {
+        for line in std::fs::read_to_string(&f).unwrap_or_default().lines() {
+            if let Ok(mut e) = serde_json::from_str::<AlertEvent>(line) {
+                e.time_ms = e.time.parse::<Timestamp>().map(|t| t.as_millisecond()).unwrap_or(0);
+                if e.time_ms <= to_ms {
+                    out.push(e);
+                }
+            }
+        }
+    }
+    out.sort_by_key(|e| e.sequence);
+    out
 }
