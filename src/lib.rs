@@ -32,5 +32,5 @@ pub mod source;
 pub mod thermo;
 pub mod units;
 
-/// The cautions every user-facing output carries (DESIGN §6).
+/// The cautions every user-facing output carries (README, report, `--help`).
 pub const CAUTION: &str = "efftemp is advisory. It is not a safety instrumented function, must not be used for automatic control actions, and its alerts do not replace the site's alarm system, operating procedures, management of change, or the judgement of qualified engineers under local codes and regulations.";

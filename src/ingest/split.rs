@@ -8,9 +8,9 @@
 //! span and line number, and holds back everything else.
 //!
 //! Why not `csv::Reader`: at end of input it returns the unterminated last row as if it were
-//! complete (see `research/tailing.md` §5.5), which would deliver half-written rows such as
-//! `...,FI-2011,1` cut out of `...,FI-2011,12.5`. Here end of input never completes a record:
-//! only a terminator does.
+//! complete (RFC 4180 §2 allows a last record without a line break), which would deliver
+//! half-written rows such as `...,FI-2011,1` cut out of `...,FI-2011,12.5`. Here end of input
+//! never completes a record: only a terminator does.
 //!
 //! Rules, in the order they apply at a record boundary:
 //!
