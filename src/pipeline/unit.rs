@@ -20,10 +20,11 @@ use crate::ingest::reader::{ExportReader, Read};
 use crate::ingest::tail::TailOptions;
 use crate::sinks::alert_log::AlertWriter;
 use crate::sinks::report::ReportUnit;
-use crate::sinks::shift_reports::ShiftReports;
+use crate::sinks::report::ShiftReports;
 use crate::sinks::softtags::SoftTagWriter;
 use crate::sinks::syslog::Forwarder;
-use crate::sinks::{Sinks, SyslogSink, ingest_counts};
+use crate::sinks::syslog::SyslogSink;
+use crate::sinks::{Sinks, ingest_counts};
 
 /// One unit's runtime.
 pub struct UnitRuntime {

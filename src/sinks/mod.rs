@@ -10,7 +10,6 @@
 
 use std::io;
 use std::path::PathBuf;
-use std::sync::Arc;
 
 use crate::core::Outcome;
 use crate::core::alerts::AlertEvent;
@@ -20,14 +19,13 @@ pub mod checkpoint;
 pub mod daily;
 pub mod ingest_counts;
 pub mod report;
-pub mod shift_reports;
 pub mod softtags;
 pub mod syslog;
 
 use alert_log::AlertWriter;
-use shift_reports::ShiftReports;
+use report::ShiftReports;
 use softtags::SoftTagWriter;
-use syslog::Forwarder;
+use syslog::SyslogSink;
 
 /// One destination of the per-interval outcome.
 pub trait Sink {
@@ -37,42 +35,6 @@ pub trait Sink {
     fn flush(&mut self) -> io::Result<()>;
     /// Make what was written durable (before a checkpoint is written).
     fn sync(&mut self) -> io::Result<()>;
-}
-
-/// Alert events to the syslog forwarder's disk queue, each once: events already in the alert
-/// log when the service started are not sent again.
-pub struct SyslogSink {
-    forwarder: Arc<Forwarder>,
-    /// Sequence number of the last event queued (or on disk at start).
-    last_sequence: u64,
-}
-
-impl SyslogSink {
-    /// Forward through `forwarder` the events after `last_sequence`.
-    pub fn new(forwarder: Arc<Forwarder>, last_sequence: u64) -> SyslogSink {
-        SyslogSink { forwarder, last_sequence }
-    }
-}
-
-impl Sink for SyslogSink {
-    fn write(&mut self, outcome: &Outcome) -> io::Result<()> {
-        for event in &outcome.events {
-            if event.sequence > self.last_sequence {
-                self.forwarder.send(event);
-                self.last_sequence = event.sequence;
-            }
-        }
-        Ok(())
-    }
-
-    // The forwarder's queue is durable as it is written.
-    fn flush(&mut self) -> io::Result<()> {
-        Ok(())
-    }
-
-    fn sync(&mut self) -> io::Result<()> {
-        Ok(())
-    }
 }
 
 /// The sinks of one unit, in their fixed order.

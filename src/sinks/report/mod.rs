@@ -8,6 +8,7 @@
 
 mod data;
 mod html;
+mod sink;
 mod svg;
 mod text;
 
@@ -19,6 +20,7 @@ pub use self::data::{
     IngestDay, Projection, ReportData, Row, effectiveness_trend, load, load_events, load_rows,
 };
 pub use self::html::{Headline, headline, plots, render_html};
+pub use self::sink::ShiftReports;
 pub use self::text::render_text;
 use crate::core::calendar::Shift;
 use crate::core::spec::UnitSpec;

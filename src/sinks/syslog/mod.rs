@@ -79,6 +79,7 @@
 mod deliver;
 mod format;
 mod queue;
+mod sink;
 
 use std::io;
 use std::path::PathBuf;
@@ -95,6 +96,7 @@ pub use self::format::{
     frame_octet_counted, local_hostname, sd_escape, sd_name, syslog_severity,
 };
 use self::queue::{DiskQueue, Record};
+pub use self::sink::SyslogSink;
 use crate::core::alerts::AlertEvent;
 
 /// Default facility: 16, `local0`, the usual choice for site applications.

@@ -1,5 +1,5 @@
 //! The shift-report sink: when an interval passes the end of the shift the previous interval
-//! belonged to, the report of that shift is written (see [`crate::sinks::report`]).
+//! belonged to, the report of that shift is written (see [`write`](super::write)).
 
 use std::io;
 use std::path::PathBuf;
@@ -7,10 +7,10 @@ use std::path::PathBuf;
 use jiff::civil::Time;
 use tracing::{info, warn};
 
+use super::ReportUnit;
 use crate::core::Outcome;
 use crate::core::calendar::{Shift, shift_containing};
 use crate::sinks::Sink;
-use crate::sinks::report::{self, ReportUnit};
 
 /// Writes each unit's shift report as its shift ends, in event time.
 pub struct ShiftReports {
@@ -67,7 +67,7 @@ impl Sink for ShiftReports {
         self.last_end_ms = Some(outcome.evaluation.end_ms);
         let Some(shift) = shift else { return Ok(()) };
         // A report that cannot be written is logged; the data it would show are on disk.
-        match report::write(&self.unit, &self.output_dir, &shift) {
+        match super::write(&self.unit, &self.output_dir, &shift) {
             Ok((path, text)) => {
                 info!(unit = %self.unit.name, report = %path.display(), "shift report written");
                 self.written = Some((path, text));
