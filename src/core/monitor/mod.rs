@@ -13,3 +13,6 @@ pub mod engine;
 pub mod settings;
 pub mod ssd;
 pub mod stats;
+
+#[cfg(test)]
+mod tests;
