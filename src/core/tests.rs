@@ -7,7 +7,7 @@ use std::sync::Arc;
 use super::alerts::{EventKind, Shelf};
 use super::assembly::{Closed, TagStatus, TagValue};
 use super::flags::Flag;
-use super::monitor::engine::MonitorState;
+use super::monitor::MonitorState;
 use super::spec::UnitSpec;
 use super::vocabulary::Cause;
 use super::{Outcome, UnitCore};

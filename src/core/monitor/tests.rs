@@ -3,7 +3,7 @@
 
 #![allow(clippy::unwrap_used)]
 
-use super::engine::Monitor;
+use super::Monitor;
 use super::settings::MonitorConfig;
 use crate::core::model::{Evaluation, Signals};
 use crate::core::spec::UnitSpec;
