@@ -139,3 +139,66 @@ pub(super) fn round(x: f64, d: i32) -> serde_json::Value {
     let f = 10f64.powi(d);
     ((x * f).round() / f).into()
 }
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    fn raise(held: &mut Held, cause: Cause, subject: &str, message: &str, now: i64) {
+        held.raise(
+            cause,
+            subject,
+            Severity::Medium,
+            message.into(),
+            1.5,
+            now,
+            ev(&[("k", round(0.12345, 3))]),
+        );
+    }
+
+    fn causes(held: &Held) -> Vec<(Cause, &str)> {
+        held.iter().map(|a| (a.cause, a.subject.as_str())).collect()
+    }
+
+    #[test]
+    fn a_new_explanation_replaces_the_previous_one_but_instrument_faults_stay() {
+        let mut held = Held::default();
+        raise(&mut held, Cause::InstrumentFault, "TI-109", "step", 1);
+        raise(&mut held, Cause::Undetermined, "energy balance", "cannot tell", 2);
+        raise(&mut held, Cause::HeaterFouling, "heater", "fouling", 3);
+        assert_eq!(causes(&held), vec![(Cause::InstrumentFault, "TI-109"), (Cause::HeaterFouling, "heater")]);
+        // The same cause and subject again: refreshed in place, its clean count restarted.
+        held.iter_mut().for_each(|a| a.clean = 4);
+        raise(&mut held, Cause::HeaterFouling, "heater", "fouling, worse", 9);
+        let a = held.iter().nth(1).unwrap();
+        assert_eq!((a.message.as_str(), a.since_ms, a.clean), ("fouling, worse", 3, 0));
+        assert_eq!(held.iter().next().unwrap().clean, 4, "the other condition keeps its count");
+        assert!(
+            held.holds(Cause::InstrumentFault, "TI-109") && !held.holds(Cause::InstrumentFault, "heater")
+        );
+    }
+
+    #[test]
+    fn held_conditions_go_out_with_their_magnitude_and_only_steps_have_an_offset() {
+        let mut held = Held::default();
+        raise(&mut held, Cause::InstrumentFault, "TI-109", "step", 1);
+        held.raise(
+            Cause::InstrumentFault,
+            "JI-103",
+            Severity::Medium,
+            "meter".into(),
+            0.8,
+            1,
+            ev(&[("step_k", (-0.8).into())]),
+        );
+        let mut out = Vec::new();
+        held.emit(&mut out);
+        assert_eq!(out.len(), 2);
+        assert_eq!((out[0].magnitude, out[0].evidence["magnitude"].as_f64()), (Some(1.5), Some(1.5)));
+        assert_eq!(out[0].evidence["k"].as_f64(), Some(0.123));
+        let offsets: Vec<Option<f64>> = held.iter().map(Active::step_k).collect();
+        assert_eq!(offsets, vec![None, Some(-0.8)]);
+        assert!(explains_deviation(Cause::HeatLoss) && !explains_deviation(Cause::InstrumentFault));
+    }
+}

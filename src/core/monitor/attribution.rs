@@ -728,3 +728,187 @@ fn deflated_slope_t(y: &[f64], x: &[f64], t: &[f64]) -> Option<f64> {
     let rho = stats::acf1(&resid).clamp(0.0, 0.95);
     Some(ts[0] * ((1.0 - rho) / (1.0 + rho)).sqrt())
 }
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::core::monitor::tests::{CP, T0, baseline, unit};
+    use crate::rng::Rng;
+
+    const HOUR: i64 = 3_600_000;
+
+    /// The attribution fed one-hour blocks (60 one-minute intervals).
+    struct Judge {
+        cfg: MonitorConfig,
+        unit: UnitSpec,
+        b: Baseline,
+        charts: Charts,
+        history: VecDeque<BlockRecord>,
+        active: Held,
+        attribution: Attribution,
+        trend: Option<Trend>,
+        i: i64,
+        /// The causes held after each block.
+        log: Vec<Vec<Cause>>,
+    }
+
+    impl Judge {
+        fn new() -> Judge {
+            let cfg = MonitorConfig::default();
+            let b = baseline(&cfg, 60);
+            let charts = Charts::new(&b, &cfg);
+            Judge {
+                cfg,
+                unit: unit(),
+                b,
+                charts,
+                history: VecDeque::new(),
+                active: Held::default(),
+                attribution: Attribution::default(),
+                trend: None,
+                i: 0,
+                log: Vec::new(),
+            }
+        }
+
+        /// The next block at feed `feed` (mol/s), duty `duty` (W), ambient `ambient` (K), with
+        /// the effluent `residual` K off the model; its effectiveness is what that residual
+        /// means for the heater (the duty it would take over the duty reported).
+        fn block(&mut self, feed: f64, duty: f64, ambient: f64, residual: f64) {
+            let c = feed * CP;
+            let t_out = 303.15 + duty / c + residual;
+            self.i += 1;
+            let rec = BlockRecord {
+                end_ms: T0 + self.i * HOUR,
+                residual,
+                z: 0.0,
+                eff: Some(1.0 + residual * c / duty),
+                conv: None,
+                conv_measured: None,
+                duty: Some(duty),
+                key_feed: Some(0.1 * feed),
+                heat_capacity: Some(c),
+                ambient: Some(ambient),
+                tags: vec![Some(feed), Some(303.15), Some(duty), Some(t_out), Some(ambient)],
+            };
+            Watch {
+                cfg: &self.cfg,
+                unit: &self.unit,
+                b: &self.b,
+                charts: &mut self.charts,
+                history: &mut self.history,
+                active: &mut self.active,
+                attribution: &mut self.attribution,
+                trend: &mut self.trend,
+            }
+            .watch_block(rec);
+            self.log.push(self.held());
+        }
+
+        /// Blocks at the moving operating point, with an energy deficit (W) of
+        /// `deficit(feed, duty)`.
+        fn moving(&mut self, blocks: std::ops::Range<i64>, mut deficit: impl FnMut(f64, f64) -> f64) {
+            for i in blocks {
+                let (feed, duty) = operating_point(i);
+                let residual = deficit(feed, duty) / (feed * CP);
+                self.block(feed, duty, 283.15, residual);
+            }
+        }
+
+        fn held(&self) -> Vec<Cause> {
+            self.active.iter().map(|a| a.cause).collect()
+        }
+    }
+
+    /// An operating point that moves: the feed and the duty vary independently, so their
+    /// ratio does too.
+    fn operating_point(i: i64) -> (f64, f64) {
+        let x = i as f64;
+        (10.0 + 2.0 * (0.7 * x).sin(), 30_000.0 * (1.0 + 0.15 * (1.3 * x).cos()))
+    }
+
+    #[test]
+    fn a_deficit_proportional_to_the_duty_is_heater_fouling_and_clears_after_clean_blocks() {
+        let mut judge = Judge::new();
+        let mut rng = Rng::new(21);
+        // 3 % of the duty does not reach the liquid, whatever the feed.
+        judge.moving(0..30, |_, duty| -0.03 * duty + 5.0 * rng.normal());
+        // Too few blocks at first to tell the causes apart: named undetermined meanwhile.
+        assert_eq!(judge.log[5], vec![Cause::Undetermined]);
+        assert_eq!(judge.held(), vec![Cause::HeaterFouling]);
+        let a = judge.active.iter().next().unwrap();
+        assert_eq!(a.subject, "heater");
+        assert!(
+            a.message.contains("the energy deficit scales with the duty, not with the feed rate"),
+            "{}",
+            a.message
+        );
+        assert!((a.magnitude - 3.0).abs() < 0.1, "loss {} %", a.magnitude);
+        // Back to normal. The first block still signals (two of the last three blocks beyond
+        // the Shewhart limit) and refreshes the alert; the condition clears after the six
+        // clean blocks that follow, and the episode ends.
+        judge.moving(30..40, |feed, _| 0.01 * feed * CP * rng.normal());
+        let cleared: Vec<bool> = judge.log[30..].iter().map(Vec::is_empty).collect();
+        assert_eq!(cleared, [false, false, false, false, false, false, true, true, true, true]);
+        assert_eq!(judge.attribution.episode_ms, None);
+    }
+
+    #[test]
+    fn a_deficit_proportional_to_the_key_reactants_feed_is_a_conversion_drift() {
+        let mut judge = Judge::new();
+        let mut rng = Rng::new(22);
+        // The reaction releases less heat: a fixed amount per mole of key reactant fed.
+        judge.moving(0..30, |feed, _| -9_000.0 * 0.1 * feed + 5.0 * rng.normal());
+        assert_eq!(judge.held(), vec![Cause::ConversionDrift]);
+        let a = judge.active.iter().next().unwrap();
+        assert!(a.subject.contains("acetate"), "the key reactant: {}", a.subject);
+        assert!(
+            a.message.contains("scales with the key reactant's feed, not with the duty"),
+            "{}",
+            a.message
+        );
+    }
+
+    #[test]
+    fn a_deficit_that_follows_the_feed_and_the_duty_together_is_undetermined() {
+        let mut judge = Judge::new();
+        for i in 0..30 {
+            let feed = 10.0 + 2.0 * (0.7 * i as f64).sin();
+            // The duty follows the feed: fouling and a conversion change look alike.
+            let duty = 3_000.0 * feed;
+            judge.block(feed, duty, 283.15, -0.03 * duty / (feed * CP));
+        }
+        assert_eq!(judge.held(), vec![Cause::Undetermined]);
+        let a = judge.active.iter().next().unwrap();
+        assert!(a.message.contains("the duty followed the feed rate"), "{}", a.message);
+    }
+
+    /// Two days of hourly blocks at a constant operating point, the ambient swinging ±8 K
+    /// daily, and a residual of `residual(ambient)`.
+    fn two_days(residual: impl Fn(f64, f64) -> f64) -> Judge {
+        let mut judge = Judge::new();
+        let mut rng = Rng::new(23);
+        let t_out = 303.15 + 30_000.0 / (10.0 * CP);
+        for i in 0..48 {
+            let ambient = 283.15 + 8.0 * (2.0 * std::f64::consts::PI * i as f64 / 24.0).sin();
+            judge.block(10.0, 30_000.0, ambient, residual(t_out, ambient) + 0.01 * rng.normal());
+        }
+        judge
+    }
+
+    #[test]
+    fn a_residual_that_tracks_the_ambient_with_the_physical_sign_is_heat_loss() {
+        // An extra loss UA·(T − T_amb) with UA/C = 0.02: cooler outside, more heat lost.
+        let judge = two_days(|t_out, ambient| -0.02 * (t_out - ambient));
+        assert_eq!(judge.held(), vec![Cause::HeatLoss]);
+        let a = judge.active.iter().next().unwrap();
+        let slope = a.evidence["k_per_k_ambient"].as_f64().unwrap();
+        assert!((slope - 0.02).abs() < 0.002, "{slope} K per K");
+        assert!(a.evidence["correlation"].as_f64().unwrap() > 0.9);
+
+        // The same deficit, but rising when it is warmer outside: not a heat loss.
+        let judge = two_days(|t_out, ambient| -0.02 * (t_out - 283.15) - 0.02 * (ambient - 283.15));
+        assert_eq!(judge.held(), vec![Cause::Undetermined]);
+    }
+}

@@ -167,3 +167,74 @@ fn tag_scatter(learning: &[LearnRow], block: usize, ntags: usize) -> TagScatter 
         .collect();
     (tag_sigma, tag_noise)
 }
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::core::monitor::tests::unit;
+    use crate::rng::Rng;
+
+    /// `n` learning intervals: a white-noise residual of σ 0.1 K, an effectiveness of
+    /// 0.95 ± 0.01 in every other interval, and the first tag with white noise of σ 0.02.
+    fn white_noise(n: usize) -> Vec<LearnRow> {
+        let mut rng = Rng::new(42);
+        (0..n)
+            .map(|k| {
+                let r = 0.1 * rng.normal();
+                let eff = (k % 2 == 0).then(|| 0.95 + 0.01 * rng.normal());
+                let tags = vec![Some(10.0 + 0.02 * rng.normal()), None, None, None, None];
+                (r, eff, None, None, 10.0, tags)
+            })
+            .collect()
+    }
+
+    #[test]
+    fn a_baseline_learned_on_white_noise_has_its_sigma_and_the_designed_limits() {
+        let cfg = MonitorConfig { block_intervals: 10, ..MonitorConfig::default() };
+        let unit = unit();
+        let b = Baseline::learn(&cfg, &unit, &white_noise(3000), 7);
+        // White noise needs no longer blocks: 300 blocks of 10.
+        assert_eq!((b.block, b.blocks, b.learned_ms), (10, 300, 7));
+        // Block σ = 0.1/√10 = 0.032 K, interval σ 0.1 K, mean 0 within 3 standard errors.
+        assert!((b.sigma / (0.1 / 10f64.sqrt()) - 1.0).abs() < 0.15, "block σ {}", b.sigma);
+        assert!((b.sigma_interval / 0.1 - 1.0).abs() < 0.1, "interval σ {}", b.sigma_interval);
+        assert!(b.mu.abs() < 3.0 * 0.1 / 3000f64.sqrt(), "μ {}", b.mu);
+        assert!(b.acf1.abs() < 0.2, "{}", b.acf1);
+        // One false alert per 30 days per chart on 10-minute blocks: ARL0 = 4320 blocks, for
+        // which the CUSUM (k = 0.5) needs h = 7.21 and the EWMA (λ = 0.1) L = 3.515.
+        assert!((b.h - 7.21).abs() < 0.02, "h = {}", b.h);
+        assert!((b.l - 3.515).abs() < 0.01, "L = {}", b.l);
+        // The effectiveness is learned on its own blocks; the conversion was never seen.
+        let (m, s) = b.eff.unwrap();
+        assert!((m - 0.95).abs() < 0.002 && (s / (0.01 / 10f64.sqrt()) - 1.0).abs() < 0.25, "{m} ± {s}");
+        assert_eq!((b.conv, b.conv_measured, b.feed), (None, None, 10.0));
+        // The tag's interval noise is its σ; tags never seen have none.
+        let noise = b.tag_noise[0].unwrap();
+        assert!((noise / 0.02 - 1.0).abs() < 0.1, "tag noise {noise}");
+        assert_eq!((b.tag_noise.len(), b.tag_noise[1], b.tag_sigma[1]), (5, None, None));
+        // The step statistic (median of 10 against the 20 before) scatters by about
+        // 0.1 × √(π/2 · (1/10 + 1/20)) = 0.049 K on white noise.
+        assert!((b.step_sigma / 0.049 - 1.0).abs() < 0.2, "step σ {}", b.step_sigma);
+        assert!(b.note(&cfg).starts_with("baseline learned from 300 blocks of 10 intervals"));
+    }
+
+    #[test]
+    fn autocorrelated_residuals_get_longer_blocks_and_a_wider_sigma() {
+        let cfg = MonitorConfig { block_intervals: 10, ..MonitorConfig::default() };
+        let mut rng = Rng::new(9);
+        let mut x = 0.0;
+        let rows: Vec<LearnRow> = (0..6000)
+            .map(|_| {
+                x = 0.95 * x + 0.1 * rng.normal();
+                (x, None, None, None, 10.0, Vec::new())
+            })
+            .collect();
+        let b = Baseline::learn(&cfg, &unit(), &rows, 0);
+        assert!(b.block > 10, "block {}", b.block);
+        // The standard deviation of the means of AR(1) blocks is well above σ_x/√b.
+        let sigma_x = 0.1 / (1.0 - 0.95f64 * 0.95).sqrt();
+        assert!(b.sigma > 1.5 * sigma_x / (b.block as f64).sqrt(), "{} for block {}", b.sigma, b.block);
+        assert_eq!(b.eff, None, "no effectiveness seen");
+    }
+}

@@ -438,3 +438,172 @@ fn push_bounded<T>(q: &mut VecDeque<T>, v: T, n: usize) {
         q.pop_front();
     }
 }
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::core::monitor::tests::{AMBIENT, CP, DUTY, FLOW, MIN, Point, T0, TOUT, baseline, unit};
+    use crate::rng::Rng;
+
+    /// The instrument checks fed interval by interval, with what they flagged and raised.
+    struct Checks {
+        cfg: MonitorConfig,
+        unit: UnitSpec,
+        baseline: Option<Baseline>,
+        instruments: Instruments,
+        steps: StepWindow,
+        active: Held,
+        /// (interval, flag) of every flag.
+        flags: Vec<(i64, Flag)>,
+        /// The conditions held after each interval.
+        log: Vec<Vec<(Cause, String)>>,
+        k: i64,
+    }
+
+    impl Checks {
+        fn new() -> Checks {
+            let cfg = MonitorConfig::default();
+            let baseline = Some(baseline(&cfg, 10));
+            Checks {
+                cfg,
+                unit: unit(),
+                baseline,
+                instruments: Instruments::default(),
+                steps: StepWindow::default(),
+                active: Held::default(),
+                flags: Vec::new(),
+                log: Vec::new(),
+                k: 0,
+            }
+        }
+
+        /// One interval at `p` (its prediction taken as already compensated, no lag).
+        fn run(&mut self, p: Point) {
+            let tags = [Some(p.feed), Some(p.feed_t), Some(p.duty), Some(p.meas), Some(p.ambient)];
+            let x = Reading {
+                end_ms: T0 + (self.k + 1) * MIN,
+                pred: p.pred,
+                meas: p.meas,
+                r: p.meas - p.pred,
+                tags: &tags,
+            };
+            let mut flags = Vec::new();
+            let b = self.baseline.as_ref();
+            self.instruments.check(&self.cfg, &self.unit, b, &x, &mut self.active, &mut flags);
+            self.steps.check(&self.cfg, &self.unit, b, 0.0, &x, &mut self.active);
+            self.flags.extend(flags.into_iter().map(|f| (self.k, f)));
+            self.log.push(self.held());
+            self.k += 1;
+        }
+
+        /// `n` intervals at the nominal point with noise, each changed by `change(k, point)`.
+        fn intervals(&mut self, rng: &mut Rng, n: i64, change: impl Fn(i64, &mut Point)) {
+            for k in 0..n {
+                let mut p = Point::nominal().noisy(rng);
+                change(k, &mut p);
+                self.run(p);
+            }
+        }
+
+        fn held(&self) -> Vec<(Cause, String)> {
+            self.active.iter().map(|a| (a.cause, a.subject.clone())).collect()
+        }
+    }
+
+    #[test]
+    fn a_hampel_spike_is_flagged_but_a_step_is_not() {
+        let mut rng = Rng::new(1);
+        let spike = |k: i64, p: &mut Point| p.meas += if k == 20 { 1.0 } else { 0.0 };
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 40, spike);
+        // Judged when it is the centre of the window of 7, three intervals later.
+        assert_eq!(checks.flags, vec![(23, Flag::Spike(TOUT))]);
+        assert!(checks.held().is_empty(), "one spike raises nothing: {:?}", checks.held());
+
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 40, |k, p| p.meas += if k >= 20 { 1.0 } else { 0.0 });
+        assert!(checks.flags.is_empty(), "{:?}", checks.flags);
+
+        // Without a baseline nothing is flagged.
+        let mut checks = Checks { baseline: None, ..Checks::new() };
+        checks.intervals(&mut rng, 40, spike);
+        assert!(checks.flags.is_empty(), "{:?}", checks.flags);
+    }
+
+    #[test]
+    fn three_spikes_within_an_hour_raise_a_thermometer_fault() {
+        let mut rng = Rng::new(2);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 60, |k, p| p.meas -= if [10, 25, 40].contains(&k) { 1.0 } else { 0.0 });
+        // The third spike is judged at interval 43.
+        let raised = checks.log.iter().position(|h| !h.is_empty()).unwrap();
+        assert_eq!(raised, 43);
+        assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "TI-109".to_string())]);
+        let a = checks.active.iter().next().unwrap();
+        assert_eq!((a.severity, a.magnitude), (Severity::Low, 3.0));
+        assert!(a.message.contains("3 spikes in the last hour"), "{}", a.message);
+    }
+
+    #[test]
+    fn a_frozen_tag_with_baseline_noise_is_raised_as_stuck_and_clears_when_it_moves() {
+        let mut rng = Rng::new(3);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 100, |k, p| {
+            if (40..80).contains(&k) {
+                p.feed = 10.0;
+            }
+        });
+        // Frozen from interval 40: the window of 30 is all one value at interval 69; it
+        // moves again at 80.
+        let stuck = vec![(Cause::InstrumentFault, "FI-101:stuck".to_string())];
+        for (k, held) in checks.log.iter().enumerate() {
+            assert_eq!(*held, if (69..80).contains(&k) { stuck.clone() } else { vec![] }, "interval {k}");
+        }
+        // The ambient thermometer is constant all along, but it is not a required tag, and the
+        // thermometers and meters that moved are not frozen.
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 100, |_, _| {});
+        assert!(checks.log.iter().all(Vec::is_empty), "{:?}", checks.held());
+        assert!(!checks.unit.tags[AMBIENT].required);
+    }
+
+    #[test]
+    fn a_thermometer_step_is_blamed_on_the_thermometer() {
+        let mut rng = Rng::new(4);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 30, |k, p| p.meas += if k >= 20 { 1.0 } else { 0.0 });
+        assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "TI-109".to_string())]);
+        let a = checks.active.iter().next().unwrap();
+        let step = a.step_k().unwrap();
+        assert!((step - 1.0).abs() < 0.1, "step {step}");
+        assert!(a.evidence["prediction_change_k"].as_f64().unwrap().abs() < 1e-9);
+        assert!(a.message.contains("while no input moved: suspect TI-109"), "{}", a.message);
+        assert_eq!(a.evidence["change_time"], "2026-12-01T00:21:00+00:00");
+    }
+
+    #[test]
+    fn a_meter_step_is_blamed_on_the_meter() {
+        let mut rng = Rng::new(5);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 30, |k, p| {
+            // The duty meter reads 5 % high: the model predicts a hotter effluent that the
+            // plant does not deliver.
+            if k >= 20 {
+                p.duty *= 1.05;
+            }
+            p.pred = p.feed_t + p.duty / (p.feed * CP);
+        });
+        assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "JI-103".to_string())]);
+        let a = checks.active.iter().next().unwrap();
+        let step = a.step_k().unwrap();
+        let want = -0.05 * 30_000.0 / (10.0 * CP);
+        assert!((step / want - 1.0).abs() < 0.1, "step {step}, expected {want}");
+        assert!(a.message.contains("JI-103 moved by +"), "{}", a.message);
+        assert!(a.message.contains("suspect JI-103 (heater duty)"), "{}", a.message);
+        assert_eq!(
+            (checks.unit.tags[DUTY].name.as_str(), checks.unit.tags[FLOW].name.as_str()),
+            ("JI-103", "FI-101")
+        );
+    }
+}

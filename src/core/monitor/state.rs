@@ -375,3 +375,162 @@ impl Monitor {
         self.state = MonitorState::Watching;
     }
 }
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::core::monitor::tests::{MIN, Point, T0, evaluation, fixture_monitor, unit};
+    use crate::rng::Rng;
+
+    /// Dead time 2 min and lag 1 min: settling takes 2 + 3 × 1 = 5 one-minute intervals.
+    fn cfg() -> MonitorConfig {
+        MonitorConfig {
+            block_intervals: 5,
+            baseline_blocks: 12,
+            dead_time_ms: 2 * MIN,
+            lag_ms: MIN,
+            ..MonitorConfig::default()
+        }
+    }
+
+    /// A plant whose effluent answers the prediction with the configured dead time and lag,
+    /// measured with noise: what the monitor saw, interval by interval.
+    struct Plant {
+        unit: UnitSpec,
+        cfg: MonitorConfig,
+        monitor: Monitor,
+        dynamics: Fopdt,
+        rng: Rng,
+        k: i64,
+    }
+
+    impl Plant {
+        fn new() -> Plant {
+            let (unit, cfg) = (unit(), cfg());
+            let monitor = Monitor::new(&cfg, unit.interval_ms);
+            let dynamics = Fopdt::new(cfg.dead_time_ms, cfg.lag_ms, unit.interval_ms);
+            Plant { unit, cfg, monitor, dynamics, rng: Rng::new(11), k: 0 }
+        }
+
+        /// One interval at `p` (its measurement follows the plant's dynamics).
+        fn run(&mut self, p: Point) -> (Evaluation, MonitorOutput) {
+            let p = Point { meas: self.dynamics.step(p.pred), ..p }.noisy(&mut self.rng);
+            let mut e = evaluation(self.k, p);
+            self.k += 1;
+            let out = self.monitor.step(&self.cfg, &self.unit, &mut e);
+            (e, out)
+        }
+
+        fn states(&mut self, p: Point, n: usize) -> Vec<MonitorState> {
+            (0..n).map(|_| self.run(p).1.state).collect()
+        }
+    }
+
+    /// Consecutive runs of equal states.
+    fn runs(states: &[MonitorState]) -> Vec<(MonitorState, usize)> {
+        let mut out: Vec<(MonitorState, usize)> = Vec::new();
+        for s in states {
+            match out.last_mut() {
+                Some((last, n)) if last == s => *n += 1,
+                _ => out.push((*s, 1)),
+            }
+        }
+        out
+    }
+
+    #[test]
+    fn unsteady_then_settling_for_the_dead_time_and_three_lags_then_learning_then_watching() {
+        let mut plant = Plant::new();
+        let nominal = Point::nominal();
+        let states = plant.states(nominal, 100);
+        let r = runs(&states);
+        assert_eq!(r[0].0, MonitorState::Unsteady, "{r:?}");
+        assert_eq!(r[1], (MonitorState::Settling, 5), "{r:?}");
+        // The baseline needs 12 blocks of 5 steady intervals; it is learned at the 60th.
+        assert_eq!(r[2], (MonitorState::Learning, 59), "{r:?}");
+        assert_eq!(r[3].0, MonitorState::Watching, "{r:?}");
+        assert_eq!(r.len(), 4, "{r:?}");
+        let b = plant.monitor.baseline.as_ref().unwrap();
+        assert_eq!(b.block, 5);
+
+        // A feed step: the inputs move, the monitor waits for steady state and the dynamics.
+        let stepped = Point { feed: 11.0, pred: nominal.feed_t + nominal.duty / (11.0 * 75.35), ..nominal };
+        let (e, _) = plant.run(stepped);
+        // The prediction is compensated: the dead time holds the old value for two intervals,
+        // then the lag lets 1 − e^(−1) of the step through.
+        assert!((e.predicted_k.unwrap() - nominal.pred).abs() < 1e-9);
+        let (e, _) = plant.run(stepped);
+        assert!((e.predicted_k.unwrap() - nominal.pred).abs() < 1e-9);
+        let (e, _) = plant.run(stepped);
+        let a = (-1.0f64).exp();
+        let want = a * nominal.pred + (1.0 - a) * stepped.pred;
+        assert!((e.predicted_k.unwrap() - want).abs() < 1e-9, "{:?} vs {want}", e.predicted_k);
+        let states = plant.states(stepped, 200);
+        let r = runs(&states);
+        assert_eq!(r[0].0, MonitorState::Unsteady, "{r:?}");
+        assert_eq!(r[1], (MonitorState::Settling, 5), "{r:?}");
+        assert_eq!(r[2].0, MonitorState::Watching, "{r:?}");
+        assert_eq!(r.len(), 3, "{r:?}");
+    }
+
+    #[test]
+    fn no_prediction_or_a_feed_below_its_minimum_pauses_the_monitor() {
+        let mut plant = Plant::new();
+        let nominal = Point::nominal();
+        plant.states(nominal, 100);
+        assert_eq!(plant.monitor.state, MonitorState::Watching);
+        // No prediction: paused, the block so far is dropped.
+        let mut e = evaluation(plant.k, nominal);
+        e.predicted_k = None;
+        let out = plant.monitor.step(&plant.cfg, &plant.unit, &mut e);
+        assert_eq!(out.state, MonitorState::Paused);
+        assert_eq!(plant.monitor.acc, Acc::default());
+        // A feed below 20 % of the baseline's: the unit is down.
+        let down = Point { feed: 1.9, ..nominal };
+        let (_, out) = plant.run(down);
+        assert_eq!((out.state, out.flags), (MonitorState::Paused, vec![Flag::UnitDown]));
+        let (_, out) = plant.run(Point { feed: 2.1, ..nominal });
+        assert_ne!(out.state, MonitorState::Paused, "20 % and more is running");
+    }
+
+    #[test]
+    fn a_block_is_the_mean_of_its_intervals() {
+        let mut acc = Acc::default();
+        let mut rng = Rng::new(3);
+        let points: Vec<Point> = (0..4).map(|_| Point::nominal().noisy(&mut rng)).collect();
+        for (k, p) in points.iter().enumerate() {
+            let mut e = evaluation(k as i64, *p);
+            e.effectiveness = (k % 2 == 0).then_some(0.9 + k as f64 / 100.0);
+            e.signals.ambient_k = None;
+            acc.add(&e, p.meas - p.pred);
+        }
+        let rec = acc.record(T0 + 4 * MIN);
+        assert_eq!((acc.n, acc.start_ms), (4, Some(T0)));
+        let mean = |f: &dyn Fn(&Point) -> f64| points.iter().map(f).sum::<f64>() / 4.0;
+        assert!((rec.residual - mean(&|p| p.meas - p.pred)).abs() < 1e-12);
+        assert!((rec.duty.unwrap() - mean(&|p| p.duty)).abs() < 1e-9);
+        assert!((rec.tags[0].unwrap() - mean(&|p| p.feed)).abs() < 1e-12);
+        // Only the intervals that had an effectiveness count; none had an ambient.
+        assert!((rec.eff.unwrap() - 0.91).abs() < 1e-12);
+        assert_eq!((rec.ambient, rec.conv, rec.end_ms), (None, None, T0 + 4 * MIN));
+    }
+
+    /// The checkpoint fixture, as the build before the split wrote it.
+    const FIXTURE: &str = include_str!("fixtures/monitor-before-split.json");
+
+    #[test]
+    fn a_checkpoint_of_the_build_before_the_split_loads_and_is_written_the_same() {
+        let fixture = FIXTURE.trim_end();
+        // The same intervals give the same monitor, written to the byte as before.
+        assert_eq!(serde_json::to_string(&fixture_monitor()).unwrap(), fixture);
+        // What that build wrote loads, and is written back with the same fields in the same
+        // order (compared through serde_json's own reading of the numbers, which is not exact
+        // to the last bit for every decimal).
+        let m: Monitor = serde_json::from_str(fixture).unwrap();
+        let read: serde_json::Value = serde_json::from_str(fixture).unwrap();
+        assert_eq!(serde_json::to_string(&m).unwrap(), serde_json::to_string(&read).unwrap());
+        assert_eq!(m.state, MonitorState::Settling);
+        assert!(m.baseline.is_some() && m.trend.is_some() && !m.active.is_empty());
+    }
+}

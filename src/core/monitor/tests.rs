@@ -3,8 +3,9 @@
 
 #![allow(clippy::unwrap_used)]
 
-use super::Monitor;
+use super::charts::{cusum_h_for, ewma_l_for};
 use super::settings::MonitorConfig;
+use super::{Baseline, Monitor};
 use crate::core::model::{Evaluation, Signals};
 use crate::core::spec::UnitSpec;
 use crate::rng::Rng;
@@ -14,6 +15,15 @@ pub(super) const T0: i64 = 1_796_083_200_000;
 
 /// One minute, the unit's interval.
 pub(super) const MIN: i64 = 60_000;
+
+/// Index of the feed flow tag (FI-101).
+pub(super) const FLOW: usize = 0;
+/// Index of the duty tag (JI-103).
+pub(super) const DUTY: usize = 2;
+/// Index of the effluent thermometer (TI-109).
+pub(super) const TOUT: usize = 3;
+/// Index of the ambient thermometer (TI-001).
+pub(super) const AMBIENT: usize = 4;
 
 /// Mean molar heat capacity of the liquid feed used by the hand-made intervals, J/(mol K).
 pub(super) const CP: f64 = 75.35;
@@ -141,18 +151,28 @@ pub(super) fn fixture_monitor() -> Monitor {
     m
 }
 
-/// The checkpoint fixture, as the build before the split wrote it.
-pub(super) const FIXTURE: &str = include_str!("fixtures/monitor-before-split.json");
-
-#[test]
-fn a_checkpoint_of_the_build_before_the_split_loads_and_is_written_the_same() {
-    let fixture = FIXTURE.trim_end();
-    // The same intervals give the same monitor, written to the byte as before.
-    assert_eq!(serde_json::to_string(&fixture_monitor()).unwrap(), fixture);
-    // What that build wrote loads, and is written back with the same fields in the same order
-    // (compared through serde_json's own reading of the numbers, which is not exact to the
-    // last bit for every decimal).
-    let m: Monitor = serde_json::from_str(fixture).unwrap();
-    let read: serde_json::Value = serde_json::from_str(fixture).unwrap();
-    assert_eq!(serde_json::to_string(&m).unwrap(), serde_json::to_string(&read).unwrap());
+/// A baseline as learning at the nominal point gives it, made by hand: blocks of `block`
+/// intervals, residual 0 ± 0.05 K (block and interval σ), effectiveness 1 ± 0.002, the tags'
+/// noise of [`Point::noisy`] (none known for the ambient), a feed of 10 mol/s, and charts
+/// designed for `cfg`'s false-alert rate.
+pub(super) fn baseline(cfg: &MonitorConfig, block: usize) -> Baseline {
+    let arl0 = cfg.false_alert_days * 86_400_000.0 / (block as f64 * MIN as f64);
+    Baseline {
+        block,
+        mu: 0.0,
+        sigma: 0.05,
+        sigma_interval: 0.05,
+        eff: Some((1.0, 0.002)),
+        conv: None,
+        conv_measured: None,
+        feed: 10.0,
+        tag_sigma: vec![Some(0.01), Some(0.02), Some(20.0), Some(0.02), None],
+        tag_noise: vec![Some(0.02), Some(0.05), Some(50.0), Some(0.05), None],
+        learned_ms: T0,
+        blocks: 200,
+        step_sigma: 0.05,
+        acf1: 0.0,
+        h: cusum_h_for(cfg.cusum_k, arl0),
+        l: ewma_l_for(cfg.ewma_lambda, arl0),
+    }
 }

@@ -117,3 +117,72 @@ fn project(cfg: &MonitorConfig, line: &LineFit, now: i64, trend: &mut Trend) {
         trend.range_ms = Some((lo, hi));
     }
 }
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::core::monitor::tests::T0;
+    use crate::rng::Rng;
+
+    const HOUR: i64 = 3_600_000;
+
+    /// Hourly blocks over `days` days from T0 with effectiveness `eff(day)` and noise of σ
+    /// 0.0005; the end of the last.
+    fn blocks(days: i64, eff: impl Fn(f64) -> f64) -> (Vec<(i64, Option<f64>)>, i64) {
+        let mut rng = Rng::new(31);
+        let v: Vec<(i64, Option<f64>)> = (1..=days * 24)
+            .map(|i| (T0 + i * HOUR, Some(eff(i as f64 / 24.0) + 0.0005 * rng.normal())))
+            .collect();
+        let now = v.last().unwrap().0;
+        (v, now)
+    }
+
+    #[test]
+    fn a_declining_effectiveness_gives_a_projected_limit_date_within_its_range() {
+        let cfg = MonitorConfig::default();
+        // One point in a hundred lost per day from 97 %: the 85 % limit falls on day 12.
+        let (v, now) = blocks(6, |d| 0.97 - 0.01 * d);
+        let t = fit_trend(&cfg, now, None, v).unwrap();
+        assert_eq!(t.model, "linear");
+        // Points four hours apart, stamped at the end of their slot: blocks 1–3 make the first,
+        // block 144 alone the last.
+        assert_eq!(t.points.len(), 37);
+        assert!((t.slope_per_day + 0.01).abs() < 2e-4, "slope {}", t.slope_per_day);
+        assert!(t.t < -cfg.trend_t_min);
+        // 0.91 now, and about 0.001 more: a point is stamped at its slot's end, on average
+        // 2.5 h after its blocks.
+        assert!((t.now - 0.911).abs() < 0.0005, "now {}", t.now);
+        let at = t.limit_ms.unwrap();
+        let (lo, hi) = t.range_ms.unwrap();
+        let day12 = T0 + 12 * 86_400_000;
+        assert!((at - day12).abs() < 86_400_000 / 4, "limit {} h from day 12", (at - day12) / HOUR);
+        assert!(lo < at && at < hi && hi - lo < 2 * 86_400_000, "{lo} {at} {hi}");
+    }
+
+    #[test]
+    fn a_levelling_off_effectiveness_is_asymptotic_and_not_projected() {
+        let cfg = MonitorConfig::default();
+        let (v, now) = blocks(8, |d| 0.9 + 0.1 * (-d).exp());
+        let t = fit_trend(&cfg, now, None, v).unwrap();
+        assert_eq!(t.model, "asymptotic");
+        assert!((t.asymptote.unwrap() - 0.9).abs() < 0.005, "{:?}", t.asymptote);
+        assert_eq!((t.limit_ms, t.range_ms), (None, None), "it stays above the 85 % limit");
+    }
+
+    #[test]
+    fn the_fit_starts_a_day_before_the_episode_and_needs_six_points() {
+        let cfg = MonitorConfig::default();
+        let (v, now) = blocks(6, |d| 0.97 - 0.01 * d);
+        let episode = T0 + 4 * 86_400_000;
+        let t = fit_trend(&cfg, now, Some(episode), v.clone()).unwrap();
+        assert_eq!(t.points.first().unwrap().0, episode - 86_400_000 + 4 * HOUR);
+        assert_eq!(t.points.len(), 19, "the last three days");
+        // Sixteen hours of blocks make five points: no trend.
+        assert_eq!(fit_trend(&cfg, v[15].0, None, v[..16].to_vec()), None);
+        assert!(fit_trend(&cfg, v[19].0, None, v[..20].to_vec()).is_some(), "six points do");
+        // Blocks without an effectiveness are skipped.
+        let none: Vec<(i64, Option<f64>)> = v.iter().map(|(t, _)| (*t, None)).collect();
+        assert_eq!(fit_trend(&cfg, now, None, none), None);
+    }
+}
