@@ -261,16 +261,36 @@ impl AlertBook {
         conditions: &[Condition],
         cfg: AlertConfig,
     ) -> (Vec<AlertEvent>, Vec<String>) {
-        let mut events = Vec::new();
-        let mut notes = Vec::new();
-        // Shelves expire in event time.
+        let notes = self.expire_shelves(end_ms);
+        self.recent_raises.retain(|t| *t > end_ms - cfg.flood_window_ms);
+        let mut events = Events { unit, time, end_ms, sequence: self.sequence, list: Vec::new() };
+        let seen = self.present(conditions, cfg, &mut events);
+        self.announce_unshelved(&seen, &mut events);
+        self.count_absent(&seen, cfg, &mut events);
+        self.step_flood(&mut events);
+        self.sequence = events.sequence;
+        (events.list, notes)
+    }
+
+    /// Shelves expire in event time; returns the audit notes.
+    fn expire_shelves(&mut self, end_ms: i64) -> Vec<String> {
         let expired: Vec<Shelf> = self.shelves.iter().filter(|s| s.until_ms <= end_ms).cloned().collect();
         self.shelves.retain(|s| s.until_ms > end_ms);
-        for s in expired {
-            notes.push(format!("shelf `{}` expired (set by {}: {})", s.selector, s.by, s.reason));
-        }
-        self.recent_raises.retain(|t| *t > end_ms - cfg.flood_window_ms);
+        expired
+            .into_iter()
+            .map(|s| format!("shelf `{}` expired (set by {}: {})", s.selector, s.by, s.reason))
+            .collect()
+    }
 
+    /// The conditions present in this interval: counted towards the on-delay, raised (alone,
+    /// shelved, or grouped into a flood), updated or reminded about. Returns their keys.
+    fn present(
+        &mut self,
+        conditions: &[Condition],
+        cfg: AlertConfig,
+        events: &mut Events<'_>,
+    ) -> Vec<String> {
+        let end_ms = events.end_ms;
         let mut seen: Vec<String> = Vec::with_capacity(conditions.len());
         for c in conditions {
             let key = key_of(c.cause, &c.subject);
@@ -292,16 +312,10 @@ impl AlertBook {
             e.last = Some(c.clone());
             match &mut e.active {
                 None if e.present >= on_delay => {
-                    // Re-raise suppression: recently cleared and not grown by half.
-                    let suppressed = e.cleared_ms.is_some_and(|t| end_ms - t < cfg.realert_suppress_ms)
-                        && match (c.magnitude, e.cleared_magnitude) {
-                            (Some(m), Some(prev)) => m <= 1.5 * prev,
-                            _ => true,
-                        };
-                    if suppressed {
+                    if suppressed(e, c, end_ms, cfg) {
                         continue;
                     }
-                    let id = alert_id(unit, c.cause, &c.subject, end_ms);
+                    let id = alert_id(events.unit, c.cause, &c.subject, end_ms);
                     let grouped = flood_full && !shelved_cause;
                     let announced = !shelved_cause && !grouped;
                     e.active = Some(Active {
@@ -314,53 +328,22 @@ impl AlertBook {
                         magnitude: c.magnitude,
                     });
                     if announced {
-                        self.sequence += 1;
-                        events.push(event(unit, &id, EventKind::Raised, c, time, end_ms, self.sequence));
+                        events.push(&id, EventKind::Raised, c);
                         self.recent_raises.push(end_ms);
                     }
                     if grouped {
-                        match &mut self.flood {
-                            Some(f) => f.members.push(key.clone()),
-                            None => {
-                                let id = alert_id(unit, Cause::Undetermined, "flood", end_ms);
-                                self.flood = Some(Flood {
-                                    id,
-                                    raised_ms: end_ms,
-                                    members: vec![key.clone()],
-                                    announced: false,
-                                });
-                            }
-                        }
+                        join_flood(&mut self.flood, &key, events.unit, end_ms);
                     }
                 }
-                Some(a) => {
-                    let grew = match (c.magnitude, a.magnitude) {
-                        (Some(m), Some(prev)) => m >= 1.5 * prev && m - prev > 0.0,
-                        _ => false,
-                    };
-                    if a.announced && (a.severity != Some(c.severity) || grew) {
-                        a.severity = Some(c.severity);
-                        a.magnitude = c.magnitude;
-                        a.last_reminder_ms = end_ms;
-                        let id = a.alert_id.clone();
-                        self.sequence += 1;
-                        events.push(event(unit, &id, EventKind::Updated, c, time, end_ms, self.sequence));
-                    } else if a.announced && end_ms - a.last_reminder_ms >= cfg.reminder_ms {
-                        a.last_reminder_ms = end_ms;
-                        let id = a.alert_id.clone();
-                        let hours = (end_ms - a.raised_ms) as f64 / 3_600_000.0;
-                        let mut r = c.clone();
-                        r.message = format!("Reminder: active for {hours:.0} h. {}", c.message);
-                        r.evidence.insert("reminder".into(), true.into());
-                        r.evidence.insert("active_h".into(), hours.round().into());
-                        self.sequence += 1;
-                        events.push(event(unit, &id, EventKind::Updated, &r, time, end_ms, self.sequence));
-                    }
-                }
+                Some(a) => update(a, c, cfg, events),
                 None => {}
             }
         }
-        // Announce alerts whose shelf has gone while they are still active.
+        seen
+    }
+
+    /// Announce alerts whose shelf has gone while they are still active.
+    fn announce_unshelved(&mut self, seen: &[String], events: &mut Events<'_>) {
         let shelves = self.shelves.clone();
         for (key, e) in self.entries.iter_mut() {
             let (Some(a), Some(cause), Some(c)) = (e.active.as_mut(), e.cause, e.last.as_ref()) else {
@@ -371,19 +354,15 @@ impl AlertBook {
                 .any(|s| s.selector == a.alert_id || s.selector == cause.as_str() || s.selector == *key);
             if !a.announced && !a.grouped && !shelved && seen.contains(key) {
                 a.announced = true;
-                self.sequence += 1;
-                events.push(event(
-                    unit,
-                    &a.alert_id.clone(),
-                    EventKind::Raised,
-                    c,
-                    time,
-                    end_ms,
-                    self.sequence,
-                ));
+                events.push(&a.alert_id.clone(), EventKind::Raised, c);
             }
         }
-        // Absent conditions count towards clearing.
+    }
+
+    /// Absent conditions count towards clearing; entries cleared long enough ago are
+    /// forgotten.
+    fn count_absent(&mut self, seen: &[String], cfg: AlertConfig, events: &mut Events<'_>) {
+        let end_ms = events.end_ms;
         let mut finished = Vec::new();
         for (key, e) in self.entries.iter_mut() {
             if seen.contains(key) {
@@ -400,29 +379,8 @@ impl AlertBook {
                 e.cleared_ms = Some(end_ms);
                 e.cleared_magnitude = a.magnitude;
                 if a.announced {
-                    let mut c = e.last.clone().unwrap_or_else(|| Condition {
-                        cause,
-                        subject: e.subject.clone(),
-                        severity: a.severity.unwrap_or(Severity::Low),
-                        message: String::new(),
-                        evidence: serde_json::Map::new(),
-                        magnitude: None,
-                    });
-                    c.message = format!("Cleared: {} is back to normal.", describe(cause, &e.subject));
-                    c.evidence.insert(
-                        "active_min".into(),
-                        ((end_ms - a.raised_ms) as f64 / 60_000.0).round().into(),
-                    );
-                    self.sequence += 1;
-                    events.push(event(
-                        unit,
-                        &a.alert_id,
-                        EventKind::Cleared,
-                        &c,
-                        time,
-                        end_ms,
-                        self.sequence,
-                    ));
+                    let c = cleared(e, cause, &a, end_ms);
+                    events.push(&a.alert_id, EventKind::Cleared, &c);
                 }
             }
             if e.active.is_none()
@@ -435,13 +393,16 @@ impl AlertBook {
         for k in finished {
             self.entries.remove(&k);
         }
-        // The flood alert: raised when it forms, cleared when no member is active.
+    }
+
+    /// The flood alert: raised when it forms, cleared when no member is active.
+    fn step_flood(&mut self, events: &mut Events<'_>) {
+        let unit = events.unit;
         if let Some(mut f) = self.flood.take() {
             let live = f.members.iter().any(|k| self.entries.get(k).is_some_and(|e| e.active.is_some()));
             if !f.announced && live {
                 let c = flood_condition(unit, &f.members, &self.entries);
-                self.sequence += 1;
-                events.push(event(unit, &f.id, EventKind::Raised, &c, time, end_ms, self.sequence));
+                events.push(&f.id, EventKind::Raised, &c);
                 f.announced = true;
             }
             if live {
@@ -450,12 +411,88 @@ impl AlertBook {
                 let mut c = flood_condition(unit, &f.members, &self.entries);
                 c.message =
                     format!("Cleared: the {} grouped alerts on {unit} are back to normal.", f.members.len());
-                self.sequence += 1;
-                events.push(event(unit, &f.id, EventKind::Cleared, &c, time, end_ms, self.sequence));
+                events.push(&f.id, EventKind::Cleared, &c);
             }
         }
-        (events, notes)
     }
+}
+
+/// The events of one step, numbered in order from the book's last sequence number.
+struct Events<'a> {
+    unit: &'a str,
+    time: &'a str,
+    end_ms: i64,
+    /// Sequence number of the last event.
+    sequence: u64,
+    list: Vec<AlertEvent>,
+}
+
+impl Events<'_> {
+    fn push(&mut self, id: &str, kind: EventKind, c: &Condition) {
+        self.sequence += 1;
+        self.list.push(event(self.unit, id, kind, c, self.time, self.end_ms, self.sequence));
+    }
+}
+
+/// Re-raise suppression: recently cleared and not grown by half.
+fn suppressed(e: &Entry, c: &Condition, end_ms: i64, cfg: AlertConfig) -> bool {
+    e.cleared_ms.is_some_and(|t| end_ms - t < cfg.realert_suppress_ms)
+        && match (c.magnitude, e.cleared_magnitude) {
+            (Some(m), Some(prev)) => m <= 1.5 * prev,
+            _ => true,
+        }
+}
+
+/// A raised alert grouped into the flood alert (which forms with its first member).
+fn join_flood(flood: &mut Option<Flood>, key: &str, unit: &str, end_ms: i64) {
+    match flood {
+        Some(f) => f.members.push(key.to_string()),
+        None => {
+            let id = alert_id(unit, Cause::Undetermined, "flood", end_ms);
+            *flood = Some(Flood { id, raised_ms: end_ms, members: vec![key.to_string()], announced: false });
+        }
+    }
+}
+
+/// An active alert seen again: updated when its priority changed or its magnitude grew by
+/// half, reminded about when it has been active for `reminder_ms` since the last word.
+fn update(a: &mut Active, c: &Condition, cfg: AlertConfig, events: &mut Events<'_>) {
+    let end_ms = events.end_ms;
+    let grew = match (c.magnitude, a.magnitude) {
+        (Some(m), Some(prev)) => m >= 1.5 * prev && m - prev > 0.0,
+        _ => false,
+    };
+    if a.announced && (a.severity != Some(c.severity) || grew) {
+        a.severity = Some(c.severity);
+        a.magnitude = c.magnitude;
+        a.last_reminder_ms = end_ms;
+        let id = a.alert_id.clone();
+        events.push(&id, EventKind::Updated, c);
+    } else if a.announced && end_ms - a.last_reminder_ms >= cfg.reminder_ms {
+        a.last_reminder_ms = end_ms;
+        let id = a.alert_id.clone();
+        let hours = (end_ms - a.raised_ms) as f64 / 3_600_000.0;
+        let mut r = c.clone();
+        r.message = format!("Reminder: active for {hours:.0} h. {}", c.message);
+        r.evidence.insert("reminder".into(), true.into());
+        r.evidence.insert("active_h".into(), hours.round().into());
+        events.push(&id, EventKind::Updated, &r);
+    }
+}
+
+/// The condition of a `cleared` event: the last one seen, with a message saying so.
+fn cleared(e: &Entry, cause: Cause, a: &Active, end_ms: i64) -> Condition {
+    let mut c = e.last.clone().unwrap_or_else(|| Condition {
+        cause,
+        subject: e.subject.clone(),
+        severity: a.severity.unwrap_or(Severity::Low),
+        message: String::new(),
+        evidence: serde_json::Map::new(),
+        magnitude: None,
+    });
+    c.message = format!("Cleared: {} is back to normal.", describe(cause, &e.subject));
+    c.evidence.insert("active_min".into(), ((end_ms - a.raised_ms) as f64 / 60_000.0).round().into());
+    c
 }
 
 fn flood_condition(unit: &str, members: &[String], entries: &BTreeMap<String, Entry>) -> Condition {

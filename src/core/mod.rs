@@ -21,7 +21,7 @@ use alerts::{AlertBook, AlertEvent, Shelf};
 use assembly::Closed;
 use calendar::DayCache;
 use model::{Evaluation, evaluate};
-use monitor::engine::{Monitor, MonitorState};
+use monitor::{Monitor, MonitorState};
 use spec::UnitSpec;
 
 /// A line for the log that an interval produced.

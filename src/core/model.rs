@@ -8,7 +8,7 @@ use serde::Serialize;
 
 use crate::core::assembly::{Closed, TagStatus};
 use crate::core::flags::Flag;
-use crate::core::spec::{Signal, UnitSpec};
+use crate::core::spec::{FeedConfig, Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
 use crate::thermo::uncertainty::{InputRef, Uncertain, propagate};
@@ -214,149 +214,16 @@ fn build_inputs(
     conditions: &mut Vec<Condition>,
     signals: &mut Signals,
 ) -> Result<Built, String> {
-    let mut problems: Vec<String> = Vec::new();
-    let mut uncertain = Vec::new();
+    let mut b = Builder { unit, rd, problems: Vec::new(), uncertain: Vec::new() };
     let mut feeds = Vec::new();
     for (j, f) in unit.feeds.iter().enumerate() {
-        let flow = rd.get(f.flow);
-        let temp = rd.get(f.temperature);
-        signals.feed_temperatures_k.push(temp.as_ref().ok().map(|t| t.0));
-        let mut fractions = Vec::with_capacity(f.composition.len());
-        let mut comp_ok = true;
-        for (i, s) in f.composition.iter().enumerate() {
-            match rd.get(*s) {
-                Ok((x, u)) => {
-                    fractions.push(x);
-                    if u > 0.0 {
-                        uncertain.push(Uncertain {
-                            input: InputRef::FeedFraction(j, i),
-                            u,
-                            label: rd
-                                .label(*s, &format!("{} {} fraction", f.name, unit.system.components[i].id)),
-                        });
-                    }
-                }
-                Err(p) => {
-                    problems.push(p);
-                    comp_ok = false;
-                }
-            }
+        if let Some(feed) = b.feed(j, f, flags, conditions, signals) {
+            feeds.push(feed);
         }
-        let (Ok((flow_si, flow_u)), Ok((t_si, t_u))) = (&flow, &temp) else {
-            problems.extend(flow.err().into_iter().chain(temp.err()));
-            continue;
-        };
-        if !comp_ok {
-            continue;
-        }
-        let sum: f64 = fractions.iter().sum();
-        if sum <= 0.0 {
-            problems.push(format!("{} composition sums to zero", f.name));
-            continue;
-        }
-        if (sum - 1.0).abs() > ANALYZER_SUM_TOLERANCE {
-            let code = format!("composition_sum:{}", f.name.replace(' ', "_"));
-            flags.push(Flag::CompositionSum(j));
-            conditions.push(Condition {
-                cause: Cause::ModelValidity,
-                subject: code,
-                severity: Severity::Low,
-                message: format!(
-                    "{} fractions sum to {sum:.4}, not 1; they are rescaled, but check the analyzer calibration.",
-                    f.name
-                ),
-                evidence: evidence(&[("sum", sum.into())]),
-                magnitude: None,
-            });
-            if !f.normalize {
-                problems.push(format!("{} fractions sum to {sum:.4} and normalize = false", f.name));
-                continue;
-            }
-        }
-        for x in &mut fractions {
-            *x /= sum;
-        }
-        if *flow_u > 0.0 {
-            uncertain.push(Uncertain {
-                input: InputRef::FeedFlow(j),
-                u: *flow_u,
-                label: rd.label(f.flow, &format!("{} flow", f.name)),
-            });
-        }
-        if *t_u > 0.0 {
-            uncertain.push(Uncertain {
-                input: InputRef::FeedTemperature(j),
-                u: *t_u,
-                label: rd.label(f.temperature, &format!("{} temperature", f.name)),
-            });
-        }
-        feeds.push(FeedInput {
-            flow: if f.mass_flow { FlowValue::Mass(*flow_si) } else { FlowValue::Molar(*flow_si) },
-            temperature: *t_si,
-            fractions,
-            basis: f.basis,
-        });
     }
-    let duty = rd.get(unit.duty);
-    let heat_loss = rd.get(unit.heat_loss).unwrap_or((0.0, 0.0));
-    if let Ok((d, u)) = duty {
-        signals.duty_w = Some(d);
-        if u > 0.0 {
-            uncertain.push(Uncertain { input: InputRef::Duty, u, label: rd.label(unit.duty, "heater duty") });
-        }
-    } else if let Err(p) = &duty {
-        problems.push(p.clone());
-    }
-    if heat_loss.1 > 0.0 {
-        uncertain.push(Uncertain {
-            input: InputRef::HeatLoss,
-            u: heat_loss.1,
-            label: rd.label(unit.heat_loss, "heat loss"),
-        });
-    }
-    let effluent = if let Some((sigs, basis)) = &unit.effluent_composition {
-        let mut fr = Vec::new();
-        for (i, s) in sigs.iter().enumerate() {
-            match rd.get(*s) {
-                Ok((x, u)) => {
-                    fr.push(x);
-                    if u > 0.0 {
-                        uncertain.push(Uncertain {
-                            input: InputRef::EffluentFraction(i),
-                            u,
-                            label: rd
-                                .label(*s, &format!("effluent {} fraction", unit.system.components[i].id)),
-                        });
-                    }
-                }
-                Err(p) => problems.push(p),
-            }
-        }
-        Effluent::Measured { fractions: fr, basis: *basis }
-    } else if unit.system.reactions.is_empty() {
-        Effluent::Mixed
-    } else {
-        let mut conversions = Vec::new();
-        for (r, c) in unit.conversions.iter().enumerate() {
-            let measured = c.tag.and_then(|t| rd.get(t).ok());
-            if r == unit.apparent_reaction.unwrap_or(usize::MAX) {
-                signals.measured_conversion = measured.map(|m| m.0);
-            }
-            let (x, u) = measured.unwrap_or((c.design, c.u));
-            conversions.push(Some(x));
-            if u > 0.0 {
-                uncertain.push(Uncertain {
-                    input: InputRef::Conversion(r),
-                    u,
-                    label: c.tag.map_or_else(
-                        || format!("{} conversion", unit.system.reactions[r].label),
-                        |t| rd.label(t, ""),
-                    ),
-                });
-            }
-        }
-        Effluent::Reacted { conversions }
-    };
+    let (duty, heat_loss) = b.heater(signals);
+    let effluent = b.effluent(signals);
+    let Builder { mut problems, uncertain, .. } = b;
     if !problems.is_empty() {
         problems.dedup();
         return Err(problems.join("; "));
@@ -377,6 +244,167 @@ fn build_inputs(
         },
         uncertain,
     ))
+}
+
+/// Building the balance's inputs: what is unusable, and the inputs with an uncertainty, in
+/// the order they are read.
+struct Builder<'a, 'r> {
+    unit: &'a UnitSpec,
+    rd: &'a Reader<'r>,
+    problems: Vec<String>,
+    uncertain: Vec<Uncertain>,
+}
+
+impl Builder<'_, '_> {
+    /// An input with a standard uncertainty `u`, if it has one.
+    fn uncertain(&mut self, input: InputRef, u: f64, label: impl FnOnce() -> String) {
+        if u > 0.0 {
+            self.uncertain.push(Uncertain { input, u, label: label() });
+        }
+    }
+
+    /// Feed `j`, if its flow, temperature and composition are usable (the composition
+    /// normalized, its sum flagged when it is off).
+    fn feed(
+        &mut self,
+        j: usize,
+        f: &FeedConfig,
+        flags: &mut Vec<Flag>,
+        conditions: &mut Vec<Condition>,
+        signals: &mut Signals,
+    ) -> Option<FeedInput> {
+        let (unit, rd) = (self.unit, self.rd);
+        let flow = rd.get(f.flow);
+        let temp = rd.get(f.temperature);
+        signals.feed_temperatures_k.push(temp.as_ref().ok().map(|t| t.0));
+        let mut fractions = Vec::with_capacity(f.composition.len());
+        let mut comp_ok = true;
+        for (i, s) in f.composition.iter().enumerate() {
+            match rd.get(*s) {
+                Ok((x, u)) => {
+                    fractions.push(x);
+                    self.uncertain(InputRef::FeedFraction(j, i), u, || {
+                        rd.label(*s, &format!("{} {} fraction", f.name, unit.system.components[i].id))
+                    });
+                }
+                Err(p) => {
+                    self.problems.push(p);
+                    comp_ok = false;
+                }
+            }
+        }
+        let (Ok((flow_si, flow_u)), Ok((t_si, t_u))) = (&flow, &temp) else {
+            self.problems.extend(flow.err().into_iter().chain(temp.err()));
+            return None;
+        };
+        if !comp_ok {
+            return None;
+        }
+        let sum: f64 = fractions.iter().sum();
+        if sum <= 0.0 {
+            self.problems.push(format!("{} composition sums to zero", f.name));
+            return None;
+        }
+        if (sum - 1.0).abs() > ANALYZER_SUM_TOLERANCE {
+            flag_composition_sum(j, f, sum, flags, conditions);
+            if !f.normalize {
+                self.problems.push(format!("{} fractions sum to {sum:.4} and normalize = false", f.name));
+                return None;
+            }
+        }
+        for x in &mut fractions {
+            *x /= sum;
+        }
+        self.uncertain(InputRef::FeedFlow(j), *flow_u, || rd.label(f.flow, &format!("{} flow", f.name)));
+        self.uncertain(InputRef::FeedTemperature(j), *t_u, || {
+            rd.label(f.temperature, &format!("{} temperature", f.name))
+        });
+        Some(FeedInput {
+            flow: if f.mass_flow { FlowValue::Mass(*flow_si) } else { FlowValue::Molar(*flow_si) },
+            temperature: *t_si,
+            fractions,
+            basis: f.basis,
+        })
+    }
+
+    /// The reported duty (or why it is unusable) and the heat loss.
+    fn heater(&mut self, signals: &mut Signals) -> (Result<(f64, f64), String>, (f64, f64)) {
+        let (unit, rd) = (self.unit, self.rd);
+        let duty = rd.get(unit.duty);
+        let heat_loss = rd.get(unit.heat_loss).unwrap_or((0.0, 0.0));
+        if let Ok((d, u)) = duty {
+            signals.duty_w = Some(d);
+            self.uncertain(InputRef::Duty, u, || rd.label(unit.duty, "heater duty"));
+        } else if let Err(p) = &duty {
+            self.problems.push(p.clone());
+        }
+        self.uncertain(InputRef::HeatLoss, heat_loss.1, || rd.label(unit.heat_loss, "heat loss"));
+        (duty, heat_loss)
+    }
+
+    /// The effluent: measured by an analyzer, mixed without reactions, or reacted at the
+    /// measured (or design) conversions.
+    fn effluent(&mut self, signals: &mut Signals) -> Effluent {
+        let (unit, rd) = (self.unit, self.rd);
+        if let Some((sigs, basis)) = &unit.effluent_composition {
+            let mut fr = Vec::new();
+            for (i, s) in sigs.iter().enumerate() {
+                match rd.get(*s) {
+                    Ok((x, u)) => {
+                        fr.push(x);
+                        self.uncertain(InputRef::EffluentFraction(i), u, || {
+                            rd.label(*s, &format!("effluent {} fraction", unit.system.components[i].id))
+                        });
+                    }
+                    Err(p) => self.problems.push(p),
+                }
+            }
+            Effluent::Measured { fractions: fr, basis: *basis }
+        } else if unit.system.reactions.is_empty() {
+            Effluent::Mixed
+        } else {
+            let mut conversions = Vec::new();
+            for (r, c) in unit.conversions.iter().enumerate() {
+                let measured = c.tag.and_then(|t| rd.get(t).ok());
+                if r == unit.apparent_reaction.unwrap_or(usize::MAX) {
+                    signals.measured_conversion = measured.map(|m| m.0);
+                }
+                let (x, u) = measured.unwrap_or((c.design, c.u));
+                conversions.push(Some(x));
+                self.uncertain(InputRef::Conversion(r), u, || {
+                    c.tag.map_or_else(
+                        || format!("{} conversion", unit.system.reactions[r].label),
+                        |t| rd.label(t, ""),
+                    )
+                });
+            }
+            Effluent::Reacted { conversions }
+        }
+    }
+}
+
+/// Analyzer fractions of feed `j` that do not sum to 1: flagged, with a model-validity
+/// condition.
+fn flag_composition_sum(
+    j: usize,
+    f: &FeedConfig,
+    sum: f64,
+    flags: &mut Vec<Flag>,
+    conditions: &mut Vec<Condition>,
+) {
+    let code = format!("composition_sum:{}", f.name.replace(' ', "_"));
+    flags.push(Flag::CompositionSum(j));
+    conditions.push(Condition {
+        cause: Cause::ModelValidity,
+        subject: code,
+        severity: Severity::Low,
+        message: format!(
+            "{} fractions sum to {sum:.4}, not 1; they are rescaled, but check the analyzer calibration.",
+            f.name
+        ),
+        evidence: evidence(&[("sum", sum.into())]),
+        magnitude: None,
+    });
 }
 
 fn solve_all(

@@ -7,7 +7,7 @@ use std::sync::Arc;
 use super::alerts::{EventKind, Shelf};
 use super::assembly::{Closed, TagStatus, TagValue};
 use super::flags::Flag;
-use super::monitor::engine::MonitorState;
+use super::monitor::MonitorState;
 use super::spec::UnitSpec;
 use super::vocabulary::Cause;
 use super::{Outcome, UnitCore};
@@ -19,11 +19,17 @@ const T0: i64 = 1_796_083_200_000;
 /// One water feed heated by a duty tag; tags in table order: FI-101 (mol/s), TI-102 (degC),
 /// JI-103 (kW), TI-109 (degC).
 fn spec() -> Arc<UnitSpec> {
+    Arc::new(unit_spec("{ water = 1.0 }", ""))
+}
+
+/// Unit `T-1` as the site loader builds it: one feed of `composition` (flow FI-101 in mol/s,
+/// temperature TI-102 in degC) heated by a duty tag (JI-103, kW), an effluent thermometer
+/// (TI-109, degC), one-minute intervals in UTC, and the unit tables in `extra` after these.
+pub(super) fn unit_spec(composition: &str, extra: &str) -> UnitSpec {
     let dir = tempfile::tempdir().unwrap();
     let path = dir.path().join("site.toml");
     std::fs::create_dir_all(dir.path().join("exports")).unwrap();
-    std::fs::write(
-        &path,
+    let text = format!(
         r#"[site]
 time_zone = "UTC"
 [[unit]]
@@ -33,18 +39,18 @@ directory = "exports"
 [unit.timing]
 interval = "1m"
 [[unit.feed]]
-flow = { tag = "FI-101", unit = "mol/s", uncertainty = "1 %" }
-temperature = { tag = "TI-102", unit = "degC", uncertainty = "0.5 K" }
-composition = { water = 1.0 }
+flow = {{ tag = "FI-101", unit = "mol/s", uncertainty = "1 %" }}
+temperature = {{ tag = "TI-102", unit = "degC", uncertainty = "0.5 K" }}
+composition = {composition}
 [unit.heater]
-duty = { tag = "JI-103", unit = "kW", uncertainty = "2 %" }
+duty = {{ tag = "JI-103", unit = "kW", uncertainty = "2 %" }}
 [unit.effluent]
-temperature = { tag = "TI-109", unit = "degC", uncertainty = "0.3 K" }
-"#,
-    )
-    .unwrap();
+temperature = {{ tag = "TI-109", unit = "degC", uncertainty = "0.3 K" }}
+{extra}"#
+    );
+    std::fs::write(&path, text).unwrap();
     let site = SiteConfig::load(&path).unwrap();
-    Arc::new(site.units[0].spec.clone())
+    site.units[0].spec.clone()
 }
 
 fn good(v: f64) -> TagValue {

@@ -10,7 +10,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::core::alerts::AlertBook;
 use crate::core::assembly::Assembler;
-use crate::core::monitor::engine::Monitor;
+use crate::core::monitor::Monitor;
 use crate::ingest::tail::TailState;
 use crate::sinks::report::IngestDay;
 

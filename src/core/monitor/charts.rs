@@ -411,9 +411,9 @@ mod tests {
         assert!((normal_cdf(-3.0) - 0.001_349_898_031_630_1).abs() < 1e-10);
     }
 
-    /// Source: research note monitoring.md Appendix A and Montgomery, Introduction to
-    /// Statistical Quality Control, CUSUM ARL table: k = 0.5, h = 5: ARL0 = 465, ARL(1σ) = 10.4;
-    /// h = 4: 168 and 8.38 (the note's exact values 465.44, 10.38, 167.68, 8.38; tolerance 0.5 %).
+    /// Source: Montgomery, Introduction to Statistical Quality Control, CUSUM ARL table: k = 0.5,
+    /// h = 5: ARL0 = 465, ARL(1σ) = 10.4; h = 4: 168 and 8.38 (to two decimals 465.44, 10.38,
+    /// 167.68, 8.38; tolerance 0.5 %).
     #[test]
     fn cusum_arl_check_values() {
         assert!(within(cusum_arl(0.5, 5.0, 0.0, 0.0), 465.44, 0.005), "{}", cusum_arl(0.5, 5.0, 0.0, 0.0));
@@ -422,12 +422,12 @@ mod tests {
         assert!(within(cusum_arl(0.5, 5.0, 2.0, 0.0), 4.01, 0.005));
         assert!(within(cusum_arl(0.5, 4.0, 0.0, 0.0), 167.68, 0.005));
         assert!(within(cusum_arl(0.5, 4.0, 1.0, 0.0), 8.38, 0.005));
-        // FIR head start h/2 (Lucas & Crosier 1982; note's table 1.1: 448 and 6.35).
+        // FIR head start h/2 (Lucas & Crosier 1982): 448 and 6.35.
         assert!(within(cusum_arl(0.5, 5.0, 0.0, 2.5), 448.0, 0.01));
         assert!(within(cusum_arl(0.5, 5.0, 1.0, 2.5), 6.35, 0.01));
     }
 
-    /// Source: Lucas & Saccucci (1990) as reproduced in Montgomery; monitoring.md Appendix A:
+    /// Source: Lucas & Saccucci (1990) as reproduced in Montgomery:
     /// λ = 0.1, L = 2.814: ARL0 = 500 (499.6), ARL(1σ) = 10.3.
     #[test]
     fn ewma_arl_check_values() {
@@ -435,7 +435,7 @@ mod tests {
         assert!(within(ewma_arl(0.1, 2.814, 1.0, 801), 10.3, 0.01));
     }
 
-    /// Designs for calendar time (monitoring.md table 1.3): ARL0 = 4320 blocks gives h = 7.21
+    /// Designs for calendar time (30 days of 10-minute blocks): ARL0 = 4320 blocks gives h = 7.21
     /// (k = 0.5) and L = 3.515 (λ = 0.1).
     #[test]
     fn designs_for_a_target_arl() {

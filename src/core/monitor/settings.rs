@@ -4,7 +4,7 @@ use serde::{Deserialize, Serialize};
 
 use super::ssd::SsdSettings;
 
-/// Monitor settings (defaults from the spec sheet of the monitoring research note, §8).
+/// Monitor settings (defaults in parentheses).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MonitorConfig {
     /// Intervals per block before the baseline picks its own (10).

@@ -14,7 +14,7 @@
 //!   R_lo = 2.0 give ~0.2 % and ~0.2 a day (simulation with λ = 0.2, 0.1, 0.1).
 //! * **Autocorrelated noise.** R's steady-state distribution shifts up with the noise's
 //!   autocorrelation (median 1.0 for white noise, 1.18 at AR(1) φ = 0.2, 1.62 at φ = 0.5;
-//!   monitoring notes, Table 3.1). Each signal's thresholds are therefore scaled by a slowly
+//!   by simulation). Each signal's thresholds are therefore scaled by a slowly
 //!   tracked running median of its own R (clamped to 1..2.5), a self-calibration on the unit's
 //!   own data; with white noise the scale stays 1.
 
@@ -188,7 +188,7 @@ mod tests {
         v[((v.len() - 1) as f64 * p).round() as usize]
     }
 
-    /// Source: monitoring.md table 3.1 (4×10⁵ samples, white noise, λ = 0.2, 0.1, 0.1):
+    /// Reference: a longer simulation (4×10⁵ samples, white noise, λ = 0.2, 0.1, 0.1):
     /// median 1.00, p90 1.32, p95 1.44, p99 1.73. Monte Carlo here with 2×10⁵ samples after
     /// a burn-in; tolerance 3 %.
     #[test]
@@ -209,8 +209,8 @@ mod tests {
         }
     }
 
-    /// A ramp of 0.2 σ per sample gives E[R] ≈ [2 + (2−λ1)s²/λ1²]/(2 + s²) ≈ 2.0 (monitoring.md
-    /// §3.1): the detector turns unsteady.
+    /// A ramp of 0.2 σ per sample gives E[R] ≈ [2 + (2−λ1)s²/λ1²]/(2 + s²) ≈ 2.0 (the filters'
+    /// expectations for a ramp of slope s σ per sample): the detector turns unsteady.
     #[test]
     fn a_ramp_is_unsteady_and_hysteresis_holds() {
         let s = SsdSettings::default();
@@ -267,8 +267,8 @@ mod plant_tests {
         assert!(coloured > 0.95, "AR(1) 0.3: steady {coloured:.3}");
     }
 
-    /// The median scale follows autocorrelated noise (Table 3.1 of the monitoring notes:
-    /// median R 1.18 at φ = 0.2, 1.62 at φ = 0.5; tolerance 10 %) and stays 1 for white noise.
+    /// The median scale follows autocorrelated noise (by simulation, median R 1.18 at φ = 0.2,
+    /// 1.62 at φ = 0.5; tolerance 10 %) and stays 1 for white noise.
     #[test]
     fn the_threshold_scale_tracks_the_median_of_r() {
         for (phi, want) in [(0.0, 1.0), (0.2, 1.18), (0.5, 1.62)] {

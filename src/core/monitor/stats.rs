@@ -373,7 +373,7 @@ mod tests {
         assert!(median(&[]).is_nan());
     }
 
-    /// Source: monitoring.md §1.5 table (exact lag-1 ACF of block means of AR(1)): φ = 0.9 gives
+    /// The exact lag-1 ACF of the block means of an AR(1) series with φ = 0.9 is
     /// 0.40 for b = 15 and 0.09 for b = 60; so the first b with ACF ≤ 0.2 among
     /// {5, 10, 15, 30, 60} is 60 (b = 30 gives 0.21). Monte Carlo here; tolerance 0.05.
     #[test]
