@@ -14,7 +14,7 @@ use super::charts::{Cusum, Ewma, Side};
 use super::settings::MonitorConfig;
 use super::stats::{self, LineFit};
 use super::trend::{Trend, fit_trend};
-use crate::core::spec::UnitSpec;
+use crate::core::spec::{Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Severity};
 
 /// One completed block while watching.
@@ -525,7 +525,10 @@ impl Watch<'_> {
             "Heater effectiveness is {:.1} % ({loss:.1} % below its baseline {:.1} %) and {why}: the heater is fouling{projection}. Plan an inspection or cleaning of {}.",
             eff * 100.0,
             m * 100.0,
-            unit.tags.iter().find(|t| t.role == "heater duty").map_or("the heater", |t| t.name.as_str())
+            match unit.duty {
+                Signal::Tag(i) => unit.tags[i].name.as_str(),
+                Signal::Fixed { .. } => "the heater",
+            }
         );
         let mut evidence = ev(&[
             ("effectiveness", round(eff, 4)),
@@ -538,7 +541,7 @@ impl Watch<'_> {
         if let Some(t) = &*self.trend {
             evidence.insert("trend_pct_per_day".into(), round(t.slope_per_day * 100.0, 3));
             evidence.insert("trend_t".into(), round(t.t, 2));
-            evidence.insert("trend_model".into(), t.model.clone().into());
+            evidence.insert("trend_model".into(), t.model.as_str().into());
             if let Some(at) = t.limit_ms {
                 evidence.insert("projected_limit_date".into(), day(at, unit).into());
             }

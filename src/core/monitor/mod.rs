@@ -40,7 +40,7 @@ mod trend;
 pub use attribution::BlockRecord;
 pub use baseline::Baseline;
 pub use state::{Monitor, MonitorOutput, MonitorState};
-pub use trend::Trend;
+pub use trend::{Trend, TrendModel};
 
 #[cfg(test)]
 mod tests;

@@ -7,6 +7,32 @@ use serde::{Deserialize, Serialize};
 use super::settings::MonitorConfig;
 use super::stats::{AsymptoticFit, LineFit};
 
+/// The model of an effectiveness trend.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum TrendModel {
+    /// A straight line.
+    Linear,
+    /// Fouling that levels off towards an asymptote (Kern–Seaton).
+    Asymptotic,
+}
+
+impl TrendModel {
+    /// The name used in messages and evidence.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            TrendModel::Linear => "linear",
+            TrendModel::Asymptotic => "asymptotic",
+        }
+    }
+}
+
+impl std::fmt::Display for TrendModel {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 /// A fitted effectiveness trend with its projection.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Trend {
@@ -14,8 +40,8 @@ pub struct Trend {
     pub slope_per_day: f64,
     /// Its t-statistic.
     pub t: f64,
-    /// `linear` or `asymptotic`.
-    pub model: String,
+    /// The model fitted.
+    pub model: TrendModel,
     /// Fitted effectiveness now.
     pub now: f64,
     /// Projected time the limit is reached, ms (None: not expected).
@@ -52,7 +78,7 @@ pub(super) fn fit_trend(
     let mut trend = Trend {
         slope_per_day: line.b,
         t: line.t_stat(),
-        model: "linear".into(),
+        model: TrendModel::Linear,
         now: line.predict(now_d).0,
         limit_ms: None,
         range_ms: None,
@@ -65,7 +91,7 @@ pub(super) fn fit_trend(
     if let Some(a) = AsymptoticFit::fit(&t, &y) {
         let span = t[t.len() - 1] - t[0];
         if a.sse < 0.5 * sse_line && a.tc < 0.6 * span && a.amplitude > 0.0 {
-            trend.model = "asymptotic".into();
+            trend.model = TrendModel::Asymptotic;
             trend.asymptote = Some(a.asymptote());
             if a.asymptote() > cfg.effectiveness_limit {
                 return Some(trend);
@@ -144,7 +170,7 @@ mod tests {
         // One point in a hundred lost per day from 97 %: the 85 % limit falls on day 12.
         let (v, now) = blocks(6, |d| 0.97 - 0.01 * d);
         let t = fit_trend(&cfg, now, None, v).unwrap();
-        assert_eq!(t.model, "linear");
+        assert_eq!(t.model, TrendModel::Linear);
         // Points four hours apart, stamped at the end of their slot: blocks 1–3 make the first,
         // block 144 alone the last.
         assert_eq!(t.points.len(), 37);
@@ -165,7 +191,7 @@ mod tests {
         let cfg = MonitorConfig::default();
         let (v, now) = blocks(8, |d| 0.9 + 0.1 * (-d).exp());
         let t = fit_trend(&cfg, now, None, v).unwrap();
-        assert_eq!(t.model, "asymptotic");
+        assert_eq!(t.model, TrendModel::Asymptotic);
         assert!((t.asymptote.unwrap() - 0.9).abs() < 0.005, "{:?}", t.asymptote);
         assert_eq!((t.limit_ms, t.range_ms), (None, None), "it stays above the 85 % limit");
     }
