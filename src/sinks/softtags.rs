@@ -59,87 +59,6 @@ fn num_into(out: &mut String, v: Option<f64>, decimals: usize) {
 /// `x` with `decimals` digits after the point (rounded half away from zero; no negative
 /// zero). Integer arithmetic where it is exact, which is much faster than the general float
 /// formatter; the general formatter otherwise.
-// Reading the soft tags back (reports, `identify`).
-
-/// One soft-tag row.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Row {
-    /// Interval end, ms.
-    pub t_ms: i64,
-    /// Predicted temperature (measured tag's unit).
-    pub predicted: Option<f64>,
-    /// Measured.
-    pub measured: Option<f64>,
-    /// Residual.
-    pub residual: Option<f64>,
-    /// Standard uncertainty of the prediction.
-    pub u: Option<f64>,
-    /// Apparent conversion.
-    pub conversion: Option<f64>,
-    /// Heater effectiveness.
-    pub effectiveness: Option<f64>,
-    /// Monitor state.
-    pub state: String,
-    /// Flags.
-    pub flags: Vec<String>,
-}
-
-fn parse_row(line: &str) -> Option<Row> {
-    let mut cells = Vec::new();
-    let mut cur = String::new();
-    let mut quoted = false;
-    for c in line.chars() {
-        match c {
-            '"' => quoted = !quoted,
-            ',' if !quoted => cells.push(std::mem::take(&mut cur)),
-            _ => cur.push(c),
-        }
-    }
-    cells.push(cur);
-    if cells.len() < 10 {
-        return None;
-    }
-    let f = |i: usize| cells[i].trim().parse::<f64>().ok();
-    Some(Row {
-        t_ms: cells[0].parse::<Timestamp>().ok()?.as_millisecond(),
-        predicted: f(2),
-        measured: f(3),
-        residual: f(4),
-        u: f(5),
-        conversion: f(6),
-        effectiveness: f(7),
-        state: cells[8].clone(),
-        flags: cells[9].split(';').filter(|s| !s.is_empty()).map(str::to_string).collect(),
-    })
-}
-
-/// Soft-tag rows of a unit in (from, to], from the daily files whose dates overlap.
-pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone) -> Vec<Row> {
-    let prefix = format!("softtags-{unit}-");
-    let first = crate::core::calendar::day_of(from_ms.saturating_add(1), tz);
-    let last = if to_ms >= i64::MAX / 2 {
-        "9999-12-31".to_string()
-    } else {
-        crate::core::calendar::day_of(to_ms, tz)
-    };
-    let files: Vec<PathBuf> = crate::sinks::daily::dated_files(dir, &prefix, ".csv")
-        .into_iter()
-        .filter(|(d, _)| *d >= first && *d <= last)
-        .map(|(_, p)| p)
-        .collect();
-    let mut rows: Vec<Row> = files
-        .iter()
-        .filter_map(|f| std::fs::read_to_string(f).ok())
-        .flat_map(|text| {
-            text.lines().filter(|l| *l != SOFT_TAG_HEADER).filter_map(parse_row).collect::<Vec<_>>()
-        })
-        .collect();
-    rows.retain(|r| r.t_ms > from_ms && r.t_ms <= to_ms);
-    rows.sort_by_key(|r| r.t_ms);
-    rows.dedup_by_key(|r| r.t_ms);
-    rows
-}
-
 #[cfg(test)]
 fn fixed(x: f64, decimals: usize) -> String {
     let mut out = String::new();
@@ -306,6 +225,87 @@ impl Sink for SoftTagWriter {
     fn sync(&mut self) -> io::Result<()> {
         flush_day(&mut self.current, true)
     }
+}
+
+// Reading the soft tags back (reports, `identify`).
+
+/// One soft-tag row.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Row {
+    /// Interval end, ms.
+    pub t_ms: i64,
+    /// Predicted temperature (measured tag's unit).
+    pub predicted: Option<f64>,
+    /// Measured.
+    pub measured: Option<f64>,
+    /// Residual.
+    pub residual: Option<f64>,
+    /// Standard uncertainty of the prediction.
+    pub u: Option<f64>,
+    /// Apparent conversion.
+    pub conversion: Option<f64>,
+    /// Heater effectiveness.
+    pub effectiveness: Option<f64>,
+    /// Monitor state.
+    pub state: String,
+    /// Flags.
+    pub flags: Vec<String>,
+}
+
+fn parse_row(line: &str) -> Option<Row> {
+    let mut cells = Vec::new();
+    let mut cur = String::new();
+    let mut quoted = false;
+    for c in line.chars() {
+        match c {
+            '"' => quoted = !quoted,
+            ',' if !quoted => cells.push(std::mem::take(&mut cur)),
+            _ => cur.push(c),
+        }
+    }
+    cells.push(cur);
+    if cells.len() < 10 {
+        return None;
+    }
+    let f = |i: usize| cells[i].trim().parse::<f64>().ok();
+    Some(Row {
+        t_ms: cells[0].parse::<Timestamp>().ok()?.as_millisecond(),
+        predicted: f(2),
+        measured: f(3),
+        residual: f(4),
+        u: f(5),
+        conversion: f(6),
+        effectiveness: f(7),
+        state: cells[8].clone(),
+        flags: cells[9].split(';').filter(|s| !s.is_empty()).map(str::to_string).collect(),
+    })
+}
+
+/// Soft-tag rows of a unit in (from, to], from the daily files whose dates overlap.
+pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone) -> Vec<Row> {
+    let prefix = format!("softtags-{unit}-");
+    let first = crate::core::calendar::day_of(from_ms.saturating_add(1), tz);
+    let last = if to_ms >= i64::MAX / 2 {
+        "9999-12-31".to_string()
+    } else {
+        crate::core::calendar::day_of(to_ms, tz)
+    };
+    let files: Vec<PathBuf> = crate::sinks::daily::dated_files(dir, &prefix, ".csv")
+        .into_iter()
+        .filter(|(d, _)| *d >= first && *d <= last)
+        .map(|(_, p)| p)
+        .collect();
+    let mut rows: Vec<Row> = files
+        .iter()
+        .filter_map(|f| std::fs::read_to_string(f).ok())
+        .flat_map(|text| {
+            text.lines().filter(|l| *l != SOFT_TAG_HEADER).filter_map(parse_row).collect::<Vec<_>>()
+        })
+        .collect();
+    rows.retain(|r| r.t_ms > from_ms && r.t_ms <= to_ms);
+    rows.sort_by_key(|r| r.t_ms);
+    rows.dedup_by_key(|r| r.t_ms);
+    rows
 }
 
 #[cfg(test)]
