@@ -14,6 +14,7 @@ use crate::app::service::{self, Wake};
 use crate::app::sim::{self, Event, Plant, Scenario};
 use crate::config::SiteConfig;
 use crate::core::alerts::{AlertEvent, EventKind as AlertKind};
+use crate::core::vocabulary::Cause;
 
 /// Demo options.
 #[derive(Debug, Clone)]
@@ -113,7 +114,7 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
             let expected = inj.kind.expected_cause();
             // An instrument fault must also name the instrument.
             let tag_ok = |a: &AlertEvent| {
-                expected != "instrument_fault"
+                expected != Cause::InstrumentFault
                     || inj.tag.as_deref().is_none_or(|t| a.subject.split(':').next() == Some(t))
             };
             // The first alert in the window that could be about this event (validity notes and,
@@ -121,23 +122,23 @@ pub fn score(events: &[AlertEvent], injected: &[Event]) -> (Vec<Score>, Vec<Aler
             let first = raised
                 .iter()
                 .filter(|a| inside(a.time_ms))
-                .find(|a| match a.cause.as_str() {
-                    "model_validity" => false,
-                    "data_quality" => expected == "data_quality",
+                .find(|a| match a.cause {
+                    Cause::ModelValidity => false,
+                    Cause::DataQuality => expected == Cause::DataQuality,
                     _ => true,
                 })
                 .copied();
             // Without an effluent analyzer, "undetermined" is the honest answer for a chemistry
             // or heater drift the data cannot separate.
             let acceptable = |a: &AlertEvent| {
-                let c = a.cause.as_str();
-                (c == expected && tag_ok(a))
-                    || (c == "undetermined" && matches!(expected, "conversion_drift" | "heater_fouling"))
+                (a.cause == expected && tag_ok(a))
+                    || (a.cause == Cause::Undetermined
+                        && matches!(expected, Cause::ConversionDrift | Cause::HeaterFouling))
             };
             let named = events
                 .iter()
                 .filter(|a| a.event != AlertKind::Cleared && inside(a.time_ms))
-                .find(|a| a.cause.as_str() == expected && tag_ok(a));
+                .find(|a| a.cause == expected && tag_ok(a));
             Score {
                 event: inj.clone(),
                 right_cause: first.is_some_and(acceptable),
@@ -419,7 +420,7 @@ pub fn scorecard(r: &DemoResult) -> String {
     let mut s = String::from("\nScorecard (injected event -> first alert)\n");
     for sc in &r.scores {
         let verdict = match (&sc.first_alert, sc.right_cause) {
-            (Some(a), true) if a.cause.as_str() == "undetermined" => format!(
+            (Some(a), true) if a.cause == Cause::Undetermined => format!(
                 "detected after {:.0} min as undetermined (no effluent analyzer){}",
                 sc.delay_min.unwrap_or(0.0),
                 match sc.named_after_min {

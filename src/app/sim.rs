@@ -16,6 +16,7 @@ use std::fmt::Write as _;
 use serde::Serialize;
 
 use crate::core::monitor::dynamics::Fopdt;
+use crate::core::vocabulary::Cause;
 use crate::rng::Rng;
 use crate::thermo::balance::{
     Basis, Effluent, FeedInput, FlowValue, Inputs, PathChoice, Reaction, System, Unknown,
@@ -54,13 +55,13 @@ pub enum EventKind {
 
 impl EventKind {
     /// The alert cause that should be raised.
-    pub fn expected_cause(self) -> &'static str {
+    pub fn expected_cause(self) -> Cause {
         match self {
-            EventKind::ThermometerBias | EventKind::StuckTransmitter => "instrument_fault",
-            EventKind::HeaterFouling => "heater_fouling",
-            EventKind::AnalyzerOutage => "data_quality",
-            EventKind::ConversionDrift => "conversion_drift",
-            EventKind::HeatLoss => "heat_loss",
+            EventKind::ThermometerBias | EventKind::StuckTransmitter => Cause::InstrumentFault,
+            EventKind::HeaterFouling => Cause::HeaterFouling,
+            EventKind::AnalyzerOutage => Cause::DataQuality,
+            EventKind::ConversionDrift => Cause::ConversionDrift,
+            EventKind::HeatLoss => Cause::HeatLoss,
         }
     }
 }

@@ -16,6 +16,7 @@ use crate::core::Outcome;
 use crate::core::calendar::DayCache;
 use crate::core::flags::{FlagNames, write_codes};
 use crate::core::model::Evaluation;
+use crate::core::monitor::MonitorState;
 use crate::sinks::Sink;
 use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, last_complete_line};
 use crate::units::{self, Quantity, Unit};
@@ -246,8 +247,8 @@ pub struct Row {
     pub conversion: Option<f64>,
     /// Heater effectiveness.
     pub effectiveness: Option<f64>,
-    /// Monitor state.
-    pub state: String,
+    /// Monitor state (`None` when the cell names none).
+    pub state: Option<MonitorState>,
     /// Flags.
     pub flags: Vec<String>,
 }
@@ -276,7 +277,7 @@ fn parse_row(line: &str) -> Option<Row> {
         u: f(5),
         conversion: f(6),
         effectiveness: f(7),
-        state: cells[8].clone(),
+        state: MonitorState::parse(&cells[8]),
         flags: cells[9].split(';').filter(|s| !s.is_empty()).map(str::to_string).collect(),
     })
 }

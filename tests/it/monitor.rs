@@ -73,7 +73,10 @@ fn normal_operating_changes_raise_no_alerts() {
         i64::MAX,
         &jiff::tz::TimeZone::UTC,
     );
-    assert!(rows.iter().filter(|x| x.state == "watching").count() > 2_000);
+    assert!(
+        rows.iter().filter(|x| x.state == Some(efftemp::core::monitor::MonitorState::Watching)).count()
+            > 2_000
+    );
 }
 
 /// A 2 K bias step of the effluent thermometer is raised within 1 h as an instrument fault
@@ -260,7 +263,7 @@ fn detection_figures_over_seeds() {
             let named = r
                 .events
                 .iter()
-                .find(|e| e.time_ms >= start && e.cause.as_str() == expected && e.event != EventKind::Cleared)
+                .find(|e| e.time_ms >= start && e.cause == expected && e.event != EventKind::Cleared)
                 .map_or("never".to_string(), |e| format!("{:.0} min", (e.time_ms - start) as f64 / 60_000.0));
             match first {
                 Some(e) => println!(

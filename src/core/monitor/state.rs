@@ -54,6 +54,19 @@ impl MonitorState {
             MonitorState::Paused => "paused",
         }
     }
+
+    /// The state a soft-tag column names.
+    pub fn parse(text: &str) -> Option<MonitorState> {
+        [
+            MonitorState::Learning,
+            MonitorState::Watching,
+            MonitorState::Unsteady,
+            MonitorState::Settling,
+            MonitorState::Paused,
+        ]
+        .into_iter()
+        .find(|s| s.as_str() == text)
+    }
 }
 
 /// The sums of the block being accumulated.

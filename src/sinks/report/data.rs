@@ -10,6 +10,7 @@ use jiff::tz::TimeZone;
 use super::ReportUnit;
 use crate::core::alerts::AlertEvent;
 use crate::core::calendar::Shift;
+use crate::core::monitor::MonitorState;
 use crate::core::monitor::stats::LineFit;
 pub use crate::sinks::alert_log::load_events;
 pub use crate::sinks::softtags::{Row, load_rows};
@@ -68,7 +69,7 @@ pub fn load(unit: &ReportUnit, output_dir: &Path, shift: &Shift) -> ReportData {
     let effectiveness = all
         .iter()
         .filter(|r| r.t_ms > window_start)
-        .filter(|r| r.state == "watching" || r.state == "learning")
+        .filter(|r| matches!(r.state, Some(MonitorState::Watching | MonitorState::Learning)))
         .filter_map(|r| r.effectiveness.map(|e| (r.t_ms, e)))
         .collect();
     let (prev, rows): (Vec<Row>, Vec<Row>) =
@@ -95,8 +96,12 @@ pub fn load(unit: &ReportUnit, output_dir: &Path, shift: &Shift) -> ReportData {
     }
     // Residual limits from the watching rows of the window: the baseline centre and scatter
     // are not in the soft tags, so use the median and robust scale of steady residuals.
-    let steady: Vec<f64> =
-        rows.iter().chain(prev.iter()).filter(|r| r.state == "watching").filter_map(|r| r.residual).collect();
+    let steady: Vec<f64> = rows
+        .iter()
+        .chain(prev.iter())
+        .filter(|r| r.state == Some(MonitorState::Watching))
+        .filter_map(|r| r.residual)
+        .collect();
     let residual_limits = (steady.len() >= 30).then(|| {
         let m = crate::core::monitor::stats::median(&steady);
         let s = crate::core::monitor::stats::mad_sigma(&steady).max(0.01);

@@ -9,6 +9,7 @@ use jiff::Timestamp;
 use super::data::{ReportData, Row, effectiveness_trend, lifecycles};
 use super::svg::{Axis, INK, MARK, MEAS, PRED, Plot, esc, hour_ticks, hours_of};
 use crate::core::alerts::{AlertEvent, EventKind};
+use crate::core::monitor::MonitorState;
 
 /// The time axis the in-shift plots share: hours since the shift start with local-time tick
 /// labels, the axis label, and the alerts raised in the shift (marked on the plots).
@@ -230,7 +231,7 @@ pub fn headline(d: &ReportData) -> Headline {
         .collect();
     let in_shift = |e: &AlertEvent| e.time_ms > d.shift.start_ms && e.time_ms <= d.shift.end_ms;
     Headline {
-        state: d.rows.last().map_or_else(|| "no data".into(), |r| r.state.clone()),
+        state: d.rows.last().map_or("no data", |r| r.state.map_or("", MonitorState::as_str)).to_string(),
         active,
         raised: d.events.iter().filter(|e| in_shift(e) && e.event == EventKind::Raised).count(),
         cleared: d.events.iter().filter(|e| in_shift(e) && e.event == EventKind::Cleared).count(),
