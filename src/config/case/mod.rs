@@ -1,0 +1,904 @@
+//! The `calc` case file: one steady-state balance for engineering what-ifs.
+//!
+//! Two stages: [`RawCase`] mirrors the TOML exactly (`deny_unknown_fields`, in `raw.rs`), then
+//! [`Case::check`] resolves components, units, compositions and the unknown into a
+//! [`System`] plus [`Inputs`], reporting every problem with file, line and key (here, section
+//! by section, through the one checker of the configuration files). [`Case::run`] solves and
+//! returns a [`Report`] (in `report.rs`), which renders as JSON or as a short human summary.
+
+use std::path::Path;
+use std::sync::Arc;
+
+use indexmap::IndexMap;
+
+use super::check::{Checker, Percent};
+use crate::source::{KeyPath, LocatedErrors, SourceText};
+use crate::thermo::Component;
+use crate::thermo::balance::{
+    DEFAULT_BOUNDS, Effluent, FeedInput, FlowValue, Inputs, PathChoice, Reaction, System, SystemError,
+    Unknown,
+};
+use crate::thermo::component::{Library, Origin, normalize_id};
+use crate::thermo::uncertainty::{InputRef, Uncertain};
+use crate::units::{Number, Quantity};
+
+mod raw;
+mod report;
+
+pub use raw::*;
+pub use report::*;
+
+/// Default bubble-point margin, K: the ideal-solution bubble point of the aqueous mixtures in
+/// the vetted reference data is 0.5–12.9 K above the measured one (common practice: keep a
+/// margin of that size before calling a liquid safely sub-cooled).
+pub const DEFAULT_BUBBLE_MARGIN: f64 = 10.0;
+
+/// Tolerance on the sum of fractions.
+pub const SUM_TOLERANCE: f64 = 1e-3;
+
+/// How an input was written, for echoing.
+#[derive(Debug, Clone, Default)]
+pub struct Echo {
+    /// Per feed: (flow as written, temperature as written).
+    pub feeds: Vec<(String, String)>,
+    /// Duty as written.
+    pub duty: Option<String>,
+    /// Heat loss as written.
+    pub heat_loss: Option<String>,
+    /// Measured effluent temperature as written.
+    pub effluent_temperature: Option<String>,
+    /// Pressure as written.
+    pub pressure: Option<String>,
+    /// Feed labels.
+    pub feed_names: Vec<String>,
+}
+
+/// A checked case, ready to solve.
+#[derive(Debug, Clone)]
+pub struct Case {
+    /// The case file.
+    pub source: Arc<SourceText>,
+    /// Components, paths, reactions.
+    pub system: System,
+    /// Inputs.
+    pub inputs: Inputs,
+    /// What to solve for.
+    pub unknown: Unknown,
+    /// Inputs with uncertainties.
+    pub uncertain: Vec<Uncertain>,
+    /// How inputs were written.
+    pub echo: Echo,
+    /// Notes raised while checking (e.g. a normalized composition).
+    pub warnings: Vec<String>,
+}
+
+/// What the checks of the sections add to as they go.
+#[derive(Default)]
+struct Collected {
+    /// Inputs with uncertainties.
+    uncertain: Vec<Uncertain>,
+    /// How inputs were written.
+    echo: Echo,
+    /// Notes for the report.
+    warnings: Vec<String>,
+}
+
+/// The components of the case, in order of first use.
+struct Components {
+    /// Ids as first written.
+    ids: Vec<String>,
+    /// The key of each id's first use.
+    first_use: Vec<KeyPath>,
+    /// The resolved components (all of them only when no id had an error).
+    resolved: Vec<Component>,
+}
+
+impl Components {
+    fn index_of(&self, id: &str) -> Option<usize> {
+        self.ids.iter().position(|k| normalize_id(k) == normalize_id(id))
+    }
+
+    fn len(&self) -> usize {
+        self.ids.len()
+    }
+}
+
+/// `[model]`, checked.
+struct ModelSettings {
+    global: PathChoice,
+    choices: Vec<PathChoice>,
+    pressure: Option<f64>,
+    bubble_margin: f64,
+    bounds: (f64, f64),
+}
+
+/// The given values of `[heater]` and `[effluent]`, SI.
+struct Given {
+    duty: Option<f64>,
+    heat_loss: f64,
+    effluent_temperature: Option<f64>,
+}
+
+fn path_label(choice: PathChoice) -> &'static str {
+    match choice {
+        PathChoice::Auto => "auto",
+        PathChoice::Force(p) => p.as_str(),
+    }
+}
+
+impl Case {
+    /// Read and check a case file.
+    pub fn load(path: &Path) -> Result<Case, LocatedErrors> {
+        let src = SourceText::read(path)?;
+        Case::check(Arc::new(src))
+    }
+
+    /// Check a parsed case file (stage two).
+    pub fn check(src: Arc<SourceText>) -> Result<Case, LocatedErrors> {
+        let raw: RawCase = src.deserialize()?;
+        let mut errors = Vec::new();
+        let mut ck = Checker::new(&src, &mut errors);
+        let mut out = Collected::default();
+        let library = library(&mut ck, &raw, &src)?;
+        let comps = components(&mut ck, &raw, &library, &src, &mut out.warnings);
+        if raw.feed.is_empty() {
+            ck.err(&KeyPath::root(), "the case has no [[feed]] table: at least one feed is required");
+        }
+        let model = model(&mut ck, &raw.model, &comps);
+        let feeds = feeds(&mut ck, &raw.feed, &comps, &mut out);
+        let (reactions, conversions) = reactions(&mut ck, &raw.reaction, &comps, &mut out.uncertain);
+
+        let eff = raw.effluent.clone().unwrap_or_default();
+        let heater = raw.heater.clone().unwrap_or_default();
+        let given = Given {
+            effluent_temperature: eff
+                .temperature
+                .as_ref()
+                .and_then(|t| ck.temperature(&KeyPath::keys("effluent.temperature"), t)),
+            duty: heater
+                .duty
+                .as_ref()
+                .and_then(|d| ck.number(&KeyPath::keys("heater.duty"), d, Quantity::Power)),
+            heat_loss: heater
+                .heat_loss
+                .as_ref()
+                .and_then(|d| ck.number(&KeyPath::keys("heater.heat_loss"), d, Quantity::Power))
+                .unwrap_or(0.0),
+        };
+        let unknown = unknown(&mut ck, &raw, &conversions);
+        given_uncertainties(&mut ck, &raw, unknown, &given, &mut out.uncertain);
+        let no_reactions = reactions.is_empty() && raw.reaction.is_empty();
+        let effluent = effluent(&mut ck, &eff, no_reactions, conversions, &comps, &mut out);
+        if matches!(effluent, Effluent::Measured { .. }) && matches!(unknown, Unknown::Conversion(_)) {
+            ck.err(
+                &KeyPath::keys("solve.unknown"),
+                "a measured effluent composition leaves no conversion to solve for",
+            );
+        }
+
+        out.echo.duty = heater.duty.as_ref().map(Number::as_written);
+        out.echo.heat_loss = heater.heat_loss.as_ref().map(Number::as_written);
+        out.echo.effluent_temperature = eff.temperature.as_ref().map(Number::as_written);
+        out.echo.pressure = raw.model.pressure.as_ref().map(Number::as_written);
+
+        if !errors.is_empty() {
+            return Err(LocatedErrors(errors));
+        }
+        let system = System::new(comps.resolved, &model.choices, raw.model.watson_n, reactions, model.bounds)
+            .map_err(|e| {
+                let key = system_error_key(&raw, &comps.first_use, &e);
+                let note = match (&e, model.global) {
+                    (SystemError::MissingPathData { .. }, PathChoice::Force(_)) => {
+                        format!(" ([model] enthalpy = \"{}\")", path_label(model.global))
+                    }
+                    _ => String::new(),
+                };
+                LocatedErrors::from(src.error_at(&key, format!("{e}{note}")))
+            })?;
+        let inputs = Inputs {
+            feeds,
+            effluent,
+            duty: given.duty,
+            heat_loss: given.heat_loss,
+            effluent_temperature: given.effluent_temperature,
+            pressure: model.pressure,
+            bubble_margin: model.bubble_margin,
+        };
+        let Collected { uncertain, echo, warnings } = out;
+        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings })
+    }
+}
+
+/// The component library: built-in, `[model] libraries` (relative to the case file), then the
+/// inline `[components]`.
+fn library(ck: &mut Checker<'_>, raw: &RawCase, src: &Arc<SourceText>) -> Result<Library, LocatedErrors> {
+    let mut library = Library::builtin()?;
+    let base_dir = src.path.parent().map(Path::to_path_buf).unwrap_or_default();
+    for (i, lib) in raw.model.libraries.iter().enumerate() {
+        let p = base_dir.join(lib);
+        if let Err(e) = library.load(&p) {
+            if e.0.iter().any(|le| le.location.line_col.is_none() && le.location.file == p) {
+                ck.err(
+                    &KeyPath::keys("model.libraries").index(i),
+                    format!("cannot load library `{lib}`: {e}"),
+                );
+            } else {
+                ck.extend(e.0);
+            }
+        }
+    }
+    for (id, spec) in &raw.components {
+        let key = KeyPath::keys("components").key(id);
+        library.add(id, spec.clone(), Origin { source: src.clone(), key });
+    }
+    Ok(library)
+}
+
+/// The system's components (feeds, then reactions, then the effluent), resolved; an inline
+/// component that is not used is checked too, and noted.
+fn components(
+    ck: &mut Checker<'_>,
+    raw: &RawCase,
+    library: &Library,
+    src: &SourceText,
+    warnings: &mut Vec<String>,
+) -> Components {
+    let mut comps = Components { ids: Vec::new(), first_use: Vec::new(), resolved: Vec::new() };
+    let mut note = |id: &str, key: KeyPath| {
+        if comps.index_of(id).is_none() {
+            comps.ids.push(id.to_string());
+            comps.first_use.push(key);
+        }
+    };
+    for (j, f) in raw.feed.iter().enumerate() {
+        for id in f.composition.keys() {
+            note(id, KeyPath::keys("feed").index(j).key("composition").key(id));
+        }
+    }
+    for (r, re) in raw.reaction.iter().enumerate() {
+        for id in re.stoichiometry.keys() {
+            note(id, KeyPath::keys("reaction").index(r).key("stoichiometry").key(id));
+        }
+    }
+    if let Some(comp) = raw.effluent.as_ref().and_then(|e| e.composition.as_ref()) {
+        for id in comp.keys() {
+            note(id, KeyPath::keys("effluent.composition").key(id));
+        }
+    }
+    for (id, key) in comps.ids.iter().zip(&comps.first_use) {
+        if !library.contains(id) {
+            ck.push(library.unknown(id, src, key));
+            continue;
+        }
+        match library.resolve(id) {
+            Ok(c) => comps.resolved.push(c),
+            Err(e) => ck.extend(e.0),
+        }
+    }
+    for id in raw.components.keys() {
+        if comps.index_of(id).is_none() {
+            // Check it anyway: a bad definition is an error even before it is used.
+            match library.resolve(id) {
+                Ok(_) => warnings.push(format!("component `{id}` is defined but not used")),
+                Err(e) => ck.extend(e.0),
+            }
+        }
+    }
+    comps
+}
+
+/// `[model]`: enthalpy paths, Watson exponent, pressure, bubble margin, temperature range.
+fn model(ck: &mut Checker<'_>, m: &RawModel, comps: &Components) -> ModelSettings {
+    let global = match m.enthalpy.as_deref() {
+        None => PathChoice::Auto,
+        Some(s) => PathChoice::parse(s).unwrap_or_else(|| {
+            ck.err(
+                &KeyPath::keys("model.enthalpy"),
+                format!("unknown enthalpy path `{s}`; use \"auto\", \"ideal-gas-watson\" or \"liquid-cp\""),
+            );
+            PathChoice::Auto
+        }),
+    };
+    let mut choices = vec![global; comps.len()];
+    for (id, s) in &m.component_enthalpy {
+        let key = KeyPath::keys("model.component_enthalpy").key(id);
+        match (comps.index_of(id), PathChoice::parse(s)) {
+            (Some(i), Some(c)) => choices[i] = c,
+            (None, _) => ck.err(&key, format!("component `{id}` is not used in this case")),
+            (_, None) => ck.err(
+                &key,
+                format!("unknown enthalpy path `{s}`; use \"auto\", \"ideal-gas-watson\" or \"liquid-cp\""),
+            ),
+        }
+    }
+    if let Some(n) = m.watson_n
+        && !(n > 0.0 && n <= 1.0)
+    {
+        ck.err(&KeyPath::keys("model.watson_n"), format!("Watson exponent must be in (0, 1], got {n}"));
+    }
+    let pressure = m.pressure.as_ref().and_then(|p| {
+        let key = KeyPath::keys("model.pressure");
+        let v = ck.number(&key, p, Quantity::Pressure)?;
+        if v <= 0.0 {
+            ck.err(&key, format!("absolute pressure must be positive, got {v} Pa"));
+            return None;
+        }
+        Some(v)
+    });
+    let bubble_margin = m
+        .bubble_margin
+        .as_ref()
+        .and_then(|b| {
+            let key = KeyPath::keys("model.bubble_margin");
+            let v = ck.number(&key, b, Quantity::TemperatureDifference)?;
+            if v < 0.0 {
+                ck.err(
+                    &key,
+                    format!("margin must not be negative, got {v} K (0 warns only at the bubble point)"),
+                );
+                return None;
+            }
+            Some(v)
+        })
+        .unwrap_or(DEFAULT_BUBBLE_MARGIN);
+    let bounds = match &m.temperature_range {
+        None => DEFAULT_BOUNDS,
+        Some([lo, hi]) => {
+            let key = KeyPath::keys("model.temperature_range");
+            match (ck.temperature(&key.index(0), lo), ck.temperature(&key.index(1), hi)) {
+                (Some(lo), Some(hi)) => ck.range(&key, lo, hi).unwrap_or(DEFAULT_BOUNDS),
+                _ => DEFAULT_BOUNDS,
+            }
+        }
+    };
+    ModelSettings { global, choices, pressure, bubble_margin, bounds }
+}
+
+/// `[[feed]]`: every feed, each with its own name.
+fn feeds(ck: &mut Checker<'_>, raw: &[RawFeed], comps: &Components, out: &mut Collected) -> Vec<FeedInput> {
+    let mut feeds = Vec::new();
+    let mut labels: Vec<String> = Vec::new();
+    for (j, f) in raw.iter().enumerate() {
+        let key = KeyPath::keys("feed").index(j);
+        let label = f.name.clone().unwrap_or_else(|| format!("feed {}", j + 1));
+        if let Some(first) = labels.iter().position(|l| l.trim() == label.trim()) {
+            ck.err(
+                &key.key("name"),
+                format!("feed {} is also called `{label}`: give each feed its own name", first + 1),
+            );
+        }
+        labels.push(label.clone());
+        let flow = feed_flow(ck, &key, f.flow.as_ref());
+        let temperature = match &f.temperature {
+            None => {
+                ck.err(&key, "temperature is required");
+                None
+            }
+            Some(v) => ck.temperature(&key.key("temperature"), v),
+        };
+        let basis = ck.basis(&key.key("basis"), f.basis.as_ref());
+        let fractions = composition(
+            ck,
+            &key.key("composition"),
+            &f.composition,
+            f.normalize,
+            comps,
+            &mut out.warnings,
+            &label,
+        );
+        let (Some(flow), Some(temperature), Some(fractions)) = (flow, temperature, fractions) else {
+            continue;
+        };
+        feed_uncertainties(
+            ck,
+            &key,
+            j,
+            f,
+            (flow, temperature, &fractions),
+            comps,
+            &label,
+            &mut out.uncertain,
+        );
+        feeds.push(FeedInput { flow, temperature, fractions, basis });
+        out.echo.feeds.push((
+            f.flow.as_ref().map(Number::as_written).unwrap_or_default(),
+            f.temperature.as_ref().map(Number::as_written).unwrap_or_default(),
+        ));
+        out.echo.feed_names.push(label);
+    }
+    feeds
+}
+
+/// A feed's total flow: positive, molar or mass.
+fn feed_flow(ck: &mut Checker<'_>, key: &KeyPath, flow: Option<&Number>) -> Option<FlowValue> {
+    let Some(v) = flow else {
+        ck.err(key, "flow is required");
+        return None;
+    };
+    let (x, q) = ck.number_any(&key.key("flow"), v, &[Quantity::MolarFlow, Quantity::MassFlow])?;
+    if x > 0.0 {
+        return Some(if q == Quantity::MassFlow { FlowValue::Mass(x) } else { FlowValue::Molar(x) });
+    }
+    let si = if q == Quantity::MassFlow { "kg/s" } else { "mol/s" };
+    ck.err(&key.key("flow"), format!("flow must be positive, got {x} {si} (given `{}`)", v.as_written()));
+    None
+}
+
+/// An input's standard uncertainty at its value (`"x %"` is a percentage of the value).
+fn input_u(ck: &mut Checker<'_>, key: &KeyPath, u: &Number, value: f64, q: Quantity) -> Option<f64> {
+    ck.uncertainty(key, u, q, Percent::OfValue).map(|u| u.at(value))
+}
+
+/// The uncertainties of a checked feed's flow, temperature and fractions.
+#[allow(clippy::too_many_arguments)]
+fn feed_uncertainties(
+    ck: &mut Checker<'_>,
+    key: &KeyPath,
+    j: usize,
+    f: &RawFeed,
+    (flow, temperature, fractions): (FlowValue, f64, &[f64]),
+    comps: &Components,
+    label: &str,
+    uncertain: &mut Vec<Uncertain>,
+) {
+    if let Some(u) = &f.flow_uncertainty {
+        let (q, other) = match flow {
+            FlowValue::Molar(_) => (Quantity::MolarFlow, Quantity::MassFlow),
+            FlowValue::Mass(_) => (Quantity::MassFlow, Quantity::MolarFlow),
+        };
+        let ukey = key.key("flow_uncertainty");
+        if u.si(q).is_err() && u.si(other).is_ok() {
+            // Converting between the bases would need the composition: refuse it.
+            ck.err(
+                &ukey,
+                format!(
+                    "`{}` is a {} but this feed's flow is a {}: give the uncertainty in a {} unit or as a percentage",
+                    u.as_written(),
+                    other.name(),
+                    q.name(),
+                    q.name()
+                ),
+            );
+        } else if let Some(u) = input_u(ck, &ukey, u, flow.value(), q) {
+            uncertain.push(Uncertain { input: InputRef::FeedFlow(j), u, label: format!("{label} flow") });
+        }
+    }
+    if let Some(u) = &f.temperature_uncertainty
+        && let Some(u) =
+            input_u(ck, &key.key("temperature_uncertainty"), u, temperature, Quantity::TemperatureDifference)
+    {
+        uncertain.push(Uncertain {
+            input: InputRef::FeedTemperature(j),
+            u,
+            label: format!("{label} temperature"),
+        });
+    }
+    if let Some(cu) = &f.composition_uncertainty {
+        for (i, u) in composition_u(ck, &key.key("composition_uncertainty"), cu, fractions, comps) {
+            uncertain.push(Uncertain {
+                input: InputRef::FeedFraction(j, i),
+                u,
+                label: format!("{label} {} fraction", comps.ids[i]),
+            });
+        }
+    }
+}
+
+/// `[[reaction]]`: the reactions with a valid key, and their conversions (None when not
+/// given: the unknown, or an error).
+fn reactions(
+    ck: &mut Checker<'_>,
+    raw: &[RawReaction],
+    comps: &Components,
+    uncertain: &mut Vec<Uncertain>,
+) -> (Vec<Reaction>, Vec<Option<f64>>) {
+    let mut reactions = Vec::new();
+    let mut conversions: Vec<Option<f64>> = Vec::new();
+    for (r, re) in raw.iter().enumerate() {
+        let key = KeyPath::keys("reaction").index(r);
+        if re.stoichiometry.is_empty() {
+            ck.err(&key, "stoichiometry is required, e.g. { methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }");
+            continue;
+        }
+        let nu = stoichiometry(ck, &key.key("stoichiometry"), re, comps);
+        let key_idx = match &re.key {
+            None => {
+                ck.err(&key, "key is required: the reactant whose conversion is given or solved for");
+                None
+            }
+            Some(k) => {
+                match (comps.index_of(k), re.stoichiometry.keys().any(|s| normalize_id(s) == normalize_id(k)))
+                {
+                    (Some(i), true) => Some(i),
+                    _ => {
+                        ck.err(&key.key("key"), format!("key `{k}` is not in this reaction's stoichiometry"));
+                        None
+                    }
+                }
+            }
+        };
+        let conversion = re
+            .conversion
+            .as_ref()
+            .and_then(|c| ck.number(&key.key("conversion"), c, Quantity::Dimensionless));
+        if let Some(u) = &re.conversion_uncertainty
+            && let Some(u) = input_u(
+                ck,
+                &key.key("conversion_uncertainty"),
+                u,
+                conversion.unwrap_or(0.0),
+                Quantity::Dimensionless,
+            )
+        {
+            uncertain.push(Uncertain {
+                input: InputRef::Conversion(r),
+                u,
+                label: format!("reaction {} conversion", r + 1),
+            });
+        }
+        if let Some(k) = key_idx {
+            reactions.push(Reaction { label: reaction_label(re), nu, key: k });
+            conversions.push(conversion);
+        }
+    }
+    (reactions, conversions)
+}
+
+/// The coefficients of a reaction per system component.
+fn stoichiometry(ck: &mut Checker<'_>, key: &KeyPath, re: &RawReaction, comps: &Components) -> Vec<f64> {
+    let mut nu = vec![0.0; comps.len()];
+    refuse_repeated_ids(ck, key, re.stoichiometry.keys());
+    for (id, coef) in &re.stoichiometry {
+        if !coef.is_finite() {
+            ck.err(&key.key(id), "coefficient is not finite");
+        }
+        if let Some(i) = comps.index_of(id) {
+            nu[i] += coef;
+        }
+    }
+    nu
+}
+
+/// A reaction's name, or its equation (`a + 2 b -> c`).
+fn reaction_label(re: &RawReaction) -> String {
+    let reactants: Vec<String> =
+        re.stoichiometry.iter().filter(|(_, c)| **c < 0.0).map(|(id, c)| term(-c, id)).collect();
+    let products: Vec<String> =
+        re.stoichiometry.iter().filter(|(_, c)| **c > 0.0).map(|(id, c)| term(*c, id)).collect();
+    re.name.clone().unwrap_or_else(|| format!("{} -> {}", reactants.join(" + "), products.join(" + ")))
+}
+
+/// `[solve] unknown`, with the inputs each choice needs and must not have.
+fn unknown(ck: &mut Checker<'_>, raw: &RawCase, conversions: &[Option<f64>]) -> Unknown {
+    let has_duty = raw.heater.as_ref().is_some_and(|h| h.duty.is_some());
+    let has_temperature = raw.effluent.as_ref().is_some_and(|e| e.temperature.is_some());
+    let solve_key = KeyPath::keys("solve.unknown");
+    let missing_conv: Vec<usize> =
+        conversions.iter().enumerate().filter(|(_, c)| c.is_none()).map(|(r, _)| r).collect();
+    let need_conversions = |ck: &mut Checker<'_>, what: &str| {
+        for &r in &missing_conv {
+            ck.err(
+                &KeyPath::keys("reaction").index(r),
+                format!("conversion is required when solving for the {what}"),
+            );
+        }
+    };
+    let unknown = match raw.solve.unknown.as_deref().unwrap_or("temperature").trim() {
+        "temperature" => {
+            if !has_duty {
+                ck.err(
+                    &KeyPath::keys("heater"),
+                    "[heater] duty is required when solving for the temperature",
+                );
+            }
+            need_conversions(ck, "temperature");
+            Unknown::Temperature
+        }
+        "duty" => {
+            if has_duty {
+                ck.err(&KeyPath::keys("heater.duty"), "remove the duty when solving for it");
+            }
+            if !has_temperature {
+                ck.err(
+                    &KeyPath::keys("effluent"),
+                    "[effluent] temperature is required when solving for the duty",
+                );
+            }
+            need_conversions(ck, "duty");
+            Unknown::Duty
+        }
+        "conversion" => {
+            if !has_temperature {
+                ck.err(
+                    &KeyPath::keys("effluent"),
+                    "[effluent] temperature is required when solving for the conversion",
+                );
+            }
+            if !has_duty {
+                ck.err(&KeyPath::keys("heater"), "[heater] duty is required when solving for the conversion");
+            }
+            if raw.reaction.is_empty() {
+                ck.err(&solve_key, "solving for the conversion needs a [[reaction]]");
+            }
+            match missing_conv.as_slice() {
+                [r] => Unknown::Conversion(*r),
+                [] => {
+                    if !raw.reaction.is_empty() {
+                        ck.err(&solve_key, "every reaction has a conversion: remove the one to solve for");
+                    }
+                    Unknown::Conversion(0)
+                }
+                _ => {
+                    ck.err(&solve_key, "more than one reaction lacks a conversion: give all but one");
+                    Unknown::Conversion(0)
+                }
+            }
+        }
+        other => {
+            ck.err(&solve_key, format!("unknown `{other}`; use \"temperature\", \"duty\" or \"conversion\""));
+            Unknown::Temperature
+        }
+    };
+    if let Unknown::Conversion(r) = unknown
+        && raw.reaction.get(r).is_some_and(|re| re.conversion_uncertainty.is_some())
+    {
+        ck.err(
+            &KeyPath::keys("reaction").index(r).key("conversion_uncertainty"),
+            "this conversion is the unknown: it has no input uncertainty",
+        );
+    }
+    unknown
+}
+
+/// The uncertainties of the duty, the heat loss and the measured effluent temperature (the
+/// unknown has none; a measured temperature is an input only when it is not solved for).
+fn given_uncertainties(
+    ck: &mut Checker<'_>,
+    raw: &RawCase,
+    unknown: Unknown,
+    given: &Given,
+    uncertain: &mut Vec<Uncertain>,
+) {
+    let heater = raw.heater.clone().unwrap_or_default();
+    if let Some(u) = &heater.duty_uncertainty {
+        let key = KeyPath::keys("heater.duty_uncertainty");
+        if unknown == Unknown::Duty {
+            ck.err(&key, "the duty is the unknown: it has no input uncertainty");
+        } else if let Some(u) = input_u(ck, &key, u, given.duty.unwrap_or(0.0), Quantity::Power) {
+            uncertain.push(Uncertain { input: InputRef::Duty, u, label: "heater duty".into() });
+        }
+    }
+    if let Some(u) = &heater.heat_loss_uncertainty
+        && let Some(u) =
+            input_u(ck, &KeyPath::keys("heater.heat_loss_uncertainty"), u, given.heat_loss, Quantity::Power)
+    {
+        uncertain.push(Uncertain { input: InputRef::HeatLoss, u, label: "heat loss".into() });
+    }
+    if let Some(u) = raw.effluent.as_ref().and_then(|e| e.temperature_uncertainty.as_ref())
+        && let Some(u) = input_u(
+            ck,
+            &KeyPath::keys("effluent.temperature_uncertainty"),
+            u,
+            given.effluent_temperature.unwrap_or(0.0),
+            Quantity::TemperatureDifference,
+        )
+        && unknown != Unknown::Temperature
+    {
+        uncertain.push(Uncertain {
+            input: InputRef::EffluentTemperature,
+            u,
+            label: "effluent temperature".into(),
+        });
+    }
+}
+
+/// The effluent: measured (`[effluent] composition`, only without reactions), reacted, or
+/// the feeds mixed.
+fn effluent(
+    ck: &mut Checker<'_>,
+    eff: &RawEffluent,
+    no_reactions: bool,
+    conversions: Vec<Option<f64>>,
+    comps: &Components,
+    out: &mut Collected,
+) -> Effluent {
+    let comp = match (&eff.composition, no_reactions) {
+        (Some(_), false) => {
+            ck.err(
+                &KeyPath::keys("effluent.composition"),
+                "give either reactions with conversions or a measured effluent composition, not both",
+            );
+            return Effluent::Mixed;
+        }
+        (Some(comp), true) => comp,
+        (None, false) => return Effluent::Reacted { conversions },
+        (None, true) => return Effluent::Mixed,
+    };
+    let key = KeyPath::keys("effluent.composition");
+    let basis = ck.basis(&KeyPath::keys("effluent.basis"), eff.basis.as_ref());
+    let Some(fractions) = composition(ck, &key, comp, eff.normalize, comps, &mut out.warnings, "effluent")
+    else {
+        return Effluent::Mixed;
+    };
+    if let Some(cu) = &eff.composition_uncertainty {
+        let ukey = KeyPath::keys("effluent.composition_uncertainty");
+        for (i, u) in composition_u(ck, &ukey, cu, &fractions, comps) {
+            out.uncertain.push(Uncertain {
+                input: InputRef::EffluentFraction(i),
+                u,
+                label: format!("effluent {} fraction", comps.ids[i]),
+            });
+        }
+    }
+    Effluent::Measured { fractions, basis }
+}
+
+/// Where a system error is best reported: the key that chose the path, defined the
+/// component or wrote the reaction.
+fn system_error_key(raw: &RawCase, first_use: &[KeyPath], e: &SystemError) -> KeyPath {
+    match e {
+        SystemError::MissingPathData { index, component, .. }
+        | SystemError::NoPath { index, component, .. } => {
+            if raw.model.component_enthalpy.keys().any(|k| normalize_id(k) == normalize_id(component)) {
+                KeyPath::keys("model.component_enthalpy").key(component)
+            } else if raw.components.keys().any(|k| normalize_id(k) == normalize_id(component)) {
+                KeyPath::keys("components").key(component)
+            } else if raw.model.enthalpy.is_some() {
+                KeyPath::keys("model.enthalpy")
+            } else {
+                first_use[*index].clone()
+            }
+        }
+        SystemError::KeyNotReactant { reaction, .. } => KeyPath::keys("reaction").index(*reaction).key("key"),
+        SystemError::Unbalanced { reaction, .. } => {
+            KeyPath::keys("reaction").index(*reaction).key("stoichiometry")
+        }
+    }
+}
+
+/// Refuse a table that names one component twice (ids ignore case, and `_` equals `-`): the
+/// two entries would otherwise be added together without a word.
+fn refuse_repeated_ids<'a>(
+    ck: &mut Checker<'_>,
+    key: &KeyPath,
+    ids: impl Iterator<Item = &'a String>,
+) -> bool {
+    let mut seen: Vec<(String, &str)> = Vec::new();
+    let mut ok = true;
+    for id in ids {
+        let norm = normalize_id(id);
+        if let Some((_, first)) = seen.iter().find(|(n, _)| *n == norm) {
+            ck.err(
+                &key.key(id),
+                format!("`{id}` names the same component as `{first}` (ids ignore case, and `_` equals `-`); list it once"),
+            );
+            ok = false;
+        } else {
+            seen.push((norm, id));
+        }
+    }
+    ok
+}
+
+fn term(c: f64, id: &str) -> String {
+    if (c - 1.0).abs() < 1e-12 { id.to_string() } else { format!("{c} {id}") }
+}
+
+/// Check a composition table; returns fractions per system component.
+fn composition(
+    ck: &mut Checker<'_>,
+    key: &KeyPath,
+    comp: &IndexMap<String, Number>,
+    normalize: bool,
+    comps: &Components,
+    warnings: &mut Vec<String>,
+    label: &str,
+) -> Option<Vec<f64>> {
+    if comp.is_empty() {
+        ck.err(key, "composition is required, e.g. { water = 0.7, methanol = 0.3 }");
+        return None;
+    }
+    let mut fractions = vec![0.0; comps.len()];
+    let mut ok = refuse_repeated_ids(ck, key, comp.keys());
+    for (id, v) in comp {
+        let k = key.key(id);
+        match ck.number(&k, v, Quantity::Dimensionless) {
+            Some(x) if x < 0.0 => {
+                ck.err(&k, format!("fraction must not be negative, got {x}"));
+                ok = false;
+            }
+            Some(x) => {
+                if let Some(i) = comps.index_of(id) {
+                    fractions[i] += x;
+                }
+            }
+            None => ok = false,
+        }
+    }
+    if !ok {
+        return None;
+    }
+    let sum: f64 = fractions.iter().sum();
+    if sum <= 0.0 {
+        ck.err(key, "fractions sum to zero");
+        return None;
+    }
+    if (sum - 1.0).abs() > SUM_TOLERANCE {
+        if normalize {
+            warnings
+                .push(format!("{label} composition summed to {sum:.6}; rescaled to 1 (normalize = true)"));
+        } else {
+            ck.err(key, format!("fractions sum to {sum:.6}, not 1 within {SUM_TOLERANCE}; fix them or set normalize = true"));
+            return None;
+        }
+    }
+    Some(fractions.iter().map(|x| x / sum).collect())
+}
+
+/// The uncertainties of a composition's fractions (absolute: `"0.5 %"` is 0.005): one for every
+/// fraction strictly between 0 and 1, or one per component.
+fn composition_u(
+    ck: &mut Checker<'_>,
+    key: &KeyPath,
+    cu: &RawCompositionU,
+    fractions: &[f64],
+    comps: &Components,
+) -> Vec<(usize, f64)> {
+    let mut out = Vec::new();
+    match cu {
+        RawCompositionU::All(v) => {
+            if let Some(u) = ck.number(key, v, Quantity::Dimensionless) {
+                for (i, x) in fractions.iter().enumerate() {
+                    if *x > 0.0 && *x < 1.0 {
+                        out.push((i, u));
+                    }
+                }
+            }
+        }
+        RawCompositionU::Each(map) => {
+            refuse_repeated_ids(ck, key, map.keys());
+            for (id, v) in map {
+                let k = key.key(id);
+                match (comps.index_of(id), ck.number(&k, v, Quantity::Dimensionless)) {
+                    (Some(i), Some(u)) => out.push((i, u)),
+                    (None, _) => ck.err(&k, format!("component `{id}` is not in this composition")),
+                    _ => {}
+                }
+            }
+        }
+    }
+    out
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    fn run(text: &str) -> Result<Report, LocatedErrors> {
+        Case::check(Arc::new(SourceText::new("case.toml", text)))?.run()
+    }
+
+    /// Found by the hostile-input property test (tests/it/hostile.rs): an absurd relative
+    /// uncertainty overflowed the propagation and the JSON report carried `null` for the
+    /// combined uncertainty. It is now an error located at the input.
+    #[test]
+    fn overflowing_uncertainty_is_a_located_error() {
+        let case = |u: &str| {
+            format!(
+                "[[feed]]\nflow = \"38.5 kmol/h\"\ntemperature = \"46.5 degC\"\ncomposition = {{ water = 1.0 }}\nflow_uncertainty = \"{u}\"\n[effluent]\ntemperature = \"63.4 degC\"\n[heater]\nheat_loss = \"6 kW\"\n[solve]\nunknown = \"duty\"\n"
+            )
+        };
+        let ok = run(&case("1 %")).unwrap();
+        assert!(ok.uncertainty.as_ref().is_some_and(|u| u.standard_uncertainty.is_finite()));
+        let err = run(&case("1e308 %")).unwrap_err();
+        assert_eq!(err.0.len(), 1);
+        let e = &err.0[0];
+        assert_eq!(
+            e.location.key.as_ref().map(ToString::to_string).as_deref(),
+            Some("feed[1].flow_uncertainty")
+        );
+        assert_eq!(e.location.line_col.map(|(l, _)| l), Some(5));
+        assert!(e.message.contains("too large"), "{e}");
+    }
+}
