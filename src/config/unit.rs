@@ -57,13 +57,7 @@ pub(crate) fn check_unit(
     let base = src.path.parent().map(Path::to_path_buf).unwrap_or_default();
     let (time_zone, time_zone_name) = match &raw.time_zone {
         None => (site_tz.clone(), site_tz_name.to_string()),
-        Some(z) => match parse_time_zone(z) {
-            Ok(tz) => (tz, z.clone()),
-            Err(e) => {
-                ck.err(&key.key("time_zone"), e);
-                (TimeZone::UTC, "UTC".into())
-            }
-        },
+        Some(z) => unit_time_zone(ck, &key.key("time_zone"), z),
     };
     let input = input(ck, &key.key("input"), &raw.input, &base, &time_zone);
     let (interval_ms, max_wait_ms, mut tags) = timing(ck, &key.key("timing"), &raw.timing);
@@ -146,6 +140,17 @@ fn unit_name(ck: &mut Checker<'_>, key: &KeyPath, name: Option<&String>) -> Stri
         None => {
             ck.err(key, "name is required");
             "unit".into()
+        }
+    }
+}
+
+/// The unit's own time zone and its name (UTC when it does not resolve).
+fn unit_time_zone(ck: &mut Checker<'_>, key: &KeyPath, name: &str) -> (TimeZone, String) {
+    match parse_time_zone(name) {
+        Ok(tz) => (tz, name.to_string()),
+        Err(e) => {
+            ck.err(key, e);
+            (TimeZone::UTC, "UTC".into())
         }
     }
 }

@@ -607,33 +607,7 @@ fn unknown(ck: &mut Checker<'_>, raw: &RawCase, conversions: &[Option<f64>]) -> 
             need_conversions(ck, "duty");
             Unknown::Duty
         }
-        "conversion" => {
-            if !has_temperature {
-                ck.err(
-                    &KeyPath::keys("effluent"),
-                    "[effluent] temperature is required when solving for the conversion",
-                );
-            }
-            if !has_duty {
-                ck.err(&KeyPath::keys("heater"), "[heater] duty is required when solving for the conversion");
-            }
-            if raw.reaction.is_empty() {
-                ck.err(&solve_key, "solving for the conversion needs a [[reaction]]");
-            }
-            match missing_conv.as_slice() {
-                [r] => Unknown::Conversion(*r),
-                [] => {
-                    if !raw.reaction.is_empty() {
-                        ck.err(&solve_key, "every reaction has a conversion: remove the one to solve for");
-                    }
-                    Unknown::Conversion(0)
-                }
-                _ => {
-                    ck.err(&solve_key, "more than one reaction lacks a conversion: give all but one");
-                    Unknown::Conversion(0)
-                }
-            }
-        }
+        "conversion" => solve_for_conversion(ck, raw, has_duty, has_temperature, &missing_conv),
         other => {
             ck.err(&solve_key, format!("unknown `{other}`; use \"temperature\", \"duty\" or \"conversion\""));
             Unknown::Temperature
@@ -648,6 +622,42 @@ fn unknown(ck: &mut Checker<'_>, raw: &RawCase, conversions: &[Option<f64>]) -> 
         );
     }
     unknown
+}
+
+/// `[solve] unknown = "conversion"`: the one reaction without a conversion.
+fn solve_for_conversion(
+    ck: &mut Checker<'_>,
+    raw: &RawCase,
+    has_duty: bool,
+    has_temperature: bool,
+    missing_conv: &[usize],
+) -> Unknown {
+    let solve_key = KeyPath::keys("solve.unknown");
+    if !has_temperature {
+        ck.err(
+            &KeyPath::keys("effluent"),
+            "[effluent] temperature is required when solving for the conversion",
+        );
+    }
+    if !has_duty {
+        ck.err(&KeyPath::keys("heater"), "[heater] duty is required when solving for the conversion");
+    }
+    if raw.reaction.is_empty() {
+        ck.err(&solve_key, "solving for the conversion needs a [[reaction]]");
+    }
+    match missing_conv {
+        [r] => Unknown::Conversion(*r),
+        [] => {
+            if !raw.reaction.is_empty() {
+                ck.err(&solve_key, "every reaction has a conversion: remove the one to solve for");
+            }
+            Unknown::Conversion(0)
+        }
+        _ => {
+            ck.err(&solve_key, "more than one reaction lacks a conversion: give all but one");
+            Unknown::Conversion(0)
+        }
+    }
 }
 
 /// The uncertainties of the duty, the heat loss and the measured effluent temperature (the
