@@ -100,7 +100,7 @@ FAMILIES = {
         "sign": "endothermic",
         "reaction": {"name": "ethyl acetate hydrolysis", "key": "ethyl-acetate",
                      "nu": {"ethyl-acetate": -1, "water": -1, "acetic-acid": 1, "ethanol": 1}},
-        "X": (0.20, 0.45), "T_out": (322.0, 342.0), "rise": (18.0, 35.0),
+        "X": (0.20, 0.45), "T_out": (320.0, 338.0), "rise": (18.0, 35.0),
         "feeds": {
             "ester feed": lambda r: (_rest({"ethyl-acetate": r.uniform(0.12, 0.22),
                                             "ethanol": r.uniform(0.01, 0.04), "water": 0}, "water"), (25.0, 40.0)),
@@ -137,7 +137,7 @@ FAMILIES = {
         "sign": "exothermic",
         "reaction": {"name": "acetic acid esterification with ethanol", "key": "acetic-acid",
                      "nu": {"acetic-acid": -1, "ethanol": -1, "ethyl-acetate": 1, "water": 1}},
-        "X": (0.30, 0.60), "T_out": (322.0, 342.0), "rise": (15.0, 35.0),
+        "X": (0.30, 0.60), "T_out": (320.0, 338.0), "rise": (15.0, 35.0),
         "feeds": {
             "mixed feed": lambda r: (_rest({"acetic-acid": r.uniform(0.30, 0.40), "ethanol": r.uniform(0.40, 0.50),
                                             "water": 0}, "water"), (25.0, 40.0)),
@@ -156,7 +156,7 @@ FAMILIES = {
         "sign": "exothermic",
         "reaction": {"name": "ethylene oxide hydration", "key": "ethylene-oxide",
                      "nu": {"ethylene-oxide": -1, "water": -1, "ethylene-glycol": 1}},
-        "X": (0.82, 0.92), "T_out": (350.0, 400.0), "rise": (8.0, 25.0),
+        "X": (0.82, 0.92), "T_out": (350.0, 400.0), "rise": (15.0, 35.0),
         "feeds": {
             "premixed feed": lambda r: (_rest({"ethylene-oxide": r.uniform(0.05, 0.08), "water": 0}, "water"),
                                         (15.0, 30.0)),
@@ -204,7 +204,7 @@ def to_unit(si, unit):
 # ----------------------------------------------------------------------------------------------
 def draw_plant(seed: int, index: int) -> dict:
     r = np.random.default_rng([seed, index, 0])
-    fam_name = list(FAMILIES)[index % len(FAMILIES)] if index < len(FAMILIES) else r.choice(list(FAMILIES))
+    fam_name = list(FAMILIES)[index % len(FAMILIES)]  # families in turn: every five plants cover all
     fam = FAMILIES[fam_name]
     site = f"{r.choice(SITE_A)}{r.choice(SITE_B)} works"
     area = int(r.integers(11, 89))
@@ -328,14 +328,14 @@ def draw_plant(seed: int, index: int) -> dict:
     plant["Q0"] = float(Q_true)
     plant["heat_loss_true_w"] = float(UA * (T_target - Tamb_K))
     plant["heat_loss_cfg_w"] = float(plant["heat_loss_true_w"] * plant["heat_loss_cfg_err"])
-    # pressure: Raoult bubble point of the design effluent (tools/xcheck/model.py) >= T_target + 25 K
+    # pressure: Raoult bubble point of the design effluent (tools/xcheck/model.py) >= T_target + 40 K
     n_out = sim.n_out_design(X)
     xo = {c: float(v / n_out.sum()) for c, v in zip(sim.ids, n_out) if v > 0}
     comps = {c: xmodel.build_comp(c, None) for c in xo}
     P = 2.0e5
     for _ in range(40):
         tb = xmodel.bubble_point(comps, xo, P)
-        if tb is not None and tb > T_target + 25.0:
+        if tb is not None and tb > T_target + 40.0:
             break
         P *= 1.25
     plant["pressure"] = float(round(P * r.uniform(1.0, 1.3) / 1e4) * 1e4)
@@ -759,7 +759,7 @@ def simulate(plant, fault, r):
             for i, c in enumerate(ids):
                 if c in fd["an_tags"]:
                     cols[fd["an_tags"][c]] = (held[i], 2)
-    cols[plant["duty_tag"]] = (to_unit(D_rep, plant["duty_unit"]), 1 if plant["duty_unit"] == "kW" else 4)
+    cols[plant["duty_tag"]] = (to_unit(D_rep, plant["duty_unit"]), flow_decimals(None, np.median(to_unit(D_rep, plant["duty_unit"]))))
     cols[plant["eff_T_tag"]] = (quant(to_unit(T_eff_rep, plant["temp_unit"]), plant["eff_T_q"]), 2)
     if plant["pressure_tag"]:
         P = plant["pressure"] * (1 + ou(r, N, 0.004, 60.0))
@@ -829,13 +829,8 @@ def quant(v, q):
 
 
 def flow_decimals(unit, typical):
-    if typical >= 1000:
-        return 0
-    if typical >= 100:
-        return 1
-    if typical >= 10:
-        return 2
-    return 3
+    """about five significant digits, as a plant data system shows them"""
+    return int(max(0, 4 - math.floor(math.log10(max(abs(typical), 1e-6)))))
 
 
 def analyzer(r, frac, cycle, noise_pct, N):
