@@ -150,7 +150,8 @@ def score_run(run_dir):
         for e in events:
             if e["_t"] > rem:
                 break
-            if e["event"] == "raised" and on <= e["_t"] and not gap_explained(e):
+            if (e["event"] == "raised" and on <= e["_t"] and not gap_explained(e)
+                    and (e["cause"] in f["expected_causes"] or base_tag(e.get("subject")) in f["tags"])):
                 active[e["alert_id"]] = e
             elif e["event"] == "cleared":
                 active.pop(e["alert_id"], None)
@@ -196,6 +197,7 @@ def aggregate(results):
         a = {"runs": len(rs), "detected": len(det),
              "median_delay_h": quantile(delays, 0.5), "p90_delay_h": quantile(delays, 0.9),
              "right_cause_first": sum(r["right_cause_first"] for r in rs),
+             "median_right_cause_delay_h": quantile([r["right_cause_delay_h"] for r in rs if "right_cause_delay_h" in r], 0.5),
              "right_cause_ever": sum(r["right_cause_ever"] for r in rs),
              "first_causes": dict(sorted(firsts.items(), key=lambda kv: -kv[1])),
              "expected": plants.EXPECTED_CAUSE[k]}
@@ -258,14 +260,15 @@ def tables(agg, meta):
       "drifting meter: 2 % of reading); negative = raised before that moment. The first alert is the first "
       "raised after onset (data_quality alerts at a recorded data gap are not counted anywhere).\n")
     a("## Faults\n")
-    a("| fault | runs | detected | median delay h | p90 delay h | right cause first | right cause ever | right tag | cleared ≤ 1 h after removal | first causes |")
-    a("|---|---|---|---|---|---|---|---|---|---|")
+    a("| fault | runs | detected | median delay h | p90 delay h | right cause first | right cause ever | median delay to right cause h | right tag | cleared ≤ 1 h after removal | first causes |")
+    a("|---|---|---|---|---|---|---|---|---|---|---|")
     for k, s in agg["faults"].items():
         rt = pct(s["right_tag"], s["runs"]) if "right_tag" in s else "–"
         cl = pct(s["cleared_1h"], s["active_at_removal"]) if "cleared_1h" in s else "–"
         fc = ", ".join(f"{c} {n}" for c, n in s["first_causes"].items()) or "–"
         a(f"| {k} | {s['runs']} | {pct(s['detected'], s['runs'])} | {fmt_h(s['median_delay_h'])} | "
           f"{fmt_h(s['p90_delay_h'])} | {pct(s['right_cause_first'], s['runs'])} | {pct(s['right_cause_ever'], s['runs'])} | "
+          f"{fmt_h(s['median_right_cause_delay_h'])} | "
           f"{rt} | {cl} | {fc} |")
     fz = agg["faults"].get("analyzer_frozen")
     if fz and fz["runs"]:
@@ -273,7 +276,8 @@ def tables(agg, meta):
     a("\nExpected causes: fouling → heater_fouling; conversion → conversion_drift; thermometer bias, stuck or "
       "drifting flow meter → instrument_fault; frozen analyzer → instrument_fault or data_quality; heat loss → heat_loss. "
       "Right tag: the first alert after onset that names one of the plant's tags names the faulty one (% of all runs). "
-      "Cleared: every alert raised during the bias and still active at its removal clears within 1 h (of runs with such an alert).\n")
+      "Cleared: every alert raised during the bias with the expected cause or naming the faulty tag, and still active at "
+      "its removal, clears within 1 h (of runs with such an alert).\n")
     a("## False alerts per plant-day\n")
     a("| period | runs | plant-days | " + " | ".join(CAUSES) + " | total | data_quality at recorded gaps (not counted) |")
     a("|---|---|---|" + "---|" * len(CAUSES) + "---|---|")
