@@ -1,6 +1,6 @@
 //! A small, strict RFC 5424 parser for the tests: it checks what our formatter promises
 //! (header field sets and lengths, SD-ID and SD-NAME characters, escapes, the BOM) and gives
-//! the fields back. Shared by the unit tests of `src/forward.rs` (through `#[path]`) and the
+//! the fields back. Shared by the unit tests of `src/sinks/syslog/mod.rs` (through `#[path]`) and the
 //! collector tests in `tests/it/forward.rs`.
 #![allow(dead_code)]
 
