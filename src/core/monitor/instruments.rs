@@ -45,6 +45,14 @@ pub(super) struct Instruments {
 const SIGMA_WITHOUT_BASELINE: f64 = 0.5 / 3.0;
 
 impl Instruments {
+    /// Forget the spike and flatline windows (after a pause or a gap); recent spikes stay.
+    pub(super) fn forget_windows(&mut self) {
+        self.recent_resid.clear();
+        self.recent_pred.clear();
+        self.recent_meas.clear();
+        self.recent_tags.clear();
+    }
+
     /// Spikes and flatlines: flags a spike in `flags`, raises and clears in `active`.
     pub(super) fn check(
         &mut self,

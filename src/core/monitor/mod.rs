@@ -10,6 +10,7 @@
 //!   and block accumulation;
 //! * `baseline`: [`Baseline`] and learning it from steady data;
 //! * `instruments`: spikes (Hampel filter), stuck transmitters, thermometer and meter steps;
+//! * `analyzers`: each analyzer's update cadence, learnt from the data, and frozen analyzers;
 //! * `attribution`: judging a completed block ([`BlockRecord`]): the charts, heat loss,
 //!   heater fouling against a conversion drift, and when a condition has cleared;
 //! * `active`: the conditions the monitor holds with its own hysteresis;
@@ -31,6 +32,7 @@ pub mod ssd;
 pub mod stats;
 
 mod active;
+mod analyzers;
 mod attribution;
 mod baseline;
 mod instruments;

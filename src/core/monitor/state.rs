@@ -15,6 +15,7 @@ use std::collections::VecDeque;
 use serde::{Deserialize, Serialize};
 
 use super::active::Held;
+use super::analyzers::Analyzers;
 use super::attribution::{Attribution, BlockRecord, Charts, Watch};
 use super::baseline::{Baseline, LearnRow};
 use super::dynamics::Fopdt;
@@ -136,6 +137,9 @@ impl Acc {
     }
 }
 
+/// A silence longer than this many intervals is a gap in the data.
+const GAP_INTERVALS: i64 = 3;
+
 /// The monitor of one unit.
 ///
 /// Its serialized form is part of the checkpoint: the grouped parts are flattened, so that the
@@ -164,6 +168,12 @@ pub struct Monitor {
     steps: StepWindow,
     /// The last computed effectiveness trend, for reports.
     pub trend: Option<Trend>,
+    /// End of the last interval with a prediction, ms (a longer silence is a data gap).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    last_end_ms: Option<i64>,
+    /// Update cadence and freezes of the unit's analyzers.
+    #[serde(default, skip_serializing_if = "Analyzers::is_empty")]
+    analyzers: Analyzers,
 }
 
 /// What the monitor produced for one interval.
@@ -197,6 +207,8 @@ impl Monitor {
             attribution: Attribution::default(),
             steps: StepWindow::default(),
             trend: None,
+            last_end_ms: None,
+            analyzers: Analyzers::default(),
         }
     }
 
@@ -227,6 +239,13 @@ impl Monitor {
             self.active.emit(&mut out.conditions);
             return out;
         };
+        // After a gap in the data nothing carries across it: the lag filter, the instrument
+        // windows and the charts start again from the first intervals after it, and the
+        // monitor settles as after any other pause.
+        if self.last_end_ms.is_some_and(|t| e.end_ms - t > GAP_INTERVALS * unit.interval_ms) {
+            self.pause();
+        }
+        self.last_end_ms = Some(e.end_ms);
         let pred = self.fopdt.step(pred_ss);
         e.predicted_k = Some(pred);
         let r = meas - pred;
@@ -244,6 +263,7 @@ impl Monitor {
         let baseline = self.baseline.as_ref();
         self.instruments.check(cfg, unit, baseline, &reading, &mut self.active, &mut out.flags);
         self.steps.check(cfg, unit, baseline, self.fopdt.a, &reading, &mut self.active);
+        self.analyzers.check(unit, e.end_ms, &e.signals.tag_values_si, &mut self.active);
 
         if !self.steady(cfg, e, meas, r) {
             // Statistics freeze; a partial block is kept (the residual of a good model is
@@ -339,6 +359,11 @@ impl Monitor {
         self.acc = Acc::default();
         self.fopdt.reset();
         self.settle_until_ms = None;
+        // The step and flatline windows compare intervals with each other: never across a
+        // pause (the plant may come back at another operating point).
+        self.steps = StepWindow::default();
+        self.instruments.forget_windows();
+        self.analyzers.forget_changes();
     }
 
     fn gross_check(&mut self, cfg: &MonitorConfig, r: f64, out: &mut MonitorOutput) {
@@ -487,6 +512,30 @@ mod tests {
         assert_eq!(r.len(), 3, "{r:?}");
     }
 
+    /// A day without data: the plant came back at another operating point. The lag filter
+    /// starts from the first prediction after the gap (not from the day before), the monitor
+    /// settles, and nothing is compared across the gap: no false alert.
+    #[test]
+    fn after_a_day_without_data_the_monitor_restarts_without_a_false_alert() {
+        let mut plant = Plant::new();
+        let p0 = Point::nominal();
+        let _ = plant.states(p0, 200);
+        assert!(plant.monitor.baseline.is_some());
+        let mut p1 = p0;
+        p1.duty = 36_000.0;
+        p1.pred = p1.feed_t + p1.duty / (p1.feed * super::super::tests::CP);
+        plant.k += 1440;
+        plant.dynamics = Fopdt::new(plant.cfg.dead_time_ms, plant.cfg.lag_ms, plant.unit.interval_ms);
+        let _ = plant.dynamics.step(p1.pred);
+        let (e, out) = plant.run(p1);
+        assert!((e.predicted_k.unwrap() - p1.pred).abs() < 1e-9, "the filter restarted from the new point");
+        assert_eq!(out.state, MonitorState::Settling);
+        for _ in 0..600 {
+            let (_, out) = plant.run(p1);
+            assert!(out.conditions.is_empty(), "{:?}", out.conditions);
+        }
+    }
+
     #[test]
     fn no_prediction_or_a_feed_below_its_minimum_pauses_the_monitor() {
         let mut plant = Plant::new();
@@ -533,10 +582,14 @@ mod tests {
     const FIXTURE: &str = include_str!("fixtures/monitor-before-split.json");
 
     #[test]
-    fn a_checkpoint_of_the_build_before_the_split_loads_and_is_written_the_same() {
+    fn a_checkpoint_of_the_build_before_the_split_loads_and_is_written_the_same_plus_the_gap_clock() {
         let fixture = FIXTURE.trim_end();
-        // The same intervals give the same monitor, written to the byte as before.
-        assert_eq!(serde_json::to_string(&fixture_monitor()).unwrap(), fixture);
+        // The same intervals give the same monitor, written to the byte as before, with one
+        // field more at the end: the end of the last interval (gap detection).
+        let now = serde_json::to_string(&fixture_monitor()).unwrap();
+        let (head, tail) = now.rsplit_once(",\"last_end_ms\":").unwrap();
+        assert_eq!(format!("{head}}}"), fixture);
+        assert!(tail.trim_end_matches('}').parse::<i64>().is_ok());
         // What that build wrote loads, and is written back with the same fields in the same
         // order (compared through serde_json's own reading of the numbers, which is not exact
         // to the last bit for every decimal).

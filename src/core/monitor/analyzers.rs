@@ -1,0 +1,238 @@
+//! Analyzer health: each analyzer's update cadence, learnt from the data, and a frozen
+//! analyzer.
+//!
+//! An online analyzer reports a new result once per analysis cycle, and the export holds it
+//! until the next one; a result that is "never stale" because the export repeats it is the
+//! normal case. The results of a working analyzer change at every update (their own noise is
+//! far above the reporting resolution), so the time between changes of any of its components
+//! is its cycle. An analyzer whose results have not changed for two and a half of its cycles
+//! (and for longer than the longest wait seen recently) has missed at least two updates: it is
+//! frozen, and raised as an instrument fault naming its tags. It clears at the next change.
+//! An outage (no values) is the staleness checks' business and restarts the clock.
+
+use std::collections::VecDeque;
+
+use serde::{Deserialize, Serialize};
+
+use super::active::{Held, ev, round};
+use super::stats;
+use crate::core::spec::{Signal, UnitSpec};
+use crate::core::vocabulary::{Cause, Severity};
+
+/// Updates needed before the cadence is trusted.
+const MIN_UPDATES: usize = 8;
+/// Recent waits between updates kept for the cadence.
+const KEEP: usize = 30;
+/// A freeze is called after this many cycles without a change.
+const CYCLES: f64 = 2.5;
+
+/// One analyzer: the tags it reports and its recent updates.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+struct Group {
+    /// What it analyses ("effluent", or a feed's name).
+    stream: String,
+    /// Its tags (indices into the unit's tags).
+    tags: Vec<usize>,
+    /// The values last seen.
+    last: Vec<Option<f64>>,
+    /// When they last changed, ms (`None` until a change is seen after an outage or a gap).
+    last_change_ms: Option<i64>,
+    /// Recent waits between changes, ms.
+    waits: VecDeque<i64>,
+}
+
+/// The analyzers of a unit (serialized as a plain list).
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+#[serde(transparent)]
+pub(super) struct Analyzers(Vec<Group>);
+
+/// The analyzers a unit has: one per analysed stream, with at least one tag.
+fn groups(unit: &UnitSpec) -> Vec<(String, Vec<usize>)> {
+    let tags = |sigs: &[Signal]| -> Vec<usize> {
+        sigs.iter()
+            .filter_map(|s| match s {
+                Signal::Tag(i) => Some(*i),
+                Signal::Fixed { .. } => None,
+            })
+            .collect()
+    };
+    let mut out: Vec<(String, Vec<usize>)> = Vec::new();
+    for f in &unit.feeds {
+        out.push((f.name.clone(), tags(&f.composition)));
+    }
+    if let Some((sigs, _)) = &unit.effluent_composition {
+        out.push(("effluent".to_string(), tags(sigs)));
+    }
+    out.retain(|(_, t)| !t.is_empty());
+    out
+}
+
+impl Analyzers {
+    /// Nothing learnt yet (not written to the checkpoint then).
+    pub(super) fn is_empty(&self) -> bool {
+        self.0.is_empty()
+    }
+
+    /// After a pause or a gap: the next change starts the clock again.
+    pub(super) fn forget_changes(&mut self) {
+        for g in &mut self.0 {
+            g.last_change_ms = None;
+        }
+    }
+
+    /// One interval's tag values (SI): learn the cadences, raise and clear frozen analyzers.
+    pub(super) fn check(&mut self, unit: &UnitSpec, now: i64, values: &[Option<f64>], active: &mut Held) {
+        let wanted = groups(unit);
+        if self.0.len() != wanted.len() || self.0.iter().zip(&wanted).any(|(g, w)| g.tags != w.1) {
+            self.0 = wanted
+                .into_iter()
+                .map(|(stream, tags)| Group {
+                    stream,
+                    last: vec![None; tags.len()],
+                    tags,
+                    ..Group::default()
+                })
+                .collect();
+        }
+        for g in &mut self.0 {
+            g.step(unit, now, values, active);
+        }
+    }
+}
+
+impl Group {
+    fn subject(&self, unit: &UnitSpec) -> String {
+        format!("{}:frozen", unit.tags[self.tags[0]].name)
+    }
+
+    fn step(&mut self, unit: &UnitSpec, now: i64, values: &[Option<f64>], active: &mut Held) {
+        let cur: Vec<Option<f64>> = self.tags.iter().map(|i| values.get(*i).copied().flatten()).collect();
+        let subject = self.subject(unit);
+        if cur.iter().any(Option::is_none) {
+            self.last_change_ms = None;
+            self.last = cur;
+            return;
+        }
+        let changed = cur.iter().zip(&self.last).any(|(c, l)| match (c, l) {
+            (Some(c), Some(l)) => (c - l).abs() > 1e-12 * c.abs().max(1e-6),
+            _ => true,
+        });
+        self.last = cur;
+        if changed {
+            if let Some(t) = self.last_change_ms {
+                self.waits.push_back(now - t);
+                while self.waits.len() > KEEP {
+                    self.waits.pop_front();
+                }
+            }
+            self.last_change_ms = Some(now);
+            active.retain(|a| !(a.cause == Cause::InstrumentFault && a.subject == subject));
+            return;
+        }
+        let (Some(since), true) = (self.last_change_ms, self.waits.len() >= MIN_UPDATES) else { return };
+        let waits: Vec<f64> = self.waits.iter().map(|w| *w as f64).collect();
+        let cycle = stats::median(&waits);
+        let longest = waits.iter().copied().fold(0.0, f64::max);
+        let waited = (now - since) as f64;
+        if waited > (CYCLES * cycle).max(1.25 * longest) {
+            self.raise(unit, &subject, cycle, waited, now, active);
+        }
+    }
+
+    fn raise(&self, unit: &UnitSpec, subject: &str, cycle: f64, waited: f64, now: i64, active: &mut Held) {
+        let names: Vec<&str> = self.tags.iter().map(|i| unit.tags[*i].name.as_str()).collect();
+        let (cycle_min, waited_min) = (cycle / 60_000.0, waited / 60_000.0);
+        let message = format!(
+            "The {} analyzer ({}) has reported the same results for {waited_min:.0} min, {:.1} of its usual {cycle_min:.0}-min cycles: it looks frozen; check it before trusting the composition it reports.",
+            self.stream,
+            names.join(", "),
+            waited / cycle
+        );
+        let evidence = ev(&[
+            ("tags", names.join(",").into()),
+            ("cycle_minutes", round(cycle_min, 1)),
+            ("unchanged_minutes", round(waited_min, 0)),
+        ]);
+        active.raise(
+            Cause::InstrumentFault,
+            subject,
+            Severity::Medium,
+            message,
+            waited / cycle,
+            now,
+            evidence,
+        );
+    }
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+    use crate::rng::Rng;
+
+    /// The monitor's test unit with a feed analyzer (two tags, in mol%).
+    fn unit() -> UnitSpec {
+        crate::core::tests::unit_spec(
+            r#"{ water = { tag = "AI-104A", unit = "%" }, methyl_acetate = { tag = "AI-104B", unit = "%" } }
+normalize = true"#,
+            "",
+        )
+    }
+
+    const MIN: i64 = 60_000;
+
+    /// The analyzer tags of the test unit and a row of values with them updated every
+    /// `cycle` minutes (with noise), held in between; frozen from minute `freeze` on.
+    fn run(cycle: i64, freeze: i64, minutes: i64) -> Vec<(i64, bool)> {
+        let u = unit();
+        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.1).collect();
+        assert!(!tags.is_empty(), "the test unit has an analyzer");
+        let mut rng = Rng::new(7);
+        let mut a = Analyzers::default();
+        let mut held = Held::default();
+        let mut values = vec![Some(1.0); u.tags.len()];
+        let mut out = Vec::new();
+        for m in 0..minutes {
+            if m % cycle == 0 && m < freeze {
+                for i in &tags {
+                    values[*i] = Some(0.3 + 0.003 * rng.normal());
+                }
+            }
+            a.check(&u, m * MIN, &values, &mut held);
+            out.push((m, held.iter().any(|x| x.subject.ends_with(":frozen"))));
+        }
+        out
+    }
+
+    #[test]
+    fn a_working_analyzer_is_never_called_frozen() {
+        assert!(run(10, i64::MAX, 3000).iter().all(|(_, f)| !f));
+    }
+
+    #[test]
+    fn a_frozen_analyzer_is_found_within_three_cycles_and_clears_when_it_updates() {
+        let got = run(10, 2000, 2100);
+        let first = got.iter().find(|(_, f)| *f).map(|(m, _)| *m).unwrap();
+        // The last update was at minute 1990; three cycles later is minute 2020.
+        assert!((2010..=2020).contains(&first), "raised at minute {first}");
+        assert!(got.iter().filter(|(m, _)| *m < 2000).all(|(_, f)| !f));
+    }
+
+    #[test]
+    fn an_outage_restarts_the_clock_instead_of_calling_a_freeze() {
+        let u = unit();
+        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.1).collect();
+        let mut a = Analyzers::default();
+        let mut held = Held::default();
+        let mut values = vec![Some(1.0); u.tags.len()];
+        for m in 0..400 {
+            let on = !(200..300).contains(&m);
+            for i in &tags {
+                values[*i] = on.then_some(0.3 + 1e-3 * (m / 10) as f64);
+            }
+            a.check(&u, m * MIN, &values, &mut held);
+            assert!(held.is_empty(), "minute {m}");
+        }
+    }
+}
