@@ -8,7 +8,9 @@
 //! is its cycle. An analyzer whose results have not changed for two and a half of its cycles
 //! (and for longer than the longest wait seen recently) has missed at least two updates: it is
 //! frozen, and raised as an instrument fault naming its tags. It clears at the next change.
-//! An outage (no values) is the staleness checks' business and restarts the clock.
+//! An outage (no values) is the staleness checks' business and restarts the clock, and an
+//! analyzer whose results stop arriving (the export holds the last one with no new samples)
+//! is stale, not frozen: a freeze is only called in an interval that brought fresh reports.
 
 use std::collections::VecDeque;
 
@@ -80,8 +82,16 @@ impl Analyzers {
         }
     }
 
-    /// One interval's tag values (SI): learn the cadences, raise and clear frozen analyzers.
-    pub(super) fn check(&mut self, unit: &UnitSpec, now: i64, values: &[Option<f64>], active: &mut Held) {
+    /// One interval's tag values (SI) and sample ranges (`None` for a tag with no sample in
+    /// the interval): learn the cadences, raise and clear frozen analyzers.
+    pub(super) fn check(
+        &mut self,
+        unit: &UnitSpec,
+        now: i64,
+        values: &[Option<f64>],
+        ranges: &[Option<(f64, f64)>],
+        active: &mut Held,
+    ) {
         let wanted = groups(unit);
         if self.0.len() != wanted.len() || self.0.iter().zip(&wanted).any(|(g, w)| g.tags != w.1) {
             self.0 = wanted
@@ -95,7 +105,7 @@ impl Analyzers {
                 .collect();
         }
         for g in &mut self.0 {
-            g.step(unit, now, values, active);
+            g.step(unit, now, values, ranges, active);
         }
     }
 }
@@ -105,7 +115,14 @@ impl Group {
         format!("{}:frozen", unit.tags[self.tags[0]].name)
     }
 
-    fn step(&mut self, unit: &UnitSpec, now: i64, values: &[Option<f64>], active: &mut Held) {
+    fn step(
+        &mut self,
+        unit: &UnitSpec,
+        now: i64,
+        values: &[Option<f64>],
+        ranges: &[Option<(f64, f64)>],
+        active: &mut Held,
+    ) {
         let cur: Vec<Option<f64>> = self.tags.iter().map(|i| values.get(*i).copied().flatten()).collect();
         let subject = self.subject(unit);
         if cur.iter().any(Option::is_none) {
@@ -129,7 +146,12 @@ impl Group {
             active.retain(|a| !(a.cause == Cause::InstrumentFault && a.subject == subject));
             return;
         }
-        let (Some(since), true) = (self.last_change_ms, self.waits.len() >= MIN_UPDATES) else { return };
+        // Held by the export with nothing new reported: stale (if it lasts), not frozen.
+        let reported = self.tags.iter().all(|i| ranges.get(*i).is_some_and(Option::is_some));
+        let (Some(since), true, true) = (self.last_change_ms, self.waits.len() >= MIN_UPDATES, reported)
+        else {
+            return;
+        };
         let waits: Vec<f64> = self.waits.iter().map(|w| *w as f64).collect();
         let cycle = stats::median(&waits);
         let longest = waits.iter().copied().fold(0.0, f64::max);
@@ -199,7 +221,8 @@ normalize = true"#,
                     values[*i] = Some(0.3 + 0.003 * rng.normal());
                 }
             }
-            a.check(&u, m * MIN, &values, &mut held);
+            let ranges: Vec<Option<(f64, f64)>> = values.iter().map(|v| v.map(|v| (v, v))).collect();
+            a.check(&u, m * MIN, &values, &ranges, &mut held);
             out.push((m, held.iter().any(|x| x.subject.ends_with(":frozen"))));
         }
         out
@@ -231,8 +254,37 @@ normalize = true"#,
             for i in &tags {
                 values[*i] = on.then_some(0.3 + 1e-3 * (m / 10) as f64);
             }
-            a.check(&u, m * MIN, &values, &mut held);
+            let ranges: Vec<Option<(f64, f64)>> = values.iter().map(|v| v.map(|v| (v, v))).collect();
+            a.check(&u, m * MIN, &values, &ranges, &mut held);
             assert!(held.is_empty(), "minute {m}");
         }
+    }
+
+    #[test]
+    fn results_that_stop_arriving_are_not_a_freeze() {
+        // The export holds the last result, but no sample arrives: staleness, not a freeze.
+        let u = unit();
+        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.1).collect();
+        let mut rng = Rng::new(3);
+        let mut a = Analyzers::default();
+        let mut held = Held::default();
+        let mut values = vec![Some(1.0); u.tags.len()];
+        for m in 0..600 {
+            let fresh = m < 300 && m % 10 == 0;
+            if fresh {
+                for i in &tags {
+                    values[*i] = Some(0.3 + 0.003 * rng.normal());
+                }
+            }
+            let ranges: Vec<Option<(f64, f64)>> = (0..values.len())
+                .map(|i| if tags.contains(&i) && !fresh { None } else { values[i].map(|v| (v, v)) })
+                .collect();
+            a.check(&u, m * MIN, &values, &ranges, &mut held);
+            assert!(held.is_empty(), "minute {m}");
+        }
+        // The same results reported again after all that is a freeze.
+        let ranges: Vec<Option<(f64, f64)>> = values.iter().map(|v| v.map(|v| (v, v))).collect();
+        a.check(&u, 600 * MIN, &values, &ranges, &mut held);
+        assert!(held.iter().any(|x| x.subject.ends_with(":frozen")));
     }
 }

@@ -263,7 +263,13 @@ impl Monitor {
         let baseline = self.baseline.as_ref();
         self.instruments.check(cfg, unit, baseline, &reading, &mut self.active, &mut out.flags);
         self.steps.check(cfg, unit, baseline, self.fopdt.a, &reading, &mut self.active);
-        self.analyzers.check(unit, e.end_ms, &e.signals.tag_values_si, &mut self.active);
+        self.analyzers.check(
+            unit,
+            e.end_ms,
+            &e.signals.tag_values_si,
+            &e.signals.tag_ranges_si,
+            &mut self.active,
+        );
 
         if !self.steady(cfg, e, meas, r) {
             // Statistics freeze; a partial block is kept (the residual of a good model is
