@@ -11,6 +11,7 @@ use serde::{Deserialize, Serialize};
 use super::active::{Active, Held, ev, explains_deviation, round};
 use super::baseline::Baseline;
 use super::charts::{Cusum, Ewma, Side};
+use super::ranking::{self, Candidate, Ranking, Row as RankRow};
 use super::settings::MonitorConfig;
 use super::stats::{self, LineFit};
 use super::trend::{Trend, fit_trend};
@@ -219,14 +220,13 @@ impl Watch<'_> {
         // 2. A drift or sustained shift: charts signal without a step signature.
         let signals = self.signals(&rec, &charted);
         let signal = signals.conv_measured_shift || signals.residual_material;
-        let step_active = self.active.iter().any(|a| a.step_k().is_some());
         if signal && self.attribution.episode_ms.is_none() {
             // The episode began when the residual first left its band, not at the signal.
             let start =
                 self.history.iter().rev().take_while(|h| h.z.abs() >= 1.0).last().map_or(now, |h| h.end_ms);
             self.attribution.episode_ms = Some(start - self.b.block as i64 * unit.interval_ms);
         }
-        if signal && !step_active {
+        if signal {
             self.attribute_drift(now, signals);
         }
         // 3. Hysteresis: conditions clear after clean blocks.
@@ -344,18 +344,24 @@ impl Watch<'_> {
     }
 
     fn attribute_drift(&mut self, now: i64, signals: ChartSignals) {
-        let (cfg, unit, b) = (self.cfg, self.unit, self.b);
+        let (cfg, b) = (self.cfg, self.b);
         let last = self.history.back().cloned();
         let Some(last) = last else { return };
-        // An active instrument fault (the thermometer, or a frozen input) already explains the
+        // A frozen input (a stuck transmitter, a frozen analyzer) already explains the
         // deviation: no second explanation of the same thing.
-        let thermometer = &unit.tags[unit.effluent_temperature].name;
         if self.active.iter().any(|a| {
-            a.cause == Cause::InstrumentFault && (a.subject == *thermometer || a.subject.ends_with(":stuck"))
+            a.cause == Cause::InstrumentFault
+                && (a.subject.ends_with(":stuck") || a.subject.ends_with(":frozen"))
         }) {
             return;
         }
-        let dev_k = last.residual - b.mu;
+        // A held instrument step is taken out of the residual; what is left is judged on its
+        // own (a bias that arrives during a slow drift must not hide the drift).
+        let offset = self.step_offset(last.end_ms);
+        let dev_k = last.residual - offset - b.mu;
+        if offset != 0.0 && (dev_k / b.sigma).abs() < cfg.clear_z {
+            return;
+        }
         if self.heat_loss(&last, dev_k, now) {
             return;
         }
@@ -366,38 +372,93 @@ impl Watch<'_> {
         if self.measured_conversion(&last, dev_k, now, signals, eff_drop) {
             return;
         }
-        let verdict = self.separation(now);
+        let ranking = self.ranking(now, true);
+        let verdict = match &ranking {
+            Ok(r) => r.named().map(Candidate::cause).ok_or("no cause is clearly ahead of the others"),
+            Err(e) => Err(*e),
+        };
         let verdict = self.attribution.confirm(verdict);
         let verdict = self.standing(verdict, dev_k);
+        let ranked = ranking.as_ref().ok();
+        let said = ranked.map_or_else(String::new, |r| format!(" ({})", r.sentence()));
         match verdict {
             Ok(Cause::HeaterFouling) => {
-                self.raise_fouling(now, "the energy deficit scales with the duty, not with the feed rate")
+                self.raise_fouling(now, &format!("the energy deficit follows the duty{said}"));
             }
-            Ok(_) => {
-                let dx = match (last.conv, b.conv) {
-                    (Some(x), Some((m, _))) => x - m,
-                    _ => 0.0,
+            Ok(Cause::ConversionDrift) => {
+                let change = match (last.conv, b.conv) {
+                    (Some(x), Some((m, s))) => Some((x - m, (x - m) / s)),
+                    _ => None,
                 };
-                let zx = match (last.conv, b.conv) {
-                    (Some(x), Some((m, s))) => (x - m) / s,
-                    _ => 0.0,
-                };
-                self.raise_conversion(
-                    now,
-                    dx,
-                    "the energy deficit scales with the key reactant's feed, not with the duty",
-                    zx,
-                );
+                let why = format!("the energy deviation follows the key reactant's feed{said}");
+                self.raise_conversion(now, change, dev_k, &why);
             }
+            Ok(Cause::HeatLoss) => self.raise_ranked_heat_loss(now, dev_k, &said),
+            Ok(Cause::InstrumentFault) => self.raise_thermometer_drift(now, dev_k, &said),
+            Ok(_) => {}
             Err(why)
                 if eff_drop
                     || signals.conv.is_some()
                     || signals.eff.is_some()
                     || dev_k.abs() / b.sigma >= cfg.enter_z =>
             {
-                self.raise_undetermined(now, dev_k, why);
+                self.raise_undetermined(now, dev_k, why, ranked.map(Ranking::sentence));
             }
             Err(_) => {}
+        }
+        if let Some(r) = ranked {
+            self.annotate(r);
+        }
+    }
+
+    /// The offset of the held instrument steps in a block ending at `end_ms` (a step counts
+    /// from a little before it was raised: the step test looks back 20 intervals).
+    fn step_offset(&self, end_ms: i64) -> f64 {
+        let lead = 30 * self.unit.interval_ms;
+        self.active.iter().filter(|a| end_ms > a.since_ms - lead).filter_map(Active::step_k).sum()
+    }
+
+    /// The candidates ranked over the current episode (at most the separation window).
+    fn ranking(&self, now: i64, conversion: bool) -> Result<Ranking, &'static str> {
+        let (b, unit) = (self.b, self.unit);
+        let since = self.attribution.episode_ms.unwrap_or(i64::MIN).max(now - self.cfg.separation_window_ms);
+        let te = unit.effluent_temperature;
+        let rows: Vec<RankRow> = self
+            .history
+            .iter()
+            .filter(|h| h.end_ms > since)
+            .filter_map(|h| {
+                let c = h.heat_capacity?;
+                Some(RankRow {
+                    tau_h: (h.end_ms - since) as f64 / 3.6e6,
+                    y: (h.residual - self.step_offset(h.end_ms) - b.mu) * c,
+                    duty: h.duty,
+                    key_feed: h.key_feed,
+                    above_ambient: h.ambient.and_then(|a| Some(h.tags.get(te).copied().flatten()? - a)),
+                    heat_capacity: c,
+                })
+            })
+            .collect();
+        if rows.len() < 12 {
+            return Err("there are too few steady blocks since the change");
+        }
+        let mut candidates = vec![Candidate::Fouling, Candidate::HeatLoss, Candidate::Thermometer];
+        if conversion && unit.apparent_reaction.is_some() {
+            candidates.push(Candidate::Conversion);
+        }
+        let c_mean = rows.iter().map(|r| r.heat_capacity).sum::<f64>() / rows.len() as f64;
+        ranking::rank(&rows, b.sigma * c_mean, &candidates)
+            .ok_or("no candidate cause has the inputs it needs")
+    }
+
+    /// Put the ranking into the evidence of the held process explanation.
+    fn annotate(&mut self, r: &Ranking) {
+        for a in
+            self.active.iter_mut().filter(|a| explains_deviation(a.cause) || a.subject.ends_with(":drift"))
+        {
+            a.evidence.insert("cause_probabilities".into(), r.evidence());
+            a.evidence.insert("signature_similarity".into(), round(r.alike, 3));
+            a.evidence.insert("ranking_blocks".into(), r.blocks.into());
         }
     }
 
@@ -461,37 +522,37 @@ impl Watch<'_> {
         let (Some(xm), Some((m, s))) = (last.conv_measured, self.b.conv_measured) else { return false };
         let zx = (xm - m) / s;
         if zx.abs() >= cfg.enter_z || (signals.conv_measured_shift && zx.abs() >= cfg.clear_z) {
-            self.raise_conversion(now, xm - m, "the conversion analyzer confirms it", zx);
+            self.raise_conversion(now, Some((xm - m, zx)), dev_k, "the conversion analyzer confirms it");
         } else if !signals.residual_material {
             // Only the conversion charts spoke, and the conversion is back inside its band
             // now: nothing to explain in the energy balance.
-        } else if eff_drop {
-            self.raise_fouling(now, "the measured conversion is steady");
         } else {
-            self.raise_undetermined(now, dev_k, "the measured conversion is steady and the heater effectiveness too: check the instruments and the heat loss");
+            // The chemistry is measured: rank what is left (fouling, heat loss, a drifting
+            // thermometer) by their signatures.
+            let ranking = self.ranking(now, false).ok();
+            let named = ranking.as_ref().and_then(Ranking::named);
+            let said = ranking.as_ref().map_or_else(String::new, |r| format!(" ({})", r.sentence()));
+            match named {
+                Some(Candidate::Fouling) => {
+                    self.raise_fouling(now, &format!("the measured conversion is steady{said}"));
+                }
+                None if eff_drop && ranking.as_ref().is_none_or(|r| r.fits.first().is_some_and(|f| f.candidate == Candidate::Fouling)) => {
+                    self.raise_fouling(now, &format!("the measured conversion is steady{said}"));
+                }
+                Some(Candidate::HeatLoss) => self.raise_ranked_heat_loss(now, dev_k, &said),
+                Some(Candidate::Thermometer) => self.raise_thermometer_drift(now, dev_k, &said),
+                _ => self.raise_undetermined(
+                    now,
+                    dev_k,
+                    "the measured conversion is steady and the heater effectiveness too: check the instruments and the heat loss",
+                    None,
+                ),
+            }
+            if let Some(r) = &ranking {
+                self.annotate(r);
+            }
         }
         true
-    }
-
-    /// Without an effluent analyzer: a fouling deficit scales with the duty, a conversion
-    /// deficit with the key reactant's feed. Regress the energy residual on both. Only the
-    /// current episode: data from before it (another cause, since cleared) would blur the
-    /// regression.
-    fn separation(&self, now: i64) -> Result<Cause, &'static str> {
-        let b = self.b;
-        let since = self.attribution.episode_ms.unwrap_or(i64::MIN).max(now - self.cfg.separation_window_ms);
-        let win: Vec<&BlockRecord> = self.history.iter().filter(|h| h.end_ms > since).collect();
-        let rows: Vec<(f64, f64, f64, f64)> = win
-            .iter()
-            .filter_map(|h| {
-                Some(((h.residual - b.mu) * h.heat_capacity?, h.duty?, h.key_feed?, h.end_ms as f64 / 3.6e6))
-            })
-            .collect();
-        if rows.len() >= 12 {
-            separate(&rows)
-        } else {
-            Err("there are too few steady blocks since the change")
-        }
     }
 
     /// An attribution already made stands until the data positively support the other cause;
@@ -557,36 +618,57 @@ impl Watch<'_> {
         self.active.raise(Cause::HeaterFouling, "heater", severity, message, loss, now, evidence);
     }
 
-    fn raise_conversion(&mut self, now: i64, dx: f64, why: &str, zx: f64) {
+    /// A conversion change; `change`: the apparent (or measured) conversion's change from its
+    /// baseline and its z-score, when the unit can compute one.
+    fn raise_conversion(&mut self, now: i64, change: Option<(f64, f64)>, dev_k: f64, why: &str) {
         let (unit, b) = (self.unit, self.b);
         let Some(last) = self.history.back().cloned() else { return };
         let key = unit
             .apparent_reaction
             .and_then(|r| unit.system.reactions.get(r))
             .map_or("key reactant".to_string(), |r| unit.system.components[r.key].id.clone());
-        let base = b.conv.or(b.conv_measured).map_or(0.0, |c| c.0);
-        let message = format!(
-            "The {key} conversion has drifted by {dx:+.3} (from {base:.3}) and {why}: check the catalyst activity, residence time and reactor temperature profile; a lab analysis of the effluent would confirm.",
-        );
-        let evidence = ev(&[
-            ("conversion_change", round(dx, 4)),
-            ("baseline_conversion", round(base, 4)),
-            ("z_conversion", round(zx, 2)),
-            ("residual_k", round(last.residual, 3)),
-            ("baseline_k", round(b.mu, 3)),
-        ]);
-        self.active.raise(Cause::ConversionDrift, &key, Severity::Medium, message, dx.abs(), now, evidence);
+        let base = b.conv.or(b.conv_measured).map(|c| c.0);
+        let mut evidence = ev(&[("residual_k", round(last.residual, 3)), ("baseline_k", round(b.mu, 3))]);
+        let (message, magnitude) = match (change, base) {
+            (Some((dx, zx)), Some(base)) => {
+                evidence.insert("conversion_change".into(), round(dx, 4));
+                evidence.insert("baseline_conversion".into(), round(base, 4));
+                evidence.insert("z_conversion".into(), round(zx, 2));
+                (
+                    format!(
+                        "The {key} conversion has drifted by {dx:+.3} (from {base:.3}) and {why}: check the catalyst activity, residence time and reactor temperature profile; a lab analysis of the effluent would confirm."
+                    ),
+                    dx.abs(),
+                )
+            }
+            _ => (
+                format!(
+                    "The effluent runs {:.2} K {} than the model expects and {why}: the {key} conversion has changed; check the catalyst activity, residence time and reactor temperature profile; a lab analysis of the effluent would confirm.",
+                    dev_k.abs(),
+                    if dev_k < 0.0 { "cooler" } else { "warmer" }
+                ),
+                dev_k.abs(),
+            ),
+        };
+        self.active.raise(Cause::ConversionDrift, &key, Severity::Medium, message, magnitude, now, evidence);
     }
 
-    fn raise_undetermined(&mut self, now: i64, dev_k: f64, why: &str) {
+    fn raise_undetermined(&mut self, now: i64, dev_k: f64, why: &str, ranked: Option<String>) {
         let b = self.b;
         let Some(last) = self.history.back().cloned() else { return };
         let dir = if dev_k < 0.0 { "cooler" } else { "hotter" };
-        let message = format!(
-            "The effluent runs {:.2} K {dir} than the model expects ({:+.1} σ), but {why}, so the data cannot tell heater fouling from a conversion change; a lab analysis of the effluent (conversion) would settle it.",
-            dev_k.abs(),
-            last.z
-        );
+        let message = match ranked {
+            Some(r) => format!(
+                "The effluent runs {:.2} K {dir} than the model expects ({:+.1} σ), but {why}: most probable {r}.",
+                dev_k.abs(),
+                last.z
+            ),
+            None => format!(
+                "The effluent runs {:.2} K {dir} than the model expects ({:+.1} σ), but {why}, so the data cannot tell heater fouling from a conversion change; a lab analysis of the effluent (conversion) would settle it.",
+                dev_k.abs(),
+                last.z
+            ),
+        };
         let evidence = ev(&[
             ("residual_k", round(last.residual, 3)),
             ("baseline_k", round(b.mu, 3)),
@@ -595,6 +677,49 @@ impl Watch<'_> {
         self.active.raise(
             Cause::Undetermined,
             "energy balance",
+            Severity::Medium,
+            message,
+            dev_k.abs(),
+            now,
+            evidence,
+        );
+    }
+
+    /// Heat loss named by the ranking (the residual scales with the temperature above
+    /// ambient) before the ambient relation alone is established.
+    fn raise_ranked_heat_loss(&mut self, now: i64, dev_k: f64, said: &str) {
+        let b = self.b;
+        let Some(last) = self.history.back().cloned() else { return };
+        let message = format!(
+            "The effluent runs {:.2} K cooler than the model expects and the missing heat scales with the temperature above ambient{said}: heat is being lost to the surroundings; check the insulation and cladding of the heater and reactor.",
+            dev_k.abs()
+        );
+        let evidence = ev(&[
+            ("residual_k", round(last.residual, 3)),
+            ("baseline_k", round(b.mu, 3)),
+            ("z", round(last.z, 2)),
+        ]);
+        self.active.raise(Cause::HeatLoss, "ambient", Severity::Low, message, dev_k.abs(), now, evidence);
+    }
+
+    /// A slow drift that only an offset of the effluent thermometer explains.
+    fn raise_thermometer_drift(&mut self, now: i64, dev_k: f64, said: &str) {
+        let (unit, b) = (self.unit, self.b);
+        let Some(last) = self.history.back().cloned() else { return };
+        let tag = &unit.tags[unit.effluent_temperature];
+        let message = format!(
+            "The residual has drifted by {dev_k:+.2} K in proportion to the flow, as an offset of {} ({}) would{said}: check the thermometer against a reference before trusting the soft tags.",
+            tag.name, tag.role
+        );
+        let evidence = ev(&[
+            ("residual_k", round(last.residual, 3)),
+            ("baseline_k", round(b.mu, 3)),
+            ("suspect_tag", tag.name.clone().into()),
+        ]);
+        let subject = format!("{}:drift", tag.name);
+        self.active.raise(
+            Cause::InstrumentFault,
+            &subject,
             Severity::Medium,
             message,
             dev_k.abs(),
@@ -647,37 +772,6 @@ fn ambient_fit(rows: &[AmbientRow], amb: &[&BlockRecord], te: usize, dev_k: f64)
     AmbientFit { rho, slope, spread: stats::std_dev(&aa), consistent }
 }
 
-/// A fouling deficit is a fixed fraction of the duty, a conversion deficit a fixed fraction
-/// of the key reactant's feed, whatever the operating point. So the deficit per unit of duty
-/// stays put when the feed-to-duty ratio moves if the heater is fouling, and follows that
-/// ratio if the conversion changed (and the other way round for the deficit per unit of
-/// feed). Only the ratio's movement separates them: if the duty followed the feed, nothing
-/// can. Both fits carry a time term for the fault's growth; their t-statistics are deflated
-/// for the autocorrelation of the fit residuals (effective sample size). `rows` are the
-/// blocks' (deficit W, duty W, key-reactant feed mol/s, time h).
-fn separate(rows: &[(f64, f64, f64, f64)]) -> Result<Cause, &'static str> {
-    let y: Vec<f64> = rows.iter().map(|r| r.0).collect();
-    let q: Vec<f64> = rows.iter().map(|r| r.1).collect();
-    let f: Vec<f64> = rows.iter().map(|r| r.2).collect();
-    let t: Vec<f64> = rows.iter().map(|r| r.3).collect();
-    let cv = |v: &[f64]| stats::std_dev(v) / stats::mean(v).abs().max(1e-12);
-    let u: Vec<f64> = f.iter().zip(&q).map(|(f, q)| f / q).collect();
-    if q.iter().chain(&f).any(|v| *v <= 0.0) {
-        Err("the duty or the feed rate was not positive throughout")
-    } else if cv(&u) < 0.03 {
-        Err("the duty followed the feed rate (their ratio hardly varied)")
-    } else {
-        let per_duty: Vec<f64> = y.iter().zip(&q).map(|(y, q)| y / q).collect();
-        let per_feed: Vec<f64> = y.iter().zip(&f).map(|(y, f)| y / f).collect();
-        let inv_u: Vec<f64> = u.iter().map(|u| 1.0 / u).collect();
-        match (deflated_slope_t(&per_duty, &u, &t), deflated_slope_t(&per_feed, &inv_u, &t)) {
-            (Some(te), Some(tf)) if te.abs() < 1.5 && tf.abs() >= 5.0 => Ok(Cause::HeaterFouling),
-            (Some(te), Some(tf)) if tf.abs() < 1.5 && te.abs() >= 5.0 => Ok(Cause::ConversionDrift),
-            _ => Err("the deficit is explained equally well by the duty and by the feed rate"),
-        }
-    }
-}
-
 /// The projection part of a fouling message.
 fn projection(trend: Option<&Trend>, cfg: &MonitorConfig, unit: &UnitSpec) -> String {
     match trend {
@@ -721,15 +815,6 @@ fn ols_residuals(y: &[f64], xs: &[&[f64]]) -> Option<(Vec<f64>, Vec<f64>)> {
         .map(|i| y[i] - my - xs.iter().zip(&coef).zip(&mx).map(|((x, c), m)| c * (x[i] - m)).sum::<f64>())
         .collect();
     Some((ts, resid))
-}
-
-/// The t-statistic of `x`'s coefficient in the least-squares fit of `y` on `x` and `t` (with an
-/// intercept), deflated by √((1 − ρ)/(1 + ρ)) for the lag-1 autocorrelation ρ of the fit
-/// residuals (effective sample size of autocorrelated errors).
-fn deflated_slope_t(y: &[f64], x: &[f64], t: &[f64]) -> Option<f64> {
-    let (ts, resid) = ols_residuals(y, &[x, t])?;
-    let rho = stats::acf1(&resid).clamp(0.0, 0.95);
-    Some(ts[0] * ((1.0 - rho) / (1.0 + rho)).sqrt())
 }
 
 #[cfg(test)]
@@ -843,7 +928,7 @@ mod tests {
         let a = judge.active.iter().next().unwrap();
         assert_eq!(a.subject, "heater");
         assert!(
-            a.message.contains("the energy deficit scales with the duty, not with the feed rate"),
+            a.message.contains("the energy deficit follows the duty (heater fouling, probability 1.00"),
             "{}",
             a.message
         );
@@ -867,7 +952,8 @@ mod tests {
         let a = judge.active.iter().next().unwrap();
         assert!(a.subject.contains("acetate"), "the key reactant: {}", a.subject);
         assert!(
-            a.message.contains("scales with the key reactant's feed, not with the duty"),
+            a.message.contains("the energy deviation follows the key reactant's feed (a conversion change")
+                && a.message.contains("cooler than the model expects"),
             "{}",
             a.message
         );
@@ -884,7 +970,12 @@ mod tests {
         }
         assert_eq!(judge.held(), vec![Cause::Undetermined]);
         let a = judge.active.iter().next().unwrap();
-        assert!(a.message.contains("the duty followed the feed rate"), "{}", a.message);
+        assert!(a.message.contains("no cause is clearly ahead of the others"), "{}", a.message);
+        assert!(a.message.contains("would look the same here"), "{}", a.message);
+        let p = &a.evidence["cause_probabilities"];
+        let (fouling, conversion) =
+            (p["heater_fouling"].as_f64().unwrap(), p["conversion_drift"].as_f64().unwrap());
+        assert!(fouling < 0.6 && conversion < 0.6 && fouling + conversion > 0.8, "{p}");
     }
 
     /// Two days of hourly blocks at a constant operating point, the ambient swinging ±8 K
@@ -910,8 +1001,15 @@ mod tests {
         assert!((slope - 0.02).abs() < 0.002, "{slope} K per K");
         assert!(a.evidence["correlation"].as_f64().unwrap() > 0.9);
 
-        // The same deficit, but rising when it is warmer outside: not a heat loss.
+        // The same deficit, but rising when it is warmer outside: not a heat loss (at a
+        // constant operating point the flow-proportional causes look alike; which of them is
+        // named is up to the ranking, but never heat loss).
         let judge = two_days(|t_out, ambient| -0.02 * (t_out - 283.15) - 0.02 * (ambient - 283.15));
-        assert_eq!(judge.held(), vec![Cause::Undetermined]);
+        let held = judge.held();
+        assert_eq!(held.len(), 1, "{held:?}");
+        assert_ne!(held[0], Cause::HeatLoss);
+        let a = judge.active.iter().next().unwrap();
+        let p = a.evidence["cause_probabilities"]["heat_loss"].as_f64().unwrap();
+        assert!(p < 0.05, "heat loss probability {p}");
     }
 }

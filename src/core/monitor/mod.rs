@@ -13,6 +13,8 @@
 //! * `analyzers`: each analyzer's update cadence, learnt from the data, and frozen analyzers;
 //! * `attribution`: judging a completed block ([`BlockRecord`]): the charts, heat loss,
 //!   heater fouling against a conversion drift, and when a condition has cleared;
+//! * `ranking`: the candidate causes ranked by how well their signatures explain the energy
+//!   residual (generalised likelihood ratios with priors);
 //! * `active`: the conditions the monitor holds with its own hysteresis;
 //! * `trend`: the heater-effectiveness [`Trend`] and its projected limit date.
 //!
@@ -36,6 +38,7 @@ mod analyzers;
 mod attribution;
 mod baseline;
 mod instruments;
+mod ranking;
 mod state;
 mod trend;
 
