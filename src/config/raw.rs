@@ -148,6 +148,8 @@ pub struct RawUnitModel {
     /// `"range_cp_liq:ethylene_oxide"`): still shown in the soft tags, but no alert.
     #[serde(default)]
     pub accepted_flags: Vec<String>,
+    /// Analyzer fractions may sum to 1 within this (absolute, e.g. 0.02) before it is an error.
+    pub analyzer_sum_tolerance: Option<f64>,
 }
 
 /// `[[unit.feed]]`.
@@ -189,6 +191,8 @@ pub struct RawEffluent {
     pub composition: Option<IndexMap<String, RawSignal>>,
     /// Basis of the effluent analyzer.
     pub basis: Option<String>,
+    /// Time constant of the smoothing of the analyzer's conversions, e.g. "2h".
+    pub smoothing: Option<String>,
 }
 
 /// `[[unit.reaction]]`.

@@ -68,12 +68,14 @@ pub(crate) fn check_unit(
     let effluent_temperature = effluent_temperature(ck, &mut tags, &ek, &raw.effluent);
     let effluent_composition = effluent_composition(ck, &mut tags, &ek, &raw.effluent, &comps);
     let (reactions, conversions) = reactions(ck, &mut tags, key, &raw.reaction, &comps);
-    if effluent_composition.is_some() && !raw.reaction.is_empty() {
+    if effluent_composition.is_some() && raw.reaction.is_empty() {
         ck.err(
             &ek.key("composition"),
-            "an effluent analyzer replaces the reactions in the balance; remove one of them",
+            "an effluent analyzer measures the extents of the unit's reactions: add their [[unit.reaction]] entries (stoichiometry, key, design_conversion)",
         );
     }
+    let effluent_smoothing_ms =
+        ck.duration(&ek.key("smoothing"), raw.effluent.smoothing.as_ref(), 2 * 3_600_000);
     let ambient = raw.ambient.temperature.as_ref().and_then(|s| {
         let role = "ambient temperature";
         let k = key.key("ambient.temperature");
@@ -112,6 +114,8 @@ pub(crate) fn check_unit(
             heat_loss: heat_loss?,
             effluent_temperature: effluent_temperature?,
             effluent_composition,
+            effluent_smoothing_ms,
+            analyzer_sum_tolerance: model.analyzer_sum_tolerance,
             conversions,
             pressure: model.pressure,
             ambient,
@@ -573,6 +577,7 @@ struct ModelSettings {
     bounds: (f64, f64),
     apparent_reaction: Option<usize>,
     accepted_flags: Vec<String>,
+    analyzer_sum_tolerance: f64,
 }
 
 /// `[unit.model]`; `reactions` is (checked, written).
@@ -615,7 +620,25 @@ fn model(
         }
     };
     let accepted_flags = accepted_flags(ck, mk, m, comps);
-    ModelSettings { choices, pressure, bubble_margin, bounds, apparent_reaction, accepted_flags }
+    let analyzer_sum_tolerance =
+        m.analyzer_sum_tolerance.unwrap_or(crate::core::model::ANALYZER_SUM_TOLERANCE);
+    if !(0.0..0.5).contains(&analyzer_sum_tolerance) {
+        ck.err(
+            &mk.key("analyzer_sum_tolerance"),
+            format!(
+                "must be a fraction in 0..0.5 (0.02 accepts sums of 98-102 %), got {analyzer_sum_tolerance}"
+            ),
+        );
+    }
+    ModelSettings {
+        choices,
+        pressure,
+        bubble_margin,
+        bounds,
+        apparent_reaction,
+        accepted_flags,
+        analyzer_sum_tolerance,
+    }
 }
 
 /// The enthalpy path of each component: the unit's default, or the component's own.

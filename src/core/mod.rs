@@ -11,6 +11,7 @@ use std::sync::Arc;
 pub mod alerts;
 pub mod assembly;
 pub mod calendar;
+pub mod effluent;
 pub mod flags;
 pub mod model;
 pub mod monitor;
@@ -81,7 +82,7 @@ impl UnitCore {
     /// Evaluate one closed interval, step the monitor and the alert lifecycle.
     pub fn step(&mut self, closed: &Closed) -> Outcome {
         let spec = &*self.spec;
-        let mut evaluation = evaluate(spec, closed);
+        let mut evaluation = evaluate(spec, closed, self.monitor.extent_estimate());
         let mo = self.monitor.step(&spec.monitor, spec, &mut evaluation);
         let mut notes: Vec<Note> = mo.note.into_iter().map(Note::Monitor).collect();
         evaluation.flags.extend(mo.flags);

@@ -7,15 +7,17 @@
 use serde::Serialize;
 
 use crate::core::assembly::{Closed, TagStatus};
+use crate::core::effluent::{AnalysisCheck, ExtentEstimate, take_in};
 use crate::core::flags::Flag;
 use crate::core::spec::{FeedConfig, Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
 use crate::thermo::uncertainty::{InputRef, Uncertain, propagate};
 
-/// Tolerance on analyzer fractions summing to 1 before the sum is flagged (analyzers are
-/// noisier than typed-in design values; common practice is to accept about 1 mol-%).
-pub const ANALYZER_SUM_TOLERANCE: f64 = 0.01;
+/// Default tolerance on analyzer fractions summing to 1 (`[unit.model] analyzer_sum_tolerance`).
+/// Common practice: analyzers that report each component separately sum to 98-102 % in normal
+/// operation; within that the results are normalised without a word.
+pub const ANALYZER_SUM_TOLERANCE: f64 = 0.02;
 
 /// Process figures of the interval that the monitor uses besides the soft tags.
 #[derive(Debug, Clone, Default, PartialEq, Serialize)]
@@ -40,6 +42,17 @@ pub struct Signals {
     pub tag_values_si: Vec<Option<f64>>,
     /// Per tag: (min, max) of the interval's samples in SI.
     pub tag_ranges_si: Vec<Option<(f64, f64)>>,
+    /// Per feed: the sum of its analyzer's fractions (`None` without an analyzer or when it
+    /// is unusable).
+    #[serde(skip)]
+    pub feed_sums: Vec<Option<f64>>,
+    /// The effluent analyzer's estimate of the conversions after this interval (the monitor
+    /// keeps it for the next).
+    #[serde(skip)]
+    pub extent_estimate: Option<ExtentEstimate>,
+    /// The check of a new effluent analysis taken in this interval.
+    #[serde(skip)]
+    pub effluent_check: Option<AnalysisCheck>,
 }
 
 /// Everything computed for one interval.
@@ -114,8 +127,9 @@ impl Reader<'_> {
     }
 }
 
-/// Evaluate one closed interval of a unit.
-pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
+/// Evaluate one closed interval of a unit. `estimate`: the effluent analyzer's estimate of
+/// the conversions so far (kept by the monitor), if the unit has one.
+pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstimate>) -> Evaluation {
     let rd = Reader { unit, closed };
     let mut flags: Vec<Flag> = Vec::new();
     let mut conditions: Vec<Condition> = Vec::new();
@@ -189,7 +203,16 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
         signals,
     };
 
-    match build_inputs(unit, &rd, measured.map(|m| m.0), &mut flags, &mut conditions, &mut eval.signals) {
+    let prior = Prior { estimate, now_ms: closed.end_ms };
+    match build_inputs(
+        unit,
+        &rd,
+        measured.map(|m| m.0),
+        prior,
+        &mut flags,
+        &mut conditions,
+        &mut eval.signals,
+    ) {
         Err(reason) => eval.reason = Some(reason),
         Ok((inputs, uncertain)) => {
             solve_all(unit, &inputs, &uncertain, measured, &mut eval, &mut flags, &mut conditions)
@@ -206,15 +229,24 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed) -> Evaluation {
 
 type Built = (Inputs, Vec<Uncertain>);
 
+/// What the effluent analyzer's estimate starts the interval from.
+#[derive(Clone, Copy)]
+struct Prior<'a> {
+    estimate: Option<&'a ExtentEstimate>,
+    now_ms: i64,
+}
+
 fn build_inputs(
     unit: &UnitSpec,
     rd: &Reader<'_>,
     measured_k: Option<f64>,
+    prior: Prior<'_>,
     flags: &mut Vec<Flag>,
     conditions: &mut Vec<Condition>,
     signals: &mut Signals,
 ) -> Result<Built, String> {
     let mut b = Builder { unit, rd, problems: Vec::new(), uncertain: Vec::new() };
+    signals.feed_sums = vec![None; unit.feeds.len()];
     let mut feeds = Vec::new();
     for (j, f) in unit.feeds.iter().enumerate() {
         if let Some(feed) = b.feed(j, f, flags, conditions, signals) {
@@ -222,7 +254,7 @@ fn build_inputs(
         }
     }
     let (duty, heat_loss) = b.heater(signals);
-    let effluent = b.effluent(signals);
+    let effluent = b.effluent(signals, &feeds, prior);
     let Builder { mut problems, uncertain, .. } = b;
     if !problems.is_empty() {
         problems.dedup();
@@ -305,8 +337,18 @@ impl Builder<'_, '_> {
             self.problems.push(format!("{} composition sums to zero", f.name));
             return None;
         }
-        if (sum - 1.0).abs() > ANALYZER_SUM_TOLERANCE {
-            flag_composition_sum(j, f, sum, flags, conditions);
+        // An analyzer's sum is judged by the monitor over its updates (one alert for a
+        // persistent error); a typed-in composition that does not sum to 1 is a condition.
+        let analyzer = f.composition.iter().any(|s| matches!(s, Signal::Tag(_)));
+        if analyzer && let Some(slot) = signals.feed_sums.get_mut(j) {
+            *slot = Some(sum);
+        }
+        if (sum - 1.0).abs() > unit.analyzer_sum_tolerance {
+            if analyzer {
+                flags.push(Flag::CompositionSum(j));
+            } else {
+                flag_composition_sum(j, f, sum, flags, conditions);
+            }
             if !f.normalize {
                 self.problems.push(format!("{} fractions sum to {sum:.4} and normalize = false", f.name));
                 return None;
@@ -342,24 +384,12 @@ impl Builder<'_, '_> {
         (duty, heat_loss)
     }
 
-    /// The effluent: measured by an analyzer, mixed without reactions, or reacted at the
-    /// measured (or design) conversions.
-    fn effluent(&mut self, signals: &mut Signals) -> Effluent {
+    /// The effluent: mixed without reactions, or reacted at the conversions the effluent
+    /// analyzer measures (reconciled and smoothed), or at the measured or design conversions.
+    fn effluent(&mut self, signals: &mut Signals, feeds: &[FeedInput], prior: Prior<'_>) -> Effluent {
         let (unit, rd) = (self.unit, self.rd);
         if let Some((sigs, basis)) = &unit.effluent_composition {
-            let mut fr = Vec::new();
-            for (i, s) in sigs.iter().enumerate() {
-                match rd.get(*s) {
-                    Ok((x, u)) => {
-                        fr.push(x);
-                        self.uncertain(InputRef::EffluentFraction(i), u, || {
-                            rd.label(*s, &format!("effluent {} fraction", unit.system.components[i].id))
-                        });
-                    }
-                    Err(p) => self.problems.push(p),
-                }
-            }
-            Effluent::Measured { fractions: fr, basis: *basis }
+            self.analyzed(signals, feeds, prior, sigs, *basis)
         } else if unit.system.reactions.is_empty() {
             Effluent::Mixed
         } else {
@@ -381,9 +411,85 @@ impl Builder<'_, '_> {
             Effluent::Reacted { conversions }
         }
     }
+
+    /// The conversions from the effluent analyzer: a new analysis is reconciled and taken
+    /// into the estimate; a held one, or an unusable analyzer, leaves the estimate as it is.
+    fn analyzed(
+        &mut self,
+        signals: &mut Signals,
+        feeds: &[FeedInput],
+        prior: Prior<'_>,
+        sigs: &[Signal],
+        basis: crate::thermo::Basis,
+    ) -> Effluent {
+        let (unit, rd) = (self.unit, self.rd);
+        let sys = &unit.system;
+        let mut reported = Vec::with_capacity(sigs.len());
+        let mut usable = true;
+        for s in sigs {
+            match (s, rd.get(*s)) {
+                (Signal::Fixed { .. }, _) => reported.push(None),
+                (Signal::Tag(_), Ok((x, u))) => {
+                    // Common practice: an online analyzer repeats to a few tenths of a mol%;
+                    // 0.3 % absolute is assumed when the configuration states nothing.
+                    reported.push(Some((x, if u > 0.0 { u } else { 0.003 })));
+                }
+                (Signal::Tag(_), Err(p)) => {
+                    usable = false;
+                    if prior.estimate.is_none() {
+                        self.problems.push(p);
+                    }
+                }
+            }
+        }
+        let mut feed_total = vec![0.0; sys.len()];
+        for f in feeds {
+            for (t, n) in feed_total.iter_mut().zip(sys.feed_flows(f)) {
+                *t += n;
+            }
+        }
+        let estimate = if usable && feeds.len() == unit.feeds.len() {
+            match take_in(
+                sys,
+                &feed_total,
+                &reported,
+                basis,
+                prior.estimate,
+                prior.now_ms,
+                unit.effluent_smoothing_ms,
+            ) {
+                Ok((e, check)) => {
+                    signals.effluent_check = check;
+                    Some(e)
+                }
+                Err(why) => {
+                    if prior.estimate.is_none() {
+                        self.problems.push(format!("the effluent analysis cannot be reconciled: {why}"));
+                    }
+                    prior.estimate.cloned()
+                }
+            }
+        } else {
+            prior.estimate.cloned()
+        };
+        let Some(estimate) = estimate else { return Effluent::Reacted { conversions: Vec::new() } };
+        let mut conversions = Vec::with_capacity(estimate.conversions.len());
+        for (r, x) in estimate.conversions.iter().enumerate() {
+            conversions.push(Some(*x));
+            let measured = unit.conversions.get(r).and_then(|c| c.tag).and_then(|t| rd.get(t).ok());
+            if Some(r) == unit.apparent_reaction {
+                signals.measured_conversion = Some(measured.map_or(*x, |m| m.0));
+            }
+            self.uncertain(InputRef::Conversion(r), estimate.u(r), || {
+                format!("{} conversion (effluent analyzer)", sys.reactions[r].label)
+            });
+        }
+        signals.extent_estimate = Some(estimate);
+        Effluent::Reacted { conversions }
+    }
 }
 
-/// Analyzer fractions of feed `j` that do not sum to 1: flagged, with a model-validity
+/// A typed-in composition of feed `j` that does not sum to 1: flagged, with a model-validity
 /// condition.
 fn flag_composition_sum(
     j: usize,

@@ -35,6 +35,10 @@ pub struct UnitSpec {
     pub effluent_temperature: usize,
     /// Effluent analyzer, per component, with its basis.
     pub effluent_composition: Option<(Vec<Signal>, Basis)>,
+    /// Time constant of the smoothing of the analyzer's conversions, ms.
+    pub effluent_smoothing_ms: i64,
+    /// Analyzer fractions may sum to 1 within this before the sum is an error.
+    pub analyzer_sum_tolerance: f64,
     /// Per reaction.
     pub conversions: Vec<ConversionConfig>,
     /// Reactor pressure.

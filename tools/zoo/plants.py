@@ -959,15 +959,16 @@ def site_toml(plant, fault, run_id):
         a("[unit.effluent.composition]")
         for c, tg in p["eff_an_tags"].items():
             a(f"{tid(c)} = {{ tag = {q(tg)}, unit = \"%\", kind = \"analyzer\", uncertainty = \"0.3 %\" }}")
-    else:
-        rx = p["reaction"]
-        a("")
-        a("[[unit.reaction]]")
-        a(f"name = {q(rx['name'])}")
-        a("stoichiometry = { " + ", ".join(f"{tid(c)} = {v}" for c, v in rx["nu"].items()) + " }")
-        a(f"key = {q(tid(rx['key']))}")
-        a(f"design_conversion = {p['X_cfg']:.3f}")
-        a("conversion_uncertainty = 0.02")
+    # The reaction is configured either way: with an effluent analyzer its extent is estimated
+    # from the analysis (the design conversion is only the starting point).
+    rx = p["reaction"]
+    a("")
+    a("[[unit.reaction]]")
+    a(f"name = {q(rx['name'])}")
+    a("stoichiometry = { " + ", ".join(f"{tid(c)} = {v}" for c, v in rx["nu"].items()) + " }")
+    a(f"key = {q(tid(rx['key']))}")
+    a(f"design_conversion = {p['X_cfg']:.3f}")
+    a("conversion_uncertainty = 0.02")
     if p["ambient_tag"]:
         a("")
         a("[unit.ambient]")

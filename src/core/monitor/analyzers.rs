@@ -8,6 +8,14 @@
 //! is its cycle. An analyzer whose results have not changed for two and a half of its cycles
 //! (and for longer than the longest wait seen recently) has missed at least two updates: it is
 //! frozen, and raised as an instrument fault naming its tags. It clears at the next change.
+//!
+//! The results themselves are judged here too, over the analyzer's updates rather than per
+//! interval (a held result would otherwise count once per interval): a feed or effluent
+//! analyzer whose fractions sum outside the unit's `analyzer_sum_tolerance`, or an effluent
+//! analysis that fails the reconciliation's global test, in at least 4 of its last 6 updates is
+//! one `data_quality` alert naming the analyzer (subjects `<tag>:sum` and `<tag>:balance`),
+//! cleared after 6 good updates in a row.
+//!
 //! An outage (no values) is the staleness checks' business and restarts the clock, and an
 //! analyzer whose results stop arriving (the export holds the last one with no new samples)
 //! is stale, not frozen: a freeze is only called in an interval that brought fresh reports.
@@ -18,6 +26,7 @@ use serde::{Deserialize, Serialize};
 
 use super::active::{Held, ev, round};
 use super::stats;
+use crate::core::model::Evaluation;
 use crate::core::spec::{Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Severity};
 
@@ -27,6 +36,10 @@ const MIN_UPDATES: usize = 8;
 const KEEP: usize = 30;
 /// A freeze is called after this many cycles without a change.
 const CYCLES: f64 = 2.5;
+/// Updates judged for a result error ...
+const JUDGED: usize = 6;
+/// ... of which this many bad raise it.
+const BAD: usize = 4;
 
 /// One analyzer: the tags it reports and its recent updates.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -41,6 +54,15 @@ struct Group {
     last_change_ms: Option<i64>,
     /// Recent waits between changes, ms.
     waits: VecDeque<i64>,
+    /// The feed it analyses (`None`: the effluent).
+    #[serde(default)]
+    feed: Option<usize>,
+    /// The results last judged.
+    #[serde(default)]
+    judged: Vec<Option<f64>>,
+    /// Recent updates: (sum outside the tolerance, failed the global test).
+    #[serde(default)]
+    recent: VecDeque<(bool, bool)>,
 }
 
 /// The analyzers of a unit (serialized as a plain list).
@@ -49,7 +71,7 @@ struct Group {
 pub(super) struct Analyzers(Vec<Group>);
 
 /// The analyzers a unit has: one per analysed stream, with at least one tag.
-fn groups(unit: &UnitSpec) -> Vec<(String, Vec<usize>)> {
+fn groups(unit: &UnitSpec) -> Vec<(String, Option<usize>, Vec<usize>)> {
     let tags = |sigs: &[Signal]| -> Vec<usize> {
         sigs.iter()
             .filter_map(|s| match s {
@@ -58,14 +80,14 @@ fn groups(unit: &UnitSpec) -> Vec<(String, Vec<usize>)> {
             })
             .collect()
     };
-    let mut out: Vec<(String, Vec<usize>)> = Vec::new();
-    for f in &unit.feeds {
-        out.push((f.name.clone(), tags(&f.composition)));
+    let mut out: Vec<(String, Option<usize>, Vec<usize>)> = Vec::new();
+    for (j, f) in unit.feeds.iter().enumerate() {
+        out.push((f.name.clone(), Some(j), tags(&f.composition)));
     }
     if let Some((sigs, _)) = &unit.effluent_composition {
-        out.push(("effluent".to_string(), tags(sigs)));
+        out.push(("effluent".to_string(), None, tags(sigs)));
     }
-    out.retain(|(_, t)| !t.is_empty());
+    out.retain(|(_, _, t)| !t.is_empty());
     out
 }
 
@@ -92,25 +114,116 @@ impl Analyzers {
         ranges: &[Option<(f64, f64)>],
         active: &mut Held,
     ) {
-        let wanted = groups(unit);
-        if self.0.len() != wanted.len() || self.0.iter().zip(&wanted).any(|(g, w)| g.tags != w.1) {
-            self.0 = wanted
-                .into_iter()
-                .map(|(stream, tags)| Group {
-                    stream,
-                    last: vec![None; tags.len()],
-                    tags,
-                    ..Group::default()
-                })
-                .collect();
-        }
+        self.fit(unit);
         for g in &mut self.0 {
             g.step(unit, now, values, ranges, active);
         }
     }
 }
 
+impl Analyzers {
+    /// One group per analyzer of the unit (rebuilt when the configuration changed).
+    fn fit(&mut self, unit: &UnitSpec) {
+        let wanted = groups(unit);
+        if self.0.len() != wanted.len()
+            || self.0.iter().zip(&wanted).any(|(g, w)| g.tags != w.2 || g.feed != w.1)
+        {
+            self.0 = wanted
+                .into_iter()
+                .map(|(stream, feed, tags)| Group {
+                    stream,
+                    feed,
+                    last: vec![None; tags.len()],
+                    tags,
+                    ..Group::default()
+                })
+                .collect();
+        }
+    }
+
+    /// Judge the analyzers' results at their updates: sums outside the tolerance (feeds and
+    /// effluent) and failed global tests of the effluent reconciliation.
+    pub(super) fn judge_results(&mut self, unit: &UnitSpec, e: &Evaluation, active: &mut Held) {
+        self.fit(unit);
+        for g in &mut self.0 {
+            let cur: Vec<Option<f64>> =
+                g.tags.iter().map(|i| e.signals.tag_values_si.get(*i).copied().flatten()).collect();
+            let update = match g.feed {
+                Some(j) => {
+                    let new = cur.iter().all(Option::is_some) && cur != g.judged;
+                    e.signals.feed_sums.get(j).copied().flatten().filter(|_| new).map(|sum| (sum, false))
+                }
+                None => e.signals.effluent_check.as_ref().map(|c| (c.sum, c.gross_error)),
+            };
+            g.judged = cur;
+            let Some((sum, gross)) = update else { continue };
+            g.recent.push_back(((sum - 1.0).abs() > unit.analyzer_sum_tolerance, gross));
+            while g.recent.len() > JUDGED {
+                g.recent.pop_front();
+            }
+            g.judge(unit, e.end_ms, sum, active);
+        }
+    }
+}
+
 impl Group {
+    /// Raise or clear the result errors after an update.
+    fn judge(&self, unit: &UnitSpec, now: i64, sum: f64, active: &mut Held) {
+        let first = &unit.tags[self.tags[0]].name;
+        let names: Vec<&str> = self.tags.iter().map(|i| unit.tags[*i].name.as_str()).collect();
+        let bad_sums = self.recent.iter().filter(|r| r.0).count();
+        let bad_tests = self.recent.iter().filter(|r| r.1).count();
+        let all_good = self.recent.len() == JUDGED;
+        let tolerance = unit.analyzer_sum_tolerance;
+        let sum_subject = format!("{first}:sum");
+        if bad_sums >= BAD {
+            let message = format!(
+                "The {} analyzer ({}) sums to {:.1} % ({bad_sums} of its last {} results outside 100 ± {:.1} %): the results are normalised, but check its calibration.",
+                self.stream,
+                names.join(", "),
+                sum * 100.0,
+                self.recent.len(),
+                tolerance * 100.0
+            );
+            let evidence = ev(&[
+                ("tags", names.join(",").into()),
+                ("sum", round(sum, 4)),
+                ("tolerance", tolerance.into()),
+            ]);
+            active.raise(
+                Cause::DataQuality,
+                &sum_subject,
+                Severity::Low,
+                message,
+                (sum - 1.0).abs(),
+                now,
+                evidence,
+            );
+        } else if all_good && bad_sums == 0 {
+            active.retain(|a| a.subject != sum_subject);
+        }
+        let test_subject = format!("{first}:balance");
+        if bad_tests >= BAD {
+            let message = format!(
+                "The effluent analyzer ({}) contradicts the element balance and the reactions in {bad_tests} of its last {} results (global test at the 0.1 % level): its results are left out of the conversions; check the analyzer, the feed analysis and the stoichiometry.",
+                names.join(", "),
+                self.recent.len()
+            );
+            let evidence = ev(&[("tags", names.join(",").into()), ("failed_results", bad_tests.into())]);
+            active.raise(
+                Cause::DataQuality,
+                &test_subject,
+                Severity::Medium,
+                message,
+                bad_tests as f64,
+                now,
+                evidence,
+            );
+        } else if all_good && bad_tests == 0 {
+            active.retain(|a| a.subject != test_subject);
+        }
+    }
+
     fn subject(&self, unit: &UnitSpec) -> String {
         format!("{}:frozen", unit.tags[self.tags[0]].name)
     }
@@ -208,7 +321,7 @@ normalize = true"#,
     /// `cycle` minutes (with noise), held in between; frozen from minute `freeze` on.
     fn run(cycle: i64, freeze: i64, minutes: i64) -> Vec<(i64, bool)> {
         let u = unit();
-        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.1).collect();
+        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.2).collect();
         assert!(!tags.is_empty(), "the test unit has an analyzer");
         let mut rng = Rng::new(7);
         let mut a = Analyzers::default();
@@ -245,7 +358,7 @@ normalize = true"#,
     #[test]
     fn an_outage_restarts_the_clock_instead_of_calling_a_freeze() {
         let u = unit();
-        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.1).collect();
+        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.2).collect();
         let mut a = Analyzers::default();
         let mut held = Held::default();
         let mut values = vec![Some(1.0); u.tags.len()];
@@ -264,7 +377,7 @@ normalize = true"#,
     fn results_that_stop_arriving_are_not_a_freeze() {
         // The export holds the last result, but no sample arrives: staleness, not a freeze.
         let u = unit();
-        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.1).collect();
+        let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.2).collect();
         let mut rng = Rng::new(3);
         let mut a = Analyzers::default();
         let mut held = Held::default();

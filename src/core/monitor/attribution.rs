@@ -311,7 +311,9 @@ impl Watch<'_> {
                     }
                     _ => conv_ok && resid_ok,
                 },
-                Cause::InstrumentFault if a.subject.ends_with(":stuck") => false,
+                // Stuck meters, frozen analyzers and analyzer result errors clear on their own
+                // checks, not on the residual.
+                _ if held_by_own_check(&a.subject) => false,
                 // A step clears when the residual is back near where it was before the step
                 // (not when it merely looks ordinary against the baseline's scatter).
                 Cause::InstrumentFault => match (num("residual_k"), num("step_k")) {
@@ -748,6 +750,12 @@ struct AmbientFit {
 /// Partial correlation: time and (when reported) the duty are taken out of both series
 /// first. A fouling deficit scales with the duty, and where the duty follows the weather
 /// (colder feed, more steam) it would otherwise pass for a heat loss.
+/// Conditions that clear on their own checks (a stuck meter, a frozen analyzer, an analyzer's
+/// sum or balance error), never on clean blocks of the residual.
+fn held_by_own_check(subject: &str) -> bool {
+    [":stuck", ":frozen", ":sum", ":balance"].iter().any(|s| subject.ends_with(s))
+}
+
 fn ambient_fit(rows: &[AmbientRow], amb: &[&BlockRecord], te: usize, dev_k: f64) -> AmbientFit {
     let t: Vec<f64> = rows.iter().map(|r| r.0).collect();
     let duty: Option<Vec<f64>> = rows.iter().map(|r| r.3).collect();

@@ -23,6 +23,7 @@ use super::instruments::{Instruments, Reading, StepWindow};
 use super::settings::MonitorConfig;
 use super::ssd::{Floor, SteadyState};
 use super::trend::Trend;
+use crate::core::effluent::ExtentEstimate;
 use crate::core::flags::Flag;
 use crate::core::model::Evaluation;
 use crate::core::spec::UnitSpec;
@@ -174,6 +175,9 @@ pub struct Monitor {
     /// Update cadence and freezes of the unit's analyzers.
     #[serde(default, skip_serializing_if = "Analyzers::is_empty")]
     analyzers: Analyzers,
+    /// The effluent analyzer's smoothed conversions.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    extent_estimate: Option<ExtentEstimate>,
 }
 
 /// What the monitor produced for one interval.
@@ -209,7 +213,13 @@ impl Monitor {
             trend: None,
             last_end_ms: None,
             analyzers: Analyzers::default(),
+            extent_estimate: None,
         }
+    }
+
+    /// The effluent analyzer's smoothed conversions, for the next interval's balance.
+    pub fn extent_estimate(&self) -> Option<&ExtentEstimate> {
+        self.extent_estimate.as_ref()
     }
 
     /// Forget the baseline and learn again (after maintenance); audited by the caller.
@@ -233,6 +243,10 @@ impl Monitor {
     pub fn step(&mut self, cfg: &MonitorConfig, unit: &UnitSpec, e: &mut Evaluation) -> MonitorOutput {
         let mut out =
             MonitorOutput { state: self.state, conditions: Vec::new(), flags: Vec::new(), note: None };
+        if let Some(estimate) = e.signals.extent_estimate.take() {
+            self.extent_estimate = Some(estimate);
+        }
+        self.analyzers.judge_results(unit, e, &mut self.active);
         let (Some(pred_ss), Some(meas)) = (e.predicted_k, e.measured_k) else {
             self.pause();
             out.state = self.state;

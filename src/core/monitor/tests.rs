@@ -110,6 +110,7 @@ pub(super) fn evaluation(k: i64, p: Point) -> Evaluation {
             heat_capacity_w_k: Some(p.feed * CP),
             tag_values_si: vec![Some(p.feed), Some(p.feed_t), Some(p.duty), Some(p.meas), Some(p.ambient)],
             tag_ranges_si: Vec::new(),
+            ..Signals::default()
         },
     }
 }
