@@ -116,6 +116,8 @@ def score_run(run_dir):
     if on is None:
         out["false"] = [{"t_min": e["_t"], "cause": e["cause"], "subject": e.get("subject")} for e in counted]
         out["false_days"] = days
+        if plant["effluent_analyzer"]:
+            out["scatter_ratio"] = scatter_ratio(run_dir)
         return out
     pre = [e for e in counted if e["_t"] < on]
     out["false"] = [{"t_min": e["_t"], "cause": e["cause"], "subject": e.get("subject")} for e in pre]
@@ -162,6 +164,36 @@ def score_run(run_dir):
         after = [e for e in counted if rem < e["_t"]]
         out["raised_after_removal"] = [{"t_min": e["_t"], "cause": e["cause"], "subject": e.get("subject")} for e in after]
     return out
+
+
+def scatter_ratio(run_dir):
+    """Median over 2-h windows of std(predicted) / std(measured) effluent temperature, each about
+    its own straight line through the window (the slow process movements both see are taken
+    out; what is left is each one's own scatter)."""
+    import csv
+    import glob
+    import numpy as np
+    rows = []
+    for path in sorted(glob.glob(os.path.join(run_dir, "output", "*", "softtags-*.csv"))):
+        with open(path) as fh:
+            for r in csv.DictReader(fh):
+                try:
+                    rows.append((float(r["predicted_temperature"]), float(r["measured_temperature"])))
+                except (ValueError, KeyError):
+                    rows.append(None)
+    ratios = []
+    for i in range(0, len(rows) - 120, 120):
+        w = rows[i:i + 120]
+        if any(x is None for x in w):
+            continue
+        t = np.arange(len(w))
+        p = np.array([x[0] for x in w])
+        m = np.array([x[1] for x in w])
+        sp = np.std(p - np.polyval(np.polyfit(t, p, 1), t))
+        sm = np.std(m - np.polyval(np.polyfit(t, m, 1), t))
+        if sm > 0:
+            ratios.append(sp / sm)
+    return float(np.median(ratios)) if ratios else None
 
 
 # ----------------------------------------------------------------------------------------------
@@ -224,6 +256,9 @@ def aggregate(results):
                                "total": sum(by.values()), "total_per_plant_day": sum(by.values()) / days if days else None,
                                "gap_data_quality": sum(r["gap_alerts"] for r in rs if r["kind"] == "none") if label.startswith("fault-free")
                                else sum(r["gap_alerts"] for r in rs)}
+    sr = [r["scatter_ratio"] for r in results if r.get("scatter_ratio") is not None]
+    agg["scatter"] = {"runs": len(sr), "median": quantile(sr, 0.5), "worst": max(sr) if sr else None,
+                      "within_1_5": sum(1 for x in sr if x <= 1.5)}
     for fam in plants.FAMILIES:
         rs = [r for r in results if r["family"] == fam and r["kind"] != "none"]
         ff = [r for r in results if r["family"] == fam and r["kind"] == "none"]
@@ -278,6 +313,11 @@ def tables(agg, meta):
       "Right tag: the first alert after onset that names one of the plant's tags names the faulty one (% of all runs). "
       "Cleared: every alert raised during the bias with the expected cause or naming the faulty tag, and still active at "
       "its removal, clears within 1 h (of runs with such an alert).\n")
+    sc = agg.get("scatter")
+    if sc and sc["runs"]:
+        a("Predicted-temperature scatter with an effluent analyzer (fault-free runs; std of the predicted over std of "
+          "the measured effluent temperature about a line through each 2-h window, median of the windows): "
+          f"median {sc['median']:.2f}, worst {sc['worst']:.2f}, ≤ 1.5 in {pct(sc['within_1_5'], sc['runs'])}.\n")
     a("## False alerts per plant-day\n")
     a("| period | runs | plant-days | " + " | ".join(CAUSES) + " | total | data_quality at recorded gaps (not counted) |")
     a("|---|---|---|" + "---|" * len(CAUSES) + "---|---|")

@@ -205,8 +205,39 @@ type StepRow = (i64, f64, f64, f64, Vec<Option<f64>>);
 #[serde(transparent)]
 pub(super) struct StepWindow(VecDeque<StepRow>);
 
+/// A meter step waits this long (or twice the configured dead time plus lag, if longer) for
+/// the plant to answer before it is blamed on the meter, ms. Common practice for liquid-filled
+/// heaters and reactors: most answer a duty or flow move within half an hour.
+const METER_WAIT_MS: i64 = 30 * 60_000;
+
+/// An input meter's step waiting for the plant's answer: if the residual still stands when it
+/// is due, the plant did not follow and the meter is blamed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub(super) struct PendingMeter {
+    tag: usize,
+    why: String,
+    step: Step,
+    step_ms: i64,
+    due_ms: i64,
+}
+
+impl PendingMeter {
+    /// The residual of the last 10 intervals is still at least two thirds of the step away
+    /// from where it was before.
+    fn still_standing(&self, window: &VecDeque<StepRow>) -> bool {
+        let n = window.len().min(10);
+        if n < 5 {
+            return false;
+        }
+        let recent: Vec<f64> = window.iter().skip(window.len() - n).map(|x| x.1).collect();
+        let before = self.step.after - self.step.size;
+        let moved = stats::median(&recent) - before;
+        moved.signum() == self.step.size.signum() && moved.abs() >= 2.0 / 3.0 * self.step.size.abs()
+    }
+}
+
 /// A step of the residual: the median of the last 10 intervals against the 20 before.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 struct Step {
     /// Residual after the step (median of the last 10 intervals), K.
     after: f64,
@@ -235,6 +266,7 @@ impl StepWindow {
     /// windows must be quiet. If the prediction did not move, the thermometer moved on its own;
     /// if the measurement did not move, an input meter stepped that the plant did not follow.
     /// `lag` is the lag factor of the prediction's dynamic compensation.
+    #[allow(clippy::too_many_arguments)]
     pub(super) fn check(
         &mut self,
         cfg: &MonitorConfig,
@@ -242,10 +274,24 @@ impl StepWindow {
         baseline: Option<&Baseline>,
         lag: f64,
         x: &Reading<'_>,
+        pending: &mut Option<PendingMeter>,
         active: &mut Held,
     ) {
         let Some(b) = baseline else { return };
         push_bounded(&mut self.0, (x.end_ms, x.r, x.pred, x.meas, x.tags.to_vec()), 30);
+        if let Some(p) = pending.as_ref() {
+            if x.end_ms >= p.due_ms {
+                if p.still_standing(&self.0) {
+                    let tag_idx = p.tag;
+                    if !active.holds(Cause::InstrumentFault, &unit.tags[tag_idx].name) {
+                        self.raise(unit, b, tag_idx, &p.why, p.step, p.step_ms, x.end_ms, active);
+                    }
+                }
+                *pending = None;
+                self.0.clear();
+            }
+            return;
+        }
         if self.0.len() < 30 {
             return;
         }
@@ -262,7 +308,15 @@ impl StepWindow {
         if active.holds(Cause::InstrumentFault, &tag.name) {
             return;
         }
-        self.raise(unit, b, tag_idx, &why, step, x.end_ms, active);
+        let step_ms = self.0[20].0;
+        if tag_idx != unit.effluent_temperature && frozen != Some(tag_idx) {
+            // An input meter moved and the plant temperature has not followed yet: the plant may
+            // only be slow. Judged again once it has had time to answer.
+            let wait = METER_WAIT_MS.max(2 * (cfg.dead_time_ms + cfg.lag_ms));
+            *pending = Some(PendingMeter { tag: tag_idx, why, step, step_ms, due_ms: step_ms + wait });
+            return;
+        }
+        self.raise(unit, b, tag_idx, &why, step, step_ms, x.end_ms, active);
         self.0.clear();
     }
 
@@ -380,12 +434,13 @@ impl StepWindow {
         tag_idx: usize,
         why: &str,
         step: Step,
+        step_ms: i64,
         now: i64,
         active: &mut Held,
     ) {
         let Step { after: ma, size: dr, prediction: dp, measurement: dm } = step;
         let tag = &unit.tags[tag_idx];
-        let when = crate::core::calendar::rfc3339(self.0[20].0, &unit.time_zone);
+        let when = crate::core::calendar::rfc3339(step_ms, &unit.time_zone);
         let message = format!(
             "The residual stepped by {dr:+.2} K at about {when} and stayed there while {why}: suspect {} ({}); check it against a reference (local gauge, duplicate sensor) before trusting the soft tags.",
             tag.name, tag.role
@@ -461,6 +516,7 @@ mod tests {
         baseline: Option<Baseline>,
         instruments: Instruments,
         steps: StepWindow,
+        pending: Option<PendingMeter>,
         active: Held,
         /// (interval, flag) of every flag.
         flags: Vec<(i64, Flag)>,
@@ -479,6 +535,7 @@ mod tests {
                 baseline,
                 instruments: Instruments::default(),
                 steps: StepWindow::default(),
+                pending: None,
                 active: Held::default(),
                 flags: Vec::new(),
                 log: Vec::new(),
@@ -499,7 +556,7 @@ mod tests {
             let mut flags = Vec::new();
             let b = self.baseline.as_ref();
             self.instruments.check(&self.cfg, &self.unit, b, &x, &mut self.active, &mut flags);
-            self.steps.check(&self.cfg, &self.unit, b, 0.0, &x, &mut self.active);
+            self.steps.check(&self.cfg, &self.unit, b, 0.0, &x, &mut self.pending, &mut self.active);
             self.flags.extend(flags.into_iter().map(|f| (self.k, f)));
             self.log.push(self.held());
             self.k += 1;
@@ -591,10 +648,28 @@ mod tests {
     }
 
     #[test]
+    fn a_duty_move_that_the_plant_follows_slowly_is_not_a_meter_fault() {
+        // The operators raise the duty by 5 %; the plant answers after 8 min of dead time with
+        // a 15-min lag, which the monitor was not told about.
+        let mut rng = Rng::new(6);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 120, |k, p| {
+            let rise = 0.05 * p.duty / (p.feed * CP);
+            if k >= 20 {
+                p.duty *= 1.05;
+            }
+            p.pred = p.feed_t + p.duty / (p.feed * CP);
+            let t = (k - 28) as f64;
+            p.meas += if t > 0.0 { rise * (1.0 - (-t / 15.0).exp()) } else { 0.0 };
+        });
+        assert!(checks.log.iter().all(Vec::is_empty), "{:?}", checks.held());
+    }
+
+    #[test]
     fn a_meter_step_is_blamed_on_the_meter() {
         let mut rng = Rng::new(5);
         let mut checks = Checks::new();
-        checks.intervals(&mut rng, 30, |k, p| {
+        checks.intervals(&mut rng, 70, |k, p| {
             // The duty meter reads 5 % high: the model predicts a hotter effluent that the
             // plant does not deliver.
             if k >= 20 {
@@ -602,6 +677,9 @@ mod tests {
             }
             p.pred = p.feed_t + p.duty / (p.feed * CP);
         });
+        // Not before the plant has had half an hour to answer; then blamed on the meter.
+        let first = checks.log.iter().position(|h| !h.is_empty()).unwrap();
+        assert!((50..=52).contains(&first), "raised at interval {first}");
         assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "JI-103".to_string())]);
         let a = checks.active.iter().next().unwrap();
         let step = a.step_k().unwrap();

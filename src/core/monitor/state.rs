@@ -19,7 +19,7 @@ use super::analyzers::Analyzers;
 use super::attribution::{Attribution, BlockRecord, Charts, Watch};
 use super::baseline::{Baseline, LearnRow};
 use super::dynamics::Fopdt;
-use super::instruments::{Instruments, Reading, StepWindow};
+use super::instruments::{Instruments, PendingMeter, Reading, StepWindow};
 use super::settings::MonitorConfig;
 use super::ssd::{Floor, SteadyState};
 use super::trend::Trend;
@@ -178,6 +178,9 @@ pub struct Monitor {
     /// The effluent analyzer's smoothed conversions.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     extent_estimate: Option<ExtentEstimate>,
+    /// A meter step waiting for the plant's answer.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pending_meter: Option<PendingMeter>,
 }
 
 /// What the monitor produced for one interval.
@@ -214,6 +217,7 @@ impl Monitor {
             last_end_ms: None,
             analyzers: Analyzers::default(),
             extent_estimate: None,
+            pending_meter: None,
         }
     }
 
@@ -276,7 +280,15 @@ impl Monitor {
         let reading = Reading { end_ms: e.end_ms, pred: pred_ss, meas, r, tags: &e.signals.tag_values_si };
         let baseline = self.baseline.as_ref();
         self.instruments.check(cfg, unit, baseline, &reading, &mut self.active, &mut out.flags);
-        self.steps.check(cfg, unit, baseline, self.fopdt.a, &reading, &mut self.active);
+        self.steps.check(
+            cfg,
+            unit,
+            baseline,
+            self.fopdt.a,
+            &reading,
+            &mut self.pending_meter,
+            &mut self.active,
+        );
         self.analyzers.check(
             unit,
             e.end_ms,
@@ -382,6 +394,7 @@ impl Monitor {
         // The step and flatline windows compare intervals with each other: never across a
         // pause (the plant may come back at another operating point).
         self.steps = StepWindow::default();
+        self.pending_meter = None;
         self.instruments.forget_windows();
         self.analyzers.forget_changes();
     }
