@@ -231,6 +231,7 @@ def aggregate(results):
              "right_cause_first": sum(r["right_cause_first"] for r in rs),
              "median_right_cause_delay_h": quantile([r["right_cause_delay_h"] for r in rs if "right_cause_delay_h" in r], 0.5),
              "right_cause_ever": sum(r["right_cause_ever"] for r in rs),
+             "right_cause_24h": sum(1 for r in rs if r.get("right_cause_delay_h") is not None and r["right_cause_delay_h"] <= 24.0),
              "first_causes": dict(sorted(firsts.items(), key=lambda kv: -kv[1])),
              "expected": plants.EXPECTED_CAUSE[k]}
         if k in INSTRUMENT_KINDS:
@@ -295,14 +296,15 @@ def tables(agg, meta):
       "drifting meter: 2 % of reading); negative = raised before that moment. The first alert is the first "
       "raised after onset (data_quality alerts at a recorded data gap are not counted anywhere).\n")
     a("## Faults\n")
-    a("| fault | runs | detected | median delay h | p90 delay h | right cause first | right cause ever | median delay to right cause h | right tag | cleared ≤ 1 h after removal | first causes |")
-    a("|---|---|---|---|---|---|---|---|---|---|---|")
+    a("| fault | runs | detected | median delay h | p90 delay h | right cause first | right cause ever | right cause ≤ 24 h | median delay to right cause h | right tag | cleared ≤ 1 h after removal | first causes |")
+    a("|---|---|---|---|---|---|---|---|---|---|---|---|")
     for k, s in agg["faults"].items():
         rt = pct(s["right_tag"], s["runs"]) if "right_tag" in s else "–"
         cl = pct(s["cleared_1h"], s["active_at_removal"]) if "cleared_1h" in s else "–"
         fc = ", ".join(f"{c} {n}" for c, n in s["first_causes"].items()) or "–"
         a(f"| {k} | {s['runs']} | {pct(s['detected'], s['runs'])} | {fmt_h(s['median_delay_h'])} | "
           f"{fmt_h(s['p90_delay_h'])} | {pct(s['right_cause_first'], s['runs'])} | {pct(s['right_cause_ever'], s['runs'])} | "
+          f"{pct(s['right_cause_24h'], s['runs'])} | "
           f"{fmt_h(s['median_right_cause_delay_h'])} | "
           f"{rt} | {cl} | {fc} |")
     fz = agg["faults"].get("analyzer_frozen")

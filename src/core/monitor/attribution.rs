@@ -441,7 +441,7 @@ impl Watch<'_> {
                 })
             })
             .collect();
-        if rows.len() < 12 {
+        if rows.len() < MIN_RANK_BLOCKS {
             return Err("there are too few steady blocks since the change");
         }
         let mut candidates = vec![Candidate::Fouling, Candidate::HeatLoss, Candidate::Thermometer];
@@ -659,16 +659,18 @@ impl Watch<'_> {
         let b = self.b;
         let Some(last) = self.history.back().cloned() else { return };
         let dir = if dev_k < 0.0 { "cooler" } else { "hotter" };
+        // The deviation's own z (a held instrument step is already taken out of `dev_k`).
+        let z = dev_k / b.sigma;
         let message = match ranked {
             Some(r) => format!(
                 "The effluent runs {:.2} K {dir} than the model expects ({:+.1} σ), but {why}: most probable {r}.",
                 dev_k.abs(),
-                last.z
+                z
             ),
             None => format!(
                 "The effluent runs {:.2} K {dir} than the model expects ({:+.1} σ), but {why}, so the data cannot tell heater fouling from a conversion change; a lab analysis of the effluent (conversion) would settle it.",
                 dev_k.abs(),
-                last.z
+                z
             ),
         };
         let evidence = ev(&[
@@ -750,6 +752,11 @@ struct AmbientFit {
 /// Partial correlation: time and (when reported) the duty are taken out of both series
 /// first. A fouling deficit scales with the duty, and where the duty follows the weather
 /// (colder feed, more steam) it would otherwise pass for a heat loss.
+/// Steady blocks since the episode began before the causes are ranked (the ranking's
+/// variance is inflated for the autocorrelation of its fit, so a short window is not
+/// overconfident, only weak).
+const MIN_RANK_BLOCKS: usize = 8;
+
 /// Conditions that clear on their own checks (a stuck meter, a frozen analyzer, an analyzer's
 /// sum or balance error), never on clean blocks of the residual.
 fn held_by_own_check(subject: &str) -> bool {

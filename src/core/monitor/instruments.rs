@@ -296,6 +296,21 @@ impl StepWindow {
             return;
         }
         let Some(step) = self.step(cfg, b) else { return };
+        let before = step.after - step.size;
+        if (step.after - b.mu).abs() <= (before - b.mu).abs() {
+            // Back toward the baseline: the removal of a held instrument step (a thermometer
+            // recalibrated, a meter repaired) ends that alert at once.
+            let undone = |a: &super::active::Active| {
+                a.step_k().is_some_and(|k| {
+                    k.signum() != step.size.signum() && (k + step.size).abs() <= 0.4 * k.abs()
+                })
+            };
+            if active.iter().any(undone) {
+                active.retain(|a| !undone(a));
+                self.0.clear();
+            }
+            return;
+        }
         let (moved, frozen) = self.inputs_across(unit, b);
         let sides = self.sides(step, lag);
         let Some((tag_idx, why)) = suspect(unit, frozen, moved, sides, step) else { return };
@@ -325,7 +340,7 @@ impl StepWindow {
     }
 
     /// The residual's step, if it stands out from what the step statistic does on steady
-    /// data, both windows are quiet, and it moved away from the baseline.
+    /// data and both windows are quiet.
     fn step(&self, cfg: &MonitorConfig, b: &Baseline) -> Option<Step> {
         let (rb, ra) = (self.col(&|x| x.1, 0..20), self.col(&|x| x.1, 20..30));
         let (mb, ma) = (stats::median(&rb), stats::median(&ra));
@@ -343,8 +358,7 @@ impl StepWindow {
             return None;
         }
         let quiet = stats::mad_sigma(&rb) <= 3.0 * sig_i && stats::mad_sigma(&ra) <= 3.0 * sig_i;
-        let away = (ma - b.mu).abs() > (mb - b.mu).abs();
-        if !quiet || !away {
+        if !quiet {
             return None;
         }
         let dp = stats::median(&self.col(&|x| x.2, 20..30)) - stats::median(&self.col(&|x| x.2, 0..20));
@@ -645,6 +659,19 @@ mod tests {
         assert!(a.evidence["prediction_change_k"].as_f64().unwrap().abs() < 1e-9);
         assert!(a.message.contains("while no input moved: suspect TI-109"), "{}", a.message);
         assert_eq!(a.evidence["change_time"], "2026-12-01T00:21:00+00:00");
+    }
+
+    #[test]
+    fn a_thermometer_step_alert_ends_when_the_step_is_removed() {
+        let mut rng = Rng::new(8);
+        let mut checks = Checks::new();
+        // Reads 1 K high from interval 20 to 89, then corrected.
+        checks.intervals(&mut rng, 160, |k, p| p.meas += if (20..90).contains(&k) { 1.0 } else { 0.0 });
+        let held: Vec<bool> = checks.log.iter().map(|h| !h.is_empty()).collect();
+        assert!(held[35..90].iter().all(|h| *h), "held while the step stands");
+        let cleared = (90..160).find(|k| !held[*k]).unwrap();
+        assert!(cleared <= 90 + 12, "cleared {} intervals after the correction", cleared - 90);
+        assert!(held[cleared..].iter().all(|h| !h), "not raised again");
     }
 
     #[test]
