@@ -10,7 +10,7 @@
 //! conversion drifts over days; a 2 h constant cuts the analyzer's scatter about fivefold at a
 //! 10-min cycle and follows a drift of 0.05 in three days within 0.002. An analysis that fails
 //! the reconciliation's global test (a gross error: it contradicts the stoichiometry) does not
-//! enter the estimate. The estimate is carried between intervals by the monitor (and the
+//! enter the estimate, unless nothing else has come for a time constant. The estimate is carried between intervals by the monitor (and the
 //! checkpoint); this module stays pure.
 
 use serde::{Deserialize, Serialize};
@@ -79,7 +79,12 @@ pub fn take_in(
     };
     let var_z: Vec<f64> = (0..rec.conversions.len()).map(|r| rec.u_conversion(r).powi(2)).collect();
     let next = match prior.filter(|p| p.conversions.len() == rec.conversions.len()) {
-        Some(p) if gross_error => ExtentEstimate { last_seen: seen, ..p.clone() },
+        // An outlier is left out; when nothing but failing analyses has come for a time
+        // constant, the analyzer (or the configured feed) is off for good: they are taken in
+        // again (the best there is) and the monitor's balance alert says so.
+        Some(p) if gross_error && now_ms - p.updated_ms < tau_ms => {
+            ExtentEstimate { last_seen: seen, ..p.clone() }
+        }
         Some(p) => {
             let dt = (now_ms - p.updated_ms).max(0) as f64;
             let alpha = 1.0 - (-dt / tau_ms.max(1) as f64).exp();
@@ -181,5 +186,9 @@ mod tests {
         assert!(check.unwrap().gross_error);
         assert_eq!(next.conversions, first.conversions);
         assert_eq!(next.updated_ms, 0);
+        // Still failing after a time constant (a new analysis, as bad): taken in.
+        bad[0] = bad[0].map(|(y, u)| (y + 1e-4, u));
+        let (later, _) = take_in(&sys, &feed, &bad, Basis::Mole, Some(&next), 7_200_000, 7_200_000).unwrap();
+        assert_eq!(later.updated_ms, 7_200_000);
     }
 }

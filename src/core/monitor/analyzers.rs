@@ -14,7 +14,7 @@
 //! analyzer whose fractions sum outside the unit's `analyzer_sum_tolerance`, or an effluent
 //! analysis that fails the reconciliation's global test, in at least 4 of its last 6 updates is
 //! one `data_quality` alert naming the analyzer (subjects `<tag>:sum` and `<tag>:balance`),
-//! cleared after 12 good updates in a row.
+//! cleared after 12 good updates in a row (144 for a balance error).
 //!
 //! An outage (no values) is the staleness checks' business and restarts the clock, and an
 //! analyzer whose results stop arriving (the export holds the last one with no new samples)
@@ -41,6 +41,10 @@ const JUDGED: usize = 6;
 /// ... of which this many bad raise it; it clears after this many good ones in a row.
 const BAD: usize = 4;
 const GOOD: usize = 12;
+/// A balance error clears only after this many good analyses in a row (about a day at a
+/// 10-min cycle): it usually means the configured feed or stoichiometry is off, which comes and
+/// goes with the operating point.
+const GOOD_BALANCE: usize = 144;
 
 /// One analyzer: the tags it reports and its recent updates.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -61,7 +65,8 @@ struct Group {
     /// The results last judged.
     #[serde(default)]
     judged: Vec<Option<f64>>,
-    /// Recent updates: (sum outside the tolerance, failed the global test).
+    /// Recent updates: (sum outside the tolerance, failed the global test), the last
+    /// `GOOD_BALANCE`.
     #[serde(default)]
     recent: VecDeque<(bool, bool)>,
 }
@@ -160,7 +165,7 @@ impl Analyzers {
             g.judged = cur;
             let Some((sum, gross)) = update else { continue };
             g.recent.push_back(((sum - 1.0).abs() > unit.analyzer_sum_tolerance, gross));
-            while g.recent.len() > GOOD {
+            while g.recent.len() > GOOD_BALANCE {
                 g.recent.pop_front();
             }
             g.judge(unit, e.end_ms, sum, active);
@@ -177,9 +182,9 @@ impl Group {
         let (bad_sums, bad_tests) =
             last.fold((0, 0), |(s, t), r| (s + usize::from(r.0), t + usize::from(r.1)));
         // Cleared only after a long good run (a marginal analyzer would otherwise flap).
-        let long = self.recent.len() == GOOD;
-        let sums_good = long && self.recent.iter().all(|r| !r.0);
-        let tests_good = long && self.recent.iter().all(|r| !r.1);
+        let tail = |n: usize| self.recent.iter().skip(self.recent.len().saturating_sub(n));
+        let sums_good = self.recent.len() >= GOOD && tail(GOOD).all(|r| !r.0);
+        let tests_good = self.recent.len() >= GOOD_BALANCE && tail(GOOD_BALANCE).all(|r| !r.1);
         let tolerance = unit.analyzer_sum_tolerance;
         let sum_subject = format!("{first}:sum");
         if bad_sums >= BAD {
