@@ -278,6 +278,9 @@ impl Monitor {
             self.pause();
             out.state = self.state;
             out.flags.push(Flag::UnitDown);
+            // What was found before the unit went down still stands (a fouled heater, a
+            // frozen analyzer): held, not cleared by the shutdown.
+            self.active.emit(&mut out.conditions);
             return out;
         }
         let reading = Reading { end_ms: e.end_ms, pred: pred_ss, meas, r, tags: &e.signals.tag_values_si };
@@ -321,9 +324,10 @@ impl Monitor {
         self.accumulate(cfg, unit, e, r, feed, &mut out);
         if e.u_pred_k.is_some_and(|u| u > cfg.max_prediction_uncertainty) {
             out.flags.push(Flag::UncertainInputs);
-        } else {
-            self.active.emit(&mut out.conditions);
         }
+        // Held conditions stand until their own checks clear them: an interval with too
+        // uncertain inputs judges nothing new, but it does not end an alert either.
+        self.active.emit(&mut out.conditions);
         out.state = self.state;
         out
     }
