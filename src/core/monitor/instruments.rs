@@ -207,8 +207,10 @@ pub(super) struct StepWindow(VecDeque<StepRow>);
 
 /// A meter step waits this long (or twice the configured dead time plus lag, if longer) for
 /// the plant to answer before it is blamed on the meter, ms. Common practice for liquid-filled
-/// heaters and reactors: most answer a duty or flow move within half an hour.
-const METER_WAIT_MS: i64 = 30 * 60_000;
+/// heaters and reactors: most answer a duty or flow move within half an hour; 45 min leaves room
+/// for a slow one (measured on the plant zoo: fewer meter alerts on operator moves, bias steps still
+/// raised within the hour).
+const METER_WAIT_MS: i64 = 45 * 60_000;
 
 /// An input meter's step waiting for the plant's answer: if the residual still stands when it
 /// is due, the plant did not follow and the meter is blamed.
@@ -704,9 +706,9 @@ mod tests {
             }
             p.pred = p.feed_t + p.duty / (p.feed * CP);
         });
-        // Not before the plant has had half an hour to answer; then blamed on the meter.
+        // Not before the plant has had 45 min to answer; then blamed on the meter.
         let first = checks.log.iter().position(|h| !h.is_empty()).unwrap();
-        assert!((50..=52).contains(&first), "raised at interval {first}");
+        assert!((65..=67).contains(&first), "raised at interval {first}");
         assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "JI-103".to_string())]);
         let a = checks.active.iter().next().unwrap();
         let step = a.step_k().unwrap();
