@@ -597,6 +597,34 @@ mod tests {
     }
 
     #[test]
+    fn a_held_alert_stands_through_uncertain_inputs_and_a_shutdown() {
+        use crate::core::vocabulary::{Cause, Severity};
+        let mut plant = Plant::new();
+        let nominal = Point::nominal();
+        plant.states(nominal, 100);
+        let held = |out: &MonitorOutput| out.conditions.iter().any(|c| c.subject == "heater");
+        plant.monitor.active.raise(
+            Cause::HeaterFouling,
+            "heater",
+            Severity::Low,
+            "fouling".into(),
+            3.0,
+            0,
+            serde_json::Map::new(),
+        );
+        let (_, out) = plant.run(nominal);
+        assert!(held(&out));
+        // Inputs too uncertain to judge: flagged, but the alert is still held.
+        let mut e = evaluation(plant.k, nominal);
+        e.u_pred_k = Some(10.0 * plant.cfg.max_prediction_uncertainty);
+        let out = plant.monitor.step(&plant.cfg, &plant.unit, &mut e);
+        assert!(out.flags.contains(&Flag::UncertainInputs) && held(&out), "{out:?}");
+        // The unit down: paused, and the alert still held.
+        let (_, out) = plant.run(Point { feed: 1.0, ..nominal });
+        assert!(out.flags.contains(&Flag::UnitDown) && held(&out), "{out:?}");
+    }
+
+    #[test]
     fn a_block_is_the_mean_of_its_intervals() {
         let mut acc = Acc::default();
         let mut rng = Rng::new(3);
