@@ -442,16 +442,10 @@ impl Builder<'_, '_> {
                 }
             }
         }
-        let mut feed_total = vec![0.0; sys.len()];
-        for f in feeds {
-            for (t, n) in feed_total.iter_mut().zip(sys.feed_flows(f)) {
-                *t += n;
-            }
-        }
         let estimate = if usable && feeds.len() == unit.feeds.len() {
             match take_in(
                 sys,
-                &feed_total,
+                || sys.feed_total(feeds),
                 &reported,
                 basis,
                 prior.estimate,

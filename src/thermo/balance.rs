@@ -697,6 +697,17 @@ pub struct Outcome {
     pub method: Option<Method>,
 }
 
+/// The sum per component of several streams' molar flows.
+fn total_of(flows: &[Vec<f64>], n: usize) -> Vec<f64> {
+    let mut total = vec![0.0; n];
+    for stream in flows {
+        for (t, f) in total.iter_mut().zip(stream) {
+            *t += f;
+        }
+    }
+    total
+}
+
 impl Outcome {
     /// Effluent mole fractions.
     pub fn out_fractions(&self) -> Vec<f64> {
@@ -725,6 +736,12 @@ impl System {
         self.streams_with(inputs, check, None)
     }
 
+    /// Component molar flows (mol/s) of all feeds together.
+    pub fn feed_total(&self, feeds: &[FeedInput]) -> Vec<f64> {
+        let flows: Vec<Vec<f64>> = feeds.iter().map(|f| self.feed_flows(f)).collect();
+        total_of(&flows, self.len())
+    }
+
     /// [`System::streams`] with reaction `r`'s conversion replaced by `x` (`replace = Some((r, x))`).
     fn streams_with(
         &self,
@@ -732,14 +749,8 @@ impl System {
         check: bool,
         replace: Option<(usize, f64)>,
     ) -> Result<Streams, SolveError> {
-        let n = self.len();
         let feed_flows: Vec<Vec<f64>> = inputs.feeds.iter().map(|f| self.feed_flows(f)).collect();
-        let mut feed_total = vec![0.0; n];
-        for flows in &feed_flows {
-            for (t, f) in feed_total.iter_mut().zip(flows) {
-                *t += f;
-            }
-        }
+        let feed_total = total_of(&feed_flows, self.len());
         let mut extents = vec![0.0; self.reactions.len()];
         let mut conversions = vec![0.0; self.reactions.len()];
         let out_flows = match &inputs.effluent {

@@ -314,14 +314,15 @@ fn invert_spd(a: &[Vec<f64>]) -> Option<Vec<Vec<f64>>> {
 
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use crate::rng::Rng;
     use crate::thermo::balance::{PathChoice, Reaction};
     use crate::thermo::component::Library;
 
-    /// Methyl acetate hydrolysis: methyl acetate + water → acetic acid + methanol.
-    fn system() -> System {
+    /// Methyl acetate hydrolysis: methyl acetate + water → acetic acid + methanol (also the
+    /// system of the analyzer filter's tests).
+    pub(crate) fn system() -> System {
         let lib = Library::builtin().unwrap();
         let ids = ["methyl_acetate", "water", "acetic_acid", "methanol"];
         let comps = ids.iter().map(|id| lib.resolve(id).unwrap()).collect();

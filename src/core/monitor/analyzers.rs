@@ -120,7 +120,6 @@ impl Analyzers {
         ranges: &[Option<(f64, f64)>],
         active: &mut Held,
     ) {
-        self.fit(unit);
         for g in &mut self.0 {
             g.step(unit, now, values, ranges, active);
         }
@@ -128,8 +127,9 @@ impl Analyzers {
 }
 
 impl Analyzers {
-    /// One group per analyzer of the unit (rebuilt when the configuration changed).
-    fn fit(&mut self, unit: &UnitSpec) {
+    /// One group per analyzer of the unit (rebuilt when the configuration changed); once per
+    /// interval, before the checks.
+    pub(super) fn fit(&mut self, unit: &UnitSpec) {
         let wanted = groups(unit);
         if self.0.len() != wanted.len()
             || self.0.iter().zip(&wanted).any(|(g, w)| g.tags != w.2 || g.feed != w.1)
@@ -151,7 +151,6 @@ impl Analyzers {
     /// effluent) and failed global tests of the effluent reconciliation (only when `steady`:
     /// after a feed move the reactor's contents have not caught up with the feed yet).
     pub(super) fn judge_results(&mut self, unit: &UnitSpec, e: &Evaluation, steady: bool, active: &mut Held) {
-        self.fit(unit);
         for g in &mut self.0 {
             let cur: Vec<Option<f64>> =
                 g.tags.iter().map(|i| e.signals.tag_values_si.get(*i).copied().flatten()).collect();
@@ -336,6 +335,7 @@ normalize = true"#,
         assert!(!tags.is_empty(), "the test unit has an analyzer");
         let mut rng = Rng::new(7);
         let mut a = Analyzers::default();
+        a.fit(&u);
         let mut held = Held::default();
         let mut values = vec![Some(1.0); u.tags.len()];
         let mut out = Vec::new();
@@ -371,6 +371,7 @@ normalize = true"#,
         let u = unit();
         let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.2).collect();
         let mut a = Analyzers::default();
+        a.fit(&u);
         let mut held = Held::default();
         let mut values = vec![Some(1.0); u.tags.len()];
         for m in 0..400 {
@@ -391,6 +392,7 @@ normalize = true"#,
         let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.2).collect();
         let mut rng = Rng::new(3);
         let mut a = Analyzers::default();
+        a.fit(&u);
         let mut held = Held::default();
         let mut values = vec![Some(1.0); u.tags.len()];
         for m in 0..600 {
@@ -418,6 +420,7 @@ normalize = true"#,
         let u = unit();
         let tags: Vec<usize> = groups(&u).into_iter().flat_map(|g| g.2).collect();
         let mut a = Analyzers::default();
+        a.fit(&u);
         let mut held = Held::default();
         let mut rng = Rng::new(9);
         let mut out = Vec::new();

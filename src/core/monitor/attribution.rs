@@ -749,9 +749,6 @@ struct AmbientFit {
     consistent: bool,
 }
 
-/// Partial correlation: time and (when reported) the duty are taken out of both series
-/// first. A fouling deficit scales with the duty, and where the duty follows the weather
-/// (colder feed, more steam) it would otherwise pass for a heat loss.
 /// Steady blocks since the episode began before the causes are ranked (the ranking's
 /// variance is inflated for the autocorrelation of its fit, so a short window is not
 /// overconfident, only weak).
@@ -763,6 +760,9 @@ fn held_by_own_check(subject: &str) -> bool {
     [":stuck", ":frozen", ":sum", ":balance"].iter().any(|s| subject.ends_with(s))
 }
 
+/// Partial correlation: time and (when reported) the duty are taken out of both series
+/// first. A fouling deficit scales with the duty, and where the duty follows the weather
+/// (colder feed, more steam) it would otherwise pass for a heat loss.
 fn ambient_fit(rows: &[AmbientRow], amb: &[&BlockRecord], te: usize, dev_k: f64) -> AmbientFit {
     let t: Vec<f64> = rows.iter().map(|r| r.0).collect();
     let duty: Option<Vec<f64>> = rows.iter().map(|r| r.3).collect();

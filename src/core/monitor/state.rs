@@ -253,6 +253,7 @@ impl Monitor {
         // An effluent analysis describes the reactor's contents, which lag the feed by the
         // residence time: it is tested against the current feed only at steady state.
         let steady = matches!(self.state, MonitorState::Learning | MonitorState::Watching);
+        self.analyzers.fit(unit);
         self.analyzers.judge_results(unit, e, steady, &mut self.active);
         let (Some(pred_ss), Some(meas)) = (e.predicted_k, e.measured_k) else {
             self.pause();
