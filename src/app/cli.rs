@@ -97,6 +97,10 @@ pub enum Command {
         /// Delete the files at the end (by default they are kept for inspection).
         #[arg(long)]
         discard: bool,
+        /// Only write the simulated plant's export files into DIR (new or empty) and stop: the
+        /// data `config/example-site.toml` expects in `var/exports/sru`, for `replay` or `run`.
+        #[arg(long, value_name = "DIR", conflicts_with_all = ["speed", "out", "discard"])]
+        export_only: Option<PathBuf>,
     },
     /// Write the shift report (HTML) of a unit and print a text summary.
     #[command(after_help = AFTER_HELP)]
@@ -209,7 +213,13 @@ fn dispatch(command: Command) -> Result<(), Failure> {
         Command::Replay { config, paths, output, log_format, log_level } => {
             commands::replay(&config, &paths, output, log_format, &log_level)
         }
-        Command::Demo { seed, days, speed, out, discard } => commands::demo(seed, days, speed, out, discard),
+        Command::Demo { seed, days, speed, out, discard, export_only: Some(dir) } => {
+            let _ = (speed, out, discard);
+            commands::demo_exports(seed, days, &dir)
+        }
+        Command::Demo { seed, days, speed, out, discard, export_only: None } => {
+            commands::demo(seed, days, speed, out, discard)
+        }
         Command::Report { config, unit, shift, last: _ } => {
             commands::report(&config, unit.as_deref(), shift.as_deref())
         }

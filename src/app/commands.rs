@@ -216,6 +216,36 @@ pub fn demo(
     say(format_args!("\n{}", crate::CAUTION))
 }
 
+/// `efftemp demo --export-only DIR`: the demo plant's export files, without the service.
+pub fn demo_exports(seed: u64, days: f64, dir: &Path) -> Result<(), Failure> {
+    if !(days > 0.0 && days <= 60.0) {
+        return Err(Failure::Usage("--days must be within (0, 60]".into()));
+    }
+    if std::fs::read_dir(dir).is_ok_and(|mut d| d.next().is_some()) {
+        return Err(Failure::Usage(format!(
+            "{} is not empty: --export-only writes into a new or empty folder",
+            dir.display()
+        )));
+    }
+    let scenario = crate::app::sim::Scenario::demo(seed, days);
+    let rows = crate::app::sim::write_exports(&scenario, dir)
+        .map_err(|e| Failure::Runtime(format!("cannot write the exports into {}: {e}", dir.display())))?;
+    let files = std::fs::read_dir(dir).map(|d| d.count()).unwrap_or(0);
+    say(format_args!(
+        "wrote {rows} rows of reactor R-204 (invented Larchmoor works, seed {seed}, {days} simulated days) \
+         in {files} daily files to {}",
+        dir.display()
+    ))?;
+    say("injected events (what the alerts should find):")?;
+    for e in &scenario.events {
+        let day = jiff::Timestamp::from_second(e.start_s)
+            .map(|t| t.strftime("%Y-%m-%d %H:%M UTC").to_string())
+            .unwrap_or_default();
+        say(format_args!("  {day}  {}", e.description))?;
+    }
+    say("next: efftemp replay --config config/example-site.toml   (it reads var/exports/sru)")
+}
+
 /// `efftemp report`.
 pub fn report(path: &Path, unit: Option<&str>, shift: Option<&str>) -> Result<(), Failure> {
     let site = load_site(path)?;

@@ -66,3 +66,65 @@ fn short_demo_detects_every_event_with_the_right_cause_and_nothing_else() {
         }
     }
 }
+
+/// `config/example-site.toml` works out of the box on the demo plant's exports: `demo
+/// --export-only var/exports/sru` writes what it expects, and replaying them with it gives the
+/// same soft tags and the same alert events, byte for byte, as the demo's own site file. (Its
+/// comments say the settings are the demo's; this holds them to it.)
+#[test]
+fn example_site_replays_the_demo_exports_with_the_demo_results() {
+    use assert_cmd::cargo::cargo_bin_cmd;
+    let tmp = tempfile::tempdir().unwrap();
+    let root = tmp.path();
+    std::fs::create_dir_all(root.join("config")).unwrap();
+    let example = crate::util::root().join("config/example-site.toml");
+    std::fs::copy(&example, root.join("config/example-site.toml")).unwrap();
+
+    let exports = root.join("var/exports/sru");
+    let out = cargo_bin_cmd!("efftemp")
+        .args(["demo", "--seed", "1", "--days", "2.4", "--export-only"])
+        .arg(&exports)
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(out.status.success(), "{text}{}", String::from_utf8_lossy(&out.stderr));
+    assert!(text.contains("thermometer TI-2050"), "the injected events are listed: {text}");
+    let files = std::fs::read_dir(&exports).unwrap().count();
+    assert_eq!(files, 3, "2.4 days from midnight UTC span three daily files: {text}");
+    // A second run refuses to mix its files into the first run's.
+    let again = cargo_bin_cmd!("efftemp").args(["demo", "--export-only"]).arg(&exports).output().unwrap();
+    assert_eq!(again.status.code(), Some(2), "{}", String::from_utf8_lossy(&again.stderr));
+
+    let replay = |config: &std::path::Path| {
+        let out = cargo_bin_cmd!("efftemp").arg("replay").arg("--config").arg(config).output().unwrap();
+        assert!(out.status.success(), "{}: {}", config.display(), String::from_utf8_lossy(&out.stderr));
+    };
+    replay(&root.join("config/example-site.toml"));
+    std::fs::create_dir_all(root.join("demo")).unwrap();
+    let demo_site =
+        efftemp::app::sim::site_config("../var/exports/sru", "state", "output", false, "10m", 100);
+    std::fs::write(root.join("demo/site.toml"), demo_site).unwrap();
+    replay(&root.join("demo/site.toml"));
+
+    let (ours, demo) = (root.join("var/output/R-204"), root.join("demo/output/R-204"));
+    let mut compared = 0;
+    for entry in std::fs::read_dir(&demo).unwrap() {
+        let name = entry.unwrap().file_name();
+        let n = name.to_string_lossy();
+        if !(n.starts_with("softtags-") || n.starts_with("alerts-")) {
+            continue;
+        }
+        let (a, b) = (std::fs::read_to_string(demo.join(&name)).unwrap(), ours.join(&name));
+        let b = std::fs::read_to_string(&b).unwrap_or_else(|e| panic!("{}: {e}", b.display()));
+        crate::util::assert_same_lines(&b, &a, &n);
+        compared += 1;
+    }
+    assert!(compared >= 4, "soft-tag and alert files compared: {compared}");
+    let alerts: String = std::fs::read_dir(&ours)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.file_name().unwrap().to_string_lossy().starts_with("alerts-"))
+        .map(|p| std::fs::read_to_string(p).unwrap())
+        .collect();
+    assert!(alerts.contains("TI-2050"), "the thermometer shift is among the alerts:\n{alerts}");
+}

@@ -7,6 +7,7 @@ mod util;
 
 mod cli;
 mod demo;
+mod docs;
 mod forward;
 mod handbook;
 mod hostile;
