@@ -106,7 +106,12 @@ pub fn run(path: &Path, format: LogFormat, level: &str) -> Result<(), Failure> {
             match tokio::net::TcpListener::bind(addr).await {
                 Ok(listener) => {
                     tracing::info!(address = %addr, "health and metrics at /healthz, /readyz, /metrics");
-                    tokio::spawn(crate::app::http::serve(listener, snap_rx, std::future::pending()));
+                    tokio::spawn(crate::app::http::serve(
+                        listener,
+                        snap_rx,
+                        std::future::pending(),
+                        crate::app::http::HttpLimits::default(),
+                    ));
                 }
                 Err(e) => tracing::warn!(address = %addr, error = %e, "cannot serve health and metrics"),
             }
@@ -211,9 +216,26 @@ pub fn demo(
         }
         let site = r.dir.join("site.toml");
         say(format_args!("  configuration: {}", site.display()))?;
-        say(format_args!("  (try: efftemp report --config {} --last)", site.display()))?;
+        say(format_args!("  (try: {} report --config {} --last)", own_command(), site.display()))?;
     }
     say(format_args!("\n{}", crate::CAUTION))
+}
+
+/// How the user can call this binary again: `efftemp` when that name on the PATH is this very
+/// binary (after `cargo install`), else its full path (e.g. under `cargo run`).
+fn own_command() -> String {
+    let me = std::env::current_exe().ok().and_then(|p| std::fs::canonicalize(p).ok());
+    let on_path = std::env::var_os("PATH").and_then(|paths| {
+        std::env::split_paths(&paths)
+            .map(|d| d.join("efftemp"))
+            .find(|p| p.is_file())
+            .and_then(|p| std::fs::canonicalize(p).ok())
+    });
+    match (me, on_path) {
+        (Some(me), Some(found)) if me == found => "efftemp".into(),
+        (Some(me), _) => me.display().to_string(),
+        (None, _) => "efftemp".into(),
+    }
 }
 
 /// `efftemp demo --export-only DIR`: the demo plant's export files, without the service.
@@ -243,7 +265,10 @@ pub fn demo_exports(seed: u64, days: f64, dir: &Path) -> Result<(), Failure> {
             .unwrap_or_default();
         say(format_args!("  {day}  {}", e.description))?;
     }
-    say("next: efftemp replay --config config/example-site.toml   (it reads var/exports/sru)")
+    say(format_args!(
+        "next: {} replay --config config/example-site.toml   (it reads var/exports/sru)",
+        own_command()
+    ))
 }
 
 /// `efftemp report`.

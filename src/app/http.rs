@@ -185,18 +185,78 @@ async fn metrics(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoRespon
     ([(header::CONTENT_TYPE, "text/plain; version=0.0.4; charset=utf-8")], body)
 }
 
-/// Serve the endpoints on `listener` until `shutdown` completes.
+/// Bounds on what HTTP clients can hold: any local user can connect to a loopback address, and
+/// the endpoints must neither starve the service of file descriptors nor stop answering.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HttpLimits {
+    /// Connections served at once; a connection beyond this is closed at once.
+    pub max_connections: usize,
+    /// Time a client has to send a request's headers.
+    pub header_timeout: std::time::Duration,
+    /// Longest life of a connection (keep-alive included): an idle client is closed after it.
+    pub connection_lifetime: std::time::Duration,
+}
+
+impl Default for HttpLimits {
+    /// 64 connections (a scraper and a few people), 5 s for the headers, 30 s per connection.
+    fn default() -> Self {
+        HttpLimits {
+            max_connections: 64,
+            header_timeout: std::time::Duration::from_secs(5),
+            connection_lifetime: std::time::Duration::from_secs(30),
+        }
+    }
+}
+
+/// Serve the endpoints on `listener` until `shutdown` completes, within `limits`.
 pub async fn serve(
     listener: TcpListener,
     rx: watch::Receiver<Snapshot>,
     shutdown: impl Future<Output = ()> + Send + 'static,
+    limits: HttpLimits,
 ) -> std::io::Result<()> {
     let app = Router::new()
         .route("/healthz", get(healthz))
         .route("/readyz", get(readyz))
         .route("/metrics", get(metrics))
         .with_state(rx);
-    axum::serve(listener, app).with_graceful_shutdown(shutdown).await
+    let permits = std::sync::Arc::new(tokio::sync::Semaphore::new(limits.max_connections.max(1)));
+    let mut connections = tokio::task::JoinSet::new();
+    tokio::pin!(shutdown);
+    loop {
+        let accepted = tokio::select! {
+            () = &mut shutdown => break,
+            a = listener.accept() => a,
+            // Reap finished connections so the set stays small.
+            Some(_) = connections.join_next(), if !connections.is_empty() => continue,
+        };
+        let stream = match accepted {
+            Ok((stream, _)) => stream,
+            Err(e) => {
+                // Out of descriptors or a reset before accept: back off a little, keep serving.
+                tracing::warn!(error = %e, "HTTP accept failed");
+                tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+                continue;
+            }
+        };
+        let Ok(permit) = permits.clone().try_acquire_owned() else {
+            tracing::debug!(limit = limits.max_connections, "HTTP connection refused: at the limit");
+            drop(stream);
+            continue;
+        };
+        let service = hyper_util::service::TowerToHyperService::new(app.clone());
+        connections.spawn(async move {
+            let conn = hyper::server::conn::http1::Builder::new()
+                .timer(hyper_util::rt::TokioTimer::new())
+                .header_read_timeout(limits.header_timeout)
+                .max_buf_size(16 * 1024)
+                .serve_connection(hyper_util::rt::TokioIo::new(stream), service);
+            let _ = tokio::time::timeout(limits.connection_lifetime, conn).await;
+            drop(permit);
+        });
+    }
+    connections.abort_all();
+    Ok(())
 }
 
 #[cfg(test)]
@@ -226,5 +286,78 @@ mod tests {
                 assert!(declared.iter().any(|d| d == name), "{line}");
             }
         }
+    }
+
+    /// Whether the server closes `stream` within `within` (a read returns end of file or a
+    /// reset) while the client sends nothing more.
+    async fn closed_within(stream: &mut tokio::net::TcpStream, within: std::time::Duration) -> bool {
+        use tokio::io::AsyncReadExt as _;
+        let mut buf = [0u8; 256];
+        loop {
+            match tokio::time::timeout(within, stream.read(&mut buf)).await {
+                Err(_) => return false,
+                Ok(Ok(0) | Err(_)) => return true,
+                Ok(Ok(_)) => {}
+            }
+        }
+    }
+
+    async fn get(addr: std::net::SocketAddr, path: &str) -> String {
+        use tokio::io::{AsyncReadExt as _, AsyncWriteExt as _};
+        let mut s = tokio::net::TcpStream::connect(addr).await.unwrap();
+        let req = format!("GET {path} HTTP/1.1\r\nHost: x\r\nConnection: close\r\n\r\n");
+        s.write_all(req.as_bytes()).await.unwrap();
+        let mut out = String::new();
+        let _ = tokio::time::timeout(std::time::Duration::from_secs(5), s.read_to_string(&mut out)).await;
+        out
+    }
+
+    /// Idle and half-sent connections (any local user can open them) are bounded in number and
+    /// closed after the header timeout; the health endpoint answers again once they are gone,
+    /// and answers throughout when they stay under the limit.
+    #[tokio::test]
+    async fn idle_and_slow_clients_cannot_hold_the_endpoints() {
+        use tokio::io::AsyncWriteExt as _;
+        let listener = TcpListener::bind("127.0.0.1:0").await.unwrap();
+        let addr = listener.local_addr().unwrap();
+        let (_tx, rx) = watch::channel(Snapshot::default());
+        let limits = HttpLimits {
+            max_connections: 4,
+            header_timeout: std::time::Duration::from_millis(300),
+            connection_lifetime: std::time::Duration::from_secs(2),
+        };
+        let (stop_tx, stop_rx) = tokio::sync::oneshot::channel::<()>();
+        let server = tokio::spawn(serve(listener, rx, async move { drop(stop_rx.await) }, limits));
+
+        // Ten idle connections: four get a slot, the other six are closed at once.
+        let mut idle = Vec::new();
+        for _ in 0..10 {
+            idle.push(tokio::net::TcpStream::connect(addr).await.unwrap());
+            tokio::time::sleep(std::time::Duration::from_millis(20)).await;
+        }
+        let short = std::time::Duration::from_millis(150);
+        let mut closed_at_once = 0;
+        for s in idle.iter_mut().skip(4) {
+            closed_at_once += usize::from(closed_within(s, short).await);
+        }
+        assert_eq!(closed_at_once, 6, "connections beyond the limit are closed at once");
+        // The four in the slots send nothing: the header timeout closes them.
+        for s in idle.iter_mut().take(4) {
+            assert!(closed_within(s, std::time::Duration::from_secs(3)).await, "idle client kept");
+        }
+        assert!(get(addr, "/healthz").await.starts_with("HTTP/1.1 200"), "healthz after the idle clients");
+
+        // A slow client that sends half a request line is closed by the header timeout too.
+        let mut slow = tokio::net::TcpStream::connect(addr).await.unwrap();
+        slow.write_all(b"GET /metr").await.unwrap();
+        assert!(closed_within(&mut slow, std::time::Duration::from_secs(3)).await, "slow client kept");
+
+        // Under the limit, the endpoints answer while other clients sit idle.
+        let _a = tokio::net::TcpStream::connect(addr).await.unwrap();
+        let _b = tokio::net::TcpStream::connect(addr).await.unwrap();
+        let ready = get(addr, "/readyz").await;
+        assert!(ready.starts_with("HTTP/1.1 503") && ready.contains("not ready"), "{ready}");
+        let _ = stop_tx.send(());
+        server.await.unwrap().unwrap();
     }
 }

@@ -92,6 +92,9 @@ impl SiteConfig {
         });
         let state_dir = resolve_path(&base, raw.site.state_dir.as_deref().unwrap_or("state"));
         let output_dir = resolve_path(&base, raw.site.output_dir.as_deref().unwrap_or("output"));
+        if let Some(problem) = state_dir_problem(&state_dir) {
+            ck.err(&KeyPath::keys("site.state_dir"), problem);
+        }
         let service = check_service(&mut ck, &raw.service);
         let syslog = raw.forward.syslog.as_ref().and_then(|s| check_syslog(&mut ck, s, &state_dir));
         let library = site_library(&mut ck, &raw.site, &main, &base)?;
@@ -400,4 +403,31 @@ fn facility(ck: &mut Checker<'_>, key: &KeyPath, raw: Option<&RawFacility>) -> u
             DEFAULT_FACILITY
         }),
     }
+}
+/// Why an existing state directory must not be used, if it must not. Requests in it are
+/// obeyed (shelving alerts, re-learning a baseline) and its checkpoint is trusted, so nobody but
+/// the service account may write there: a group- or world-writable directory is refused, the
+/// sticky bit (mode 1777) included, since it still lets anyone plant a new file. A missing
+/// directory is fine (the service creates it with mode 0750).
+pub(crate) fn state_dir_problem(dir: &Path) -> Option<String> {
+    let meta = std::fs::metadata(dir).ok()?;
+    if !meta.is_dir() {
+        return Some(format!("state directory {} exists and is not a directory", dir.display()));
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt as _;
+        let mode = meta.permissions().mode() & 0o7777;
+        if mode & 0o022 != 0 {
+            let who = if mode & 0o002 != 0 { "world" } else { "group" };
+            return Some(format!(
+                "state directory {} is {who}-writable (mode {mode:04o}): another local user could plant \
+                 requests or a checkpoint in it; make it owned by the service account with mode 0750 or 0700 \
+                 (chmod 0750 {})",
+                dir.display(),
+                dir.display()
+            ));
+        }
+    }
+    None
 }

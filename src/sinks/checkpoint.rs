@@ -37,9 +37,9 @@ pub enum StateError {
         /// What the lock file says.
         holder: String,
     },
-    /// The directory is writable by everyone.
+    /// The directory is writable by others than its owner.
     #[error(
-        "state directory {dir} is world-writable (mode {mode:o}); refusing to use it: make it owned by the service user with mode 0750 or 0700"
+        "state directory {dir} is group- or world-writable (mode {mode:04o}); refusing to use it: make it owned by the service user with mode 0750 or 0700"
     )]
     WorldWritable {
         /// The directory.
@@ -75,12 +75,15 @@ fn io_err(dir: &Path) -> impl FnOnce(io::Error) -> StateError + '_ {
 impl StateDir {
     /// Create (if needed), check and lock the state directory.
     pub fn open(dir: &Path) -> Result<StateDir, StateError> {
+        #[cfg(not(unix))]
         fs::create_dir_all(dir).map_err(io_err(dir))?;
         #[cfg(unix)]
         {
-            use std::os::unix::fs::PermissionsExt;
+            use std::os::unix::fs::{DirBuilderExt as _, PermissionsExt};
+            fs::DirBuilder::new().recursive(true).mode(0o750).create(dir).map_err(io_err(dir))?;
             let mode = fs::metadata(dir).map_err(io_err(dir))?.permissions().mode();
-            if mode & 0o002 != 0 && mode & 0o1000 == 0 {
+            // Group or world write, sticky or not: anyone could plant requests or a checkpoint.
+            if mode & 0o022 != 0 {
                 return Err(StateError::WorldWritable { dir: dir.to_path_buf(), mode: mode & 0o7777 });
             }
         }
@@ -224,7 +227,19 @@ mod tests {
     fn world_writable_state_is_refused() {
         use std::os::unix::fs::PermissionsExt;
         let dir = tempfile::tempdir().unwrap();
-        fs::set_permissions(dir.path(), fs::Permissions::from_mode(0o777)).unwrap();
-        assert!(matches!(StateDir::open(dir.path()), Err(StateError::WorldWritable { .. })));
+        for mode in [0o777, 0o1777, 0o770, 0o1770] {
+            fs::set_permissions(dir.path(), fs::Permissions::from_mode(mode)).unwrap();
+            let got = StateDir::open(dir.path());
+            assert!(matches!(got, Err(StateError::WorldWritable { .. })), "mode {mode:o}: {got:?}");
+        }
+        for mode in [0o700, 0o750, 0o755] {
+            fs::set_permissions(dir.path(), fs::Permissions::from_mode(mode)).unwrap();
+            assert!(StateDir::open(dir.path()).is_ok(), "mode {mode:o}");
+        }
+        // A new state directory is created 0750 (whatever the umask allows of it).
+        let fresh = dir.path().join("new/state");
+        drop(StateDir::open(&fresh).unwrap());
+        let mode = fs::metadata(&fresh).unwrap().permissions().mode() & 0o777;
+        assert_eq!(mode & !0o750, 0, "{mode:o}");
     }
 }

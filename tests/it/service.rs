@@ -75,6 +75,37 @@ fn export_directory_may_not_overlap_the_output_or_state_directory() {
     );
 }
 
+/// A state directory others can write to (group or world, sticky bit included) is refused by
+/// `check` and by `run`, located at `site.state_dir`, with exit 2 (systemd does not restart
+/// it), before the service reads any request planted there.
+#[cfg(unix)]
+#[test]
+fn a_state_directory_others_can_write_is_refused_by_check_and_run() {
+    use std::os::unix::fs::PermissionsExt as _;
+    let plant = TestPlant::new("");
+    std::fs::create_dir_all(&plant.state).unwrap();
+    for mode in [0o1777, 0o777, 0o770] {
+        std::fs::set_permissions(&plant.state, std::fs::Permissions::from_mode(mode)).unwrap();
+        for cmd in ["check", "run"] {
+            let out = cargo_bin_cmd!("efftemp")
+                .args([cmd, "--config"])
+                .arg(&plant.config)
+                .timeout(Duration::from_secs(20))
+                .output()
+                .unwrap();
+            let err = String::from_utf8_lossy(&out.stderr);
+            assert_eq!(out.status.code(), Some(2), "{cmd} with mode {mode:o}: {err}");
+            assert!(
+                err.contains("`site.state_dir`") && err.contains(&format!("mode {mode:04o}")),
+                "{cmd}, mode {mode:o}: {err}"
+            );
+        }
+    }
+    std::fs::set_permissions(&plant.state, std::fs::Permissions::from_mode(0o750)).unwrap();
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&plant.config).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+}
+
 #[test]
 fn includes_are_followed_and_located() {
     let dir = tempfile::tempdir().unwrap();
@@ -363,7 +394,12 @@ async fn health_and_metrics_over_http() {
     let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
     let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
     let addr = listener.local_addr().unwrap();
-    tokio::spawn(efftemp::app::http::serve(listener, snap_rx, std::future::pending()));
+    tokio::spawn(efftemp::app::http::serve(
+        listener,
+        snap_rx,
+        std::future::pending(),
+        efftemp::app::http::HttpLimits::default(),
+    ));
     let (tx, rx) = tokio::sync::oneshot::channel::<()>();
     let notify = Arc::new(Notify::new());
     let svc = tokio::spawn(service::run(
