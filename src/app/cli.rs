@@ -41,7 +41,8 @@ pub enum Command {
         json: bool,
         /// Fail (exit 3, after printing the result) when the result has any validity warning:
         /// above a critical temperature, outside a correlation's range, two-phase risk or near
-        /// the bubble point, no bubble point, conversion outside 0..1, element imbalance.
+        /// the bubble point, no bubble point, conversion outside 0..1, element imbalance,
+        /// effluent below its liquid range.
         #[arg(long)]
         strict: bool,
     },

@@ -91,6 +91,22 @@ fn kelvin_number(v: &Number) -> Option<String> {
     }
 }
 
+/// The liquid floor of a stream made of the components with `present[i]`: (K, why); None
+/// until every component is resolved, or for an empty stream.
+pub(super) fn stream_floor(present: &[bool], comps: &Components) -> Option<(f64, String)> {
+    if comps.resolved.len() != comps.len() {
+        return None;
+    }
+    comps
+        .resolved
+        .iter()
+        .zip(present)
+        .filter(|(_, p)| **p)
+        .map(|(c, _)| floor(c))
+        .reduce(|a, b| if b.t < a.t { b } else { a })
+        .map(|l| (l.t, l.why))
+}
+
 /// Refuse `t` (K, written `v` at `key`) for a liquid stream (`what`, e.g. "this feed") made of
 /// the components with `present[i]`; nothing is checked until every component is resolved.
 pub(super) fn check_liquid_temperature(

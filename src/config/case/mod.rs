@@ -73,6 +73,9 @@ pub struct Case {
     pub echo: Echo,
     /// Notes raised while checking (e.g. a normalized composition).
     pub warnings: Vec<String>,
+    /// The effluent's liquid floor, K, and what sets it (see [`SAFE_FLOOR_K`]): a solved
+    /// effluent temperature below it is flagged.
+    pub effluent_floor: Option<(f64, String)>,
 }
 
 /// What the checks of the sections add to as they go.
@@ -172,8 +175,9 @@ impl Case {
         given_uncertainties(&mut ck, &raw, unknown, &given, &mut out.uncertain);
         let no_reactions = reactions.is_empty() && raw.reaction.is_empty();
         let effluent = effluent(&mut ck, &eff, no_reactions, conversions, &comps, &mut out);
+        let present = effluent_components(&effluent, &feeds, &reactions, comps.len());
+        let effluent_floor = liquid::stream_floor(&present, &comps);
         if let (Some(v), Some(t)) = (&eff.temperature, given.effluent_temperature) {
-            let present = effluent_components(&effluent, &feeds, &reactions, comps.len());
             let key = KeyPath::keys("effluent.temperature");
             liquid::check_liquid_temperature(
                 &mut ck,
@@ -221,7 +225,7 @@ impl Case {
             bubble_margin: model.bubble_margin,
         };
         let Collected { uncertain, echo, warnings } = out;
-        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings })
+        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings, effluent_floor })
     }
 }
 
@@ -1174,5 +1178,20 @@ mod tests {
         let quiet = run(&water_feed("330.0")).unwrap();
         assert_eq!(quiet.validity_warnings(), 0);
         assert!(!quiet.to_text().contains("Warnings"));
+    }
+
+    /// A solved effluent temperature below the effluent's liquid floor is a validity warning
+    /// (so `--strict` fails it). Source: water's liquid ranges start at 273.16 K
+    /// (config/components.toml, Perry's 8th ed.); 10 mol/s of water at 300 K losing 50 kW ends
+    /// near 300 - 50000/(10 x 75.3) = 234 K (liquid Cp about 75.3 J/(mol K), CRC).
+    #[test]
+    fn a_solved_effluent_below_the_liquid_floor_is_flagged() {
+        let report = run(&water_feed("300.0").replace("100 kW", "-50 kW")).unwrap();
+        assert!(report.effluent_temperature_k < 273.16, "{}", report.effluent_temperature_k);
+        assert!(report.flags.contains(&"below_liquid_range".to_string()), "{:?}", report.flags);
+        assert!(report.warnings.iter().any(|w| w.contains("below 273.16 K") && w.contains("may be frozen")));
+        assert!(report.validity_warnings() > 0);
+        let warm = run(&water_feed("300.0")).unwrap();
+        assert!(!warm.flags.contains(&"below_liquid_range".to_string()), "{:?}", warm.flags);
     }
 }

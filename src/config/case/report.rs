@@ -246,6 +246,16 @@ impl Report {
         let uncertainty = u.map(|u| uncertainty_json(case, u));
         let mut warnings = case.warnings.clone();
         warnings.extend(o.flags.iter().map(ToString::to_string));
+        let mut flags: Vec<String> = o.flags.iter().map(|f| f.code()).collect();
+        if let Some((floor, why)) = &case.effluent_floor
+            && o.t_out < *floor
+        {
+            flags.push("below_liquid_range".into());
+            warnings.push(format!(
+                "the effluent at {:.2} K is below {floor:.2} K, where the liquid data of its components start ({why}): it may be frozen, and the liquid balance extrapolates",
+                o.t_out
+            ));
+        }
         Report {
             case: case.source.path.display().to_string(),
             solved_for: case.unknown.as_str(),
@@ -272,7 +282,7 @@ impl Report {
                 crate::thermo::solver::Method::Newton => "newton",
                 crate::thermo::solver::Method::Brent => "brent",
             }),
-            flags: o.flags.iter().map(|f| f.code()).collect(),
+            flags,
             warnings,
             component_notes: sys
                 .components
