@@ -1,6 +1,7 @@
 //! Command-line interface: the argument definitions, and the one place that turns a command's
-//! result into an exit code: 0 success, 1 runtime failure, 2 usage or configuration error. A
-//! closed standard output (`efftemp check … | head -1`) ends a command quietly with 0.
+//! result into an exit code: 0 success, 1 runtime failure, 2 usage or configuration error, 3 a
+//! `calc --strict` result outside the model's validity. A closed standard output
+//! (`efftemp check … | head -1`) ends a command quietly with 0.
 
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -38,6 +39,12 @@ pub enum Command {
         /// Print one JSON object instead of the human summary.
         #[arg(long)]
         json: bool,
+        /// Fail (exit 3, after printing the result) when the result has any validity warning:
+        /// above a critical temperature, outside a correlation's range, two-phase risk or near
+        /// the bubble point, no bubble point, conversion outside 0..1, element imbalance,
+        /// effluent below its liquid range.
+        #[arg(long)]
+        strict: bool,
     },
     /// The service: tail the export files, compute each interval, alert, write back.
     #[command(after_help = AFTER_HELP)]
@@ -194,6 +201,8 @@ pub enum Command {
 pub const EXIT_CONFIG: u8 = 2;
 /// Exit code for runtime failures.
 pub const EXIT_RUNTIME: u8 = 1;
+/// Exit code of `calc --strict` for a result outside the model's validity.
+pub const EXIT_INVALID_RESULT: u8 = 3;
 
 /// Parse arguments, run the command, and map its result to an exit code.
 pub fn main() -> ExitCode {
@@ -207,7 +216,7 @@ pub fn main() -> ExitCode {
 fn dispatch(command: Command) -> Result<(), Failure> {
     use crate::requests::Action;
     match command {
-        Command::Calc { case, json } => commands::calc(&case, json),
+        Command::Calc { case, json, strict } => commands::calc(&case, json, strict),
         Command::Check { config } => commands::check(&config),
         Command::Run { config, log_format, log_level } => commands::run(&config, log_format, &log_level),
         Command::Replay { config, paths, output, log_format, log_level } => {
@@ -266,6 +275,10 @@ fn exit(failure: &Failure) -> ExitCode {
         Failure::Runtime(message) => {
             eprintln!("error: {message}");
             ExitCode::from(EXIT_RUNTIME)
+        }
+        Failure::Invalid(message) => {
+            eprintln!("error: {message}");
+            ExitCode::from(EXIT_INVALID_RESULT)
         }
     }
 }

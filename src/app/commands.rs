@@ -25,6 +25,8 @@ pub enum Failure {
     Case(LocatedErrors),
     /// The command failed while running (exit 1).
     Runtime(String),
+    /// `calc --strict`: the result is outside the model's validity (exit 3).
+    Invalid(String),
     /// Standard output was closed by its reader: stop quietly (exit 0).
     Closed,
 }
@@ -54,10 +56,17 @@ fn unit<'a>(site: &'a SiteConfig, name: &str) -> Result<&'a UnitConfig, Failure>
         .ok_or_else(|| Failure::Usage(format!("no unit `{name}` in the configuration")))
 }
 
-/// `efftemp calc`.
-pub fn calc(path: &Path, json: bool) -> Result<(), Failure> {
+/// `efftemp calc`; with `strict`, a result with validity warnings is printed, then fails.
+pub fn calc(path: &Path, json: bool, strict: bool) -> Result<(), Failure> {
     let report = Case::load(path).and_then(|case| case.run()).map_err(Failure::Case)?;
-    say(if json { report.to_json() } else { report.to_text() })
+    say(if json { report.to_json() } else { report.to_text() })?;
+    match report.validity_warnings() {
+        n if strict && n > 0 => Err(Failure::Invalid(format!(
+            "{}: the result has {n} validity warning(s) (listed with it); --strict treats it as outside the model's validity",
+            path.display()
+        ))),
+        _ => Ok(()),
+    }
 }
 
 /// `efftemp check`.

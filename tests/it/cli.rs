@@ -106,7 +106,7 @@ fn error_cases() -> Vec<(&'static str, String, usize, &'static str)> {
             "conversion too high",
             format!("{GOOD_FEED}{reaction}conversion = 2.5\n[heater]\nduty = 1.0\n"),
             8,
-            "would be negative",
+            "`reaction[1].conversion`: conversion must be within 0..1 (0 <= X <= 1",
         ),
         ("no root in range", format!("{GOOD_FEED}[heater]\nduty = \"900 MW\"\n"), 6, "no effluent temperature closes the balance"),
         (
@@ -114,6 +114,18 @@ fn error_cases() -> Vec<(&'static str, String, usize, &'static str)> {
             format!("{GOOD_FEED}[heater]\nduty = 1.0\n[effluent]\ntemperature = 340.0\n[solve]\nunknown = \"duty\"\n"),
             6,
             "remove the duty",
+        ),
+        (
+            "negative conversion",
+            format!("{GOOD_FEED}{reaction}conversion = -0.1\n[heater]\nduty = 1.0\n"),
+            8,
+            "`reaction[1].conversion`: conversion must be within 0..1 (0 <= X <= 1",
+        ),
+        (
+            "degC written as K",
+            format!("{GOOD_FEED}[heater]\nduty = 1.0\n").replace("330.0", "57"),
+            3,
+            "`feed[1].temperature`: 57.00 K (given `57`; a bare number is in K) is too cold for a liquid",
         ),
         ("unknown unknown", format!("{GOOD_FEED}[heater]\nduty = 1.0\n[solve]\nunknown = \"pressure\"\n"), 8, "unknown `pressure`"),
         (
@@ -195,6 +207,48 @@ fn calc_error_paths_are_located_and_exit_2() {
         }
     }
     assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+/// `--strict` turns a validity warning into exit 3, after the result (warnings first) is
+/// printed; without a warning it changes nothing. Source of the warning: water boils at
+/// 373.12 K at 101325 Pa (CRC Handbook 95th ed., via config/components.toml); 10 mol/s of
+/// water heated from 330 K by 60 kW would reach about 410 K (liquid Cp about 75.3 J/(mol K), CRC).
+#[test]
+fn calc_strict_fails_a_result_outside_validity_with_exit_3() {
+    let boiling = "[model]\npressure = \"1 atm\"\n[[feed]]\nflow = 10.0\ntemperature = 330.0\ncomposition = { water = 1.0 }\n[heater]\nduty = \"60 kW\"\n";
+    let (_dir, path) = util::temp_file("case.toml", boiling);
+    let calc = |args: &[&str]| cargo_bin_cmd!("efftemp").arg("calc").arg(&path).args(args).output().unwrap();
+
+    let out = calc(&[]);
+    assert_eq!(out.status.code(), Some(0));
+    let text = String::from_utf8(out.stdout).unwrap();
+    let (w, r) = (text.find("two-phase risk").unwrap(), text.find("\nResult").unwrap());
+    assert!(w < r, "warnings must come before the result:\n{text}");
+
+    let out = calc(&["--strict"]);
+    assert_eq!(out.status.code(), Some(3));
+    assert!(String::from_utf8(out.stdout).unwrap().contains("two-phase risk"));
+    let stderr = String::from_utf8(out.stderr).unwrap();
+    assert!(
+        stderr.contains("case.toml: the result has 1 validity warning(s)") && stderr.contains("--strict"),
+        "{stderr}"
+    );
+
+    let out = calc(&["--json", "--strict"]);
+    assert_eq!(out.status.code(), Some(3));
+    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert!(
+        v["warnings"].as_array().unwrap().iter().any(|w| w.as_str().unwrap().starts_with("two-phase risk"))
+    );
+    assert_eq!(v["flags"], serde_json::json!(["two_phase_risk"]));
+
+    let (_dir2, fine) = util::temp_file("case.toml", &boiling.replace("60 kW", "10 kW"));
+    let out = cargo_bin_cmd!("efftemp").arg("calc").arg(&fine).arg("--strict").output().unwrap();
+    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stdout));
+
+    let help = cargo_bin_cmd!("efftemp").args(["calc", "--help"]).output().unwrap();
+    let help = String::from_utf8(help.stdout).unwrap();
+    assert!(help.contains("--strict") && help.contains("exit 3"), "{help}");
 }
 
 #[test]

@@ -149,13 +149,22 @@ def rand_fracs(rng, ids, dominant=None, ndp=None):
     return x
 
 
+def liquid_floor(ids):
+    """The lowest start of the liquid correlation ranges (cp_liq, psat) of the components in a
+    feed: efftemp refuses a feed colder than that as not liquid (a pure acetic acid feed below
+    289.81 K), so valid cases are drawn above it (100 K for a component without either range)."""
+    per = [min([LIB[c][k][0] for k in ("cp_liq_range", "psat_range") if k in LIB.get(c, {})] or [100.0])
+           for c in ids]
+    return min(per, default=100.0)
+
+
 def make_feeds(rng, comp_sets, S, temp_range=(285.0, 390.0), water_dominant=True):
     feeds = []
     for i, ids in enumerate(comp_sets):
         basis = rng.choice(["mole", "mole", "mass"])
         ndp = rng.choice([None, 4, 6])
         x = rand_fracs(rng, ids, "water" if water_dominant else None, ndp)
-        T = rng.uniform(*temp_range)
+        T = rng.uniform(max(temp_range[0], liquid_floor(ids) + 0.5), temp_range[1])
         flow_mol = rng.uniform(0.3, 60.0)
         if rng.random() < 0.45:
             # mass flow: approximate kg/s for this feed

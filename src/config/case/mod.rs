@@ -22,8 +22,11 @@ use crate::thermo::component::{Library, Origin, normalize_id};
 use crate::thermo::uncertainty::{InputRef, Uncertain};
 use crate::units::{Number, Quantity};
 
+mod liquid;
 mod raw;
 mod report;
+
+pub use liquid::SAFE_FLOOR_K;
 
 pub use raw::*;
 pub use report::*;
@@ -70,6 +73,9 @@ pub struct Case {
     pub echo: Echo,
     /// Notes raised while checking (e.g. a normalized composition).
     pub warnings: Vec<String>,
+    /// The effluent's liquid floor, K, and what sets it (see [`SAFE_FLOOR_K`]): a solved
+    /// effluent temperature below it is flagged.
+    pub effluent_floor: Option<(f64, String)>,
 }
 
 /// What the checks of the sections add to as they go.
@@ -169,6 +175,20 @@ impl Case {
         given_uncertainties(&mut ck, &raw, unknown, &given, &mut out.uncertain);
         let no_reactions = reactions.is_empty() && raw.reaction.is_empty();
         let effluent = effluent(&mut ck, &eff, no_reactions, conversions, &comps, &mut out);
+        let present = effluent_components(&effluent, &feeds, &reactions, comps.len());
+        let effluent_floor = liquid::stream_floor(&present, &comps);
+        if let (Some(v), Some(t)) = (&eff.temperature, given.effluent_temperature) {
+            let key = KeyPath::keys("effluent.temperature");
+            liquid::check_liquid_temperature(
+                &mut ck,
+                &key,
+                v,
+                t,
+                &present,
+                &comps,
+                "the effluent's components",
+            );
+        }
         if matches!(effluent, Effluent::Measured { .. }) && matches!(unknown, Unknown::Conversion(_)) {
             ck.err(
                 &KeyPath::keys("solve.unknown"),
@@ -205,7 +225,7 @@ impl Case {
             bubble_margin: model.bubble_margin,
         };
         let Collected { uncertain, echo, warnings } = out;
-        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings })
+        Ok(Case { source: src, system, inputs, unknown, uncertain, echo, warnings, effluent_floor })
     }
 }
 
@@ -389,6 +409,19 @@ fn feeds(ck: &mut Checker<'_>, raw: &[RawFeed], comps: &Components, out: &mut Co
         let (Some(flow), Some(temperature), Some(fractions)) = (flow, temperature, fractions) else {
             continue;
         };
+        if let Some(v) = &f.temperature {
+            let present: Vec<bool> = fractions.iter().map(|x| *x > 0.0).collect();
+            let what = format!("{label}'s components");
+            liquid::check_liquid_temperature(
+                ck,
+                &key.key("temperature"),
+                v,
+                temperature,
+                &present,
+                comps,
+                &what,
+            );
+        }
         feed_uncertainties(
             ck,
             &key,
@@ -517,10 +550,20 @@ fn reactions(
                 }
             }
         };
-        let conversion = re
-            .conversion
-            .as_ref()
-            .and_then(|c| ck.number(&key.key("conversion"), c, Quantity::Dimensionless));
+        let conversion = re.conversion.as_ref().and_then(|c| {
+            let x = ck.number(&key.key("conversion"), c, Quantity::Dimensionless)?;
+            if !(0.0..=1.0).contains(&x) {
+                // Kept as given, so that no second error says it is missing.
+                ck.err(
+                    &key.key("conversion"),
+                    format!(
+                        "conversion must be within 0..1 (0 <= X <= 1, the fraction of the key fed that reacts), got {x} (given `{}`)",
+                        c.as_written()
+                    ),
+                );
+            }
+            Some(x)
+        });
         if let Some(u) = &re.conversion_uncertainty
             && let Some(u) = input_u(
                 ck,
@@ -743,6 +786,25 @@ fn effluent(
     Effluent::Measured { fractions, basis }
 }
 
+/// The components that can be in the effluent: those of a measured composition, else those
+/// fed and those a reaction makes.
+fn effluent_components(
+    effluent: &Effluent,
+    feeds: &[FeedInput],
+    reactions: &[Reaction],
+    n: usize,
+) -> Vec<bool> {
+    match effluent {
+        Effluent::Measured { fractions, .. } => fractions.iter().map(|x| *x > 0.0).collect(),
+        _ => (0..n)
+            .map(|i| {
+                feeds.iter().any(|f| f.fractions.get(i).is_some_and(|x| *x > 0.0))
+                    || reactions.iter().any(|r| r.nu.get(i).is_some_and(|nu| *nu > 0.0))
+            })
+            .collect(),
+    }
+}
+
 /// Where a system error is best reported: the key that chose the path, defined the
 /// component or wrote the reaction.
 fn system_error_key(raw: &RawCase, first_use: &[KeyPath], e: &SystemError) -> KeyPath {
@@ -910,5 +972,226 @@ mod tests {
         );
         assert_eq!(e.location.line_col.map(|(l, _)| l), Some(5));
         assert!(e.message.contains("too large"), "{e}");
+    }
+
+    /// The one error of a case that must fail: (key, line, message).
+    fn only_error(text: &str) -> (String, usize, String) {
+        let err = run(text).map(|r| r.effluent_temperature_k).unwrap_err();
+        assert_eq!(err.0.len(), 1, "{err}");
+        let e = &err.0[0];
+        let key = e.location.key.as_ref().map(ToString::to_string).unwrap_or_default();
+        (key, e.location.line_col.map_or(0, |(l, _)| l), e.message.clone())
+    }
+
+    fn water_feed(temperature: &str) -> String {
+        format!(
+            "[[feed]]\nflow = 10.0\ntemperature = {temperature}\ncomposition = {{ water = 1.0 }}\n[heater]\nduty = \"100 kW\"\n"
+        )
+    }
+
+    /// A bare °C value read as K is refused at the key, with the value and a unit hint.
+    /// Source of the limit: config/components.toml, water `cp_liq_range` and `psat_range`
+    /// start at 273.16 K (Perry's 8th ed. Tables 2-153 and 2-8, as in the shared reference
+    /// components.csv).
+    #[test]
+    fn a_bare_degc_feed_temperature_is_refused_with_a_unit_hint() {
+        let (key, line, msg) = only_error(&water_feed("57"));
+        assert_eq!((key.as_str(), line), ("feed[1].temperature", 3));
+        assert!(
+            msg.contains("57.00 K (given `57`; a bare number is in K) is too cold for a liquid"),
+            "{msg}"
+        );
+        assert!(msg.contains("start at 273.16 K (water: start of its cp_liq and psat ranges)"), "{msg}");
+        assert!(msg.contains("no melting points"), "{msg}");
+        assert!(msg.ends_with("did you mean \"57 degC\"?"), "{msg}");
+        // Written in K, the same hint; written in degC, none (the unit was meant).
+        let (_, _, msg) = only_error(&water_feed("\"57 K\""));
+        assert!(msg.ends_with("did you mean \"57 degC\"?"), "{msg}");
+        let (key, _, msg) = only_error(&water_feed("\"-20 degC\""));
+        assert_eq!(key, "feed[1].temperature");
+        assert!(msg.contains("253.15 K (given `-20 degC`)") && !msg.contains("did you mean"), "{msg}");
+        // At the limit and in °C, the case runs.
+        assert!(run(&water_feed("273.16")).is_ok());
+        assert!(run(&water_feed("\"57 degC\"")).is_ok());
+    }
+
+    /// A mixture is refused only below the lowest liquid limit of its components (freezing-point
+    /// depression): water with methanol at 250 K runs. Source: config/components.toml,
+    /// methanol `cp_liq_range` and `psat_range` start at 175.47 K (Perry's 8th ed.).
+    #[test]
+    fn a_mixture_is_refused_below_the_lowest_liquid_limit_of_its_components() {
+        let case = |t: &str| {
+            format!(
+                "[[feed]]\nflow = 10.0\ntemperature = {t}\ncomposition = {{ water = 0.5, methanol = 0.5 }}\n[heater]\nduty = \"100 kW\"\n"
+            )
+        };
+        assert!(run(&case("250.0")).is_ok());
+        let (key, _, msg) = only_error(&case("150"));
+        assert_eq!(key, "feed[1].temperature");
+        assert!(msg.contains("start at 175.47 K (methanol: start of its cp_liq and psat ranges)"), "{msg}");
+        assert!(msg.contains("did you mean \"150 degC\"?"), "{msg}");
+    }
+
+    /// Pure acetic acid is refused below 289.81 K, and 285 K is no °C slip (285 °C would be a
+    /// strange misreading of a value above 0 °C in K): no hint. Source: config/components.toml,
+    /// acetic acid `cp_liq_range` and `psat_range` start at 289.81 K (Perry's 8th ed.); it
+    /// melts at about 289.8 K, 16.6 °C (from memory).
+    #[test]
+    fn a_value_above_0_degc_in_k_gets_no_unit_hint() {
+        let case = "[[feed]]\nflow = 1.0\ntemperature = 285.0\ncomposition = { acetic_acid = 1.0 }\n[heater]\nduty = \"1 kW\"\n";
+        let (key, _, msg) = only_error(case);
+        assert_eq!(key, "feed[1].temperature");
+        assert!(
+            msg.contains("start at 289.81 K (acetic_acid: start of its cp_liq and psat ranges)"),
+            "{msg}"
+        );
+        assert!(!msg.contains("did you mean"), "{msg}");
+        assert!(run(&case.replace("285.0", "290.0")).is_ok());
+    }
+
+    /// A component without liquid ranges falls back to the safe floor; above every range and
+    /// critical temperature nothing is liquid. Source: the floor is this module's documented
+    /// choice; water's highest limit is the end of its cp_ig range, 1000 K (Poling, Prausnitz,
+    /// O'Connell 5th ed. Appendix A, via components.csv).
+    #[test]
+    fn no_liquid_range_uses_the_floor_and_too_hot_is_refused() {
+        let inline = "[components.solvent_x]\nmolar_mass = 100.0\ntc = 550.0\ntb = 400.0\nhvap_tb = 35000.0\nhf_ig = -200000.0\ncp_ig = [50.0, 0.3]\n";
+        let case = |t: &str| {
+            format!(
+                "{inline}[[feed]]\nflow = 1.0\ntemperature = {t}\ncomposition = {{ solvent_x = 1.0 }}\n[heater]\nduty = 1.0\n"
+            )
+        };
+        let (key, line, msg) = only_error(&case("90"));
+        assert_eq!((key.as_str(), line), ("feed[1].temperature", 10));
+        assert!(
+            msg.contains(&format!("start at {SAFE_FLOOR_K:.2} K (solvent_x: no cp_liq_range or psat_range")),
+            "{msg}"
+        );
+        assert!(msg.contains("did you mean \"90 degC\"?"), "{msg}");
+        let (key, _, msg) = only_error(&water_feed("\"1500 K\""));
+        assert_eq!(key, "feed[1].temperature");
+        assert!(msg.contains("1500.00 K (given `1500 K`) is above every correlation range"), "{msg}");
+        assert!(msg.contains("the highest is 1000.00 K, water: end of its cp_ig range"), "{msg}");
+    }
+
+    /// The effluent temperature of a duty solve is checked like a feed's.
+    #[test]
+    fn a_bare_degc_effluent_temperature_is_refused() {
+        let case = "[[feed]]\nflow = 10.0\ntemperature = \"40 degC\"\ncomposition = { water = 1.0 }\n[effluent]\ntemperature = 63\n[solve]\nunknown = \"duty\"\n";
+        let (key, line, msg) = only_error(case);
+        assert_eq!((key.as_str(), line), ("effluent.temperature", 6));
+        assert!(msg.contains("the liquid data of the effluent's components start at 273.16 K"), "{msg}");
+        assert!(msg.ends_with("did you mean \"63 degC\"?"), "{msg}");
+    }
+
+    /// A given conversion outside 0..1 is refused at its key, with the allowed range.
+    #[test]
+    fn a_conversion_outside_0_to_1_is_refused_at_its_key() {
+        let case = |x: &str| {
+            format!(
+                "[[feed]]\nflow = 10.0\ntemperature = 330.0\ncomposition = {{ water = 0.7, methyl_acetate = 0.3 }}\n[[reaction]]\nstoichiometry = {{ methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }}\nkey = \"methyl_acetate\"\nconversion = {x}\n[heater]\nduty = 1.0\n"
+            )
+        };
+        for (x, got) in [("1.2", "got 1.2"), ("-0.1", "got -0.1"), ("\"120 %\"", "got 1.2")] {
+            let (key, line, msg) = only_error(&case(x));
+            assert_eq!((key.as_str(), line), ("reaction[1].conversion", 8), "{x}");
+            assert!(
+                msg.contains("conversion must be within 0..1 (0 <= X <= 1") && msg.contains(got),
+                "{x}: {msg}"
+            );
+        }
+        assert!(run(&case("1.0")).is_ok());
+        assert!(run(&case("0")).is_ok());
+    }
+
+    /// A case with every kind of input uncertainty: a molar feed and a mass feed, mole and mass
+    /// fractions, a conversion, the duty and the heat loss.
+    const UNCERTAIN: &str = "[[feed]]\nflow = \"38.5 kmol/h\"\ntemperature = \"46.5 degC\"\ncomposition = { water = 0.64, methyl_acetate = 0.31, methanol = 0.05 }\nflow_uncertainty = \"1 %\"\ntemperature_uncertainty = \"0.5 K\"\ncomposition_uncertainty = 0.004\n[[feed]]\nflow = \"2.6 t/h\"\ntemperature = \"28 degC\"\ncomposition = { water = 0.9, methanol = 0.1 }\nbasis = \"mass\"\nflow_uncertainty = \"10 kg/h\"\ncomposition_uncertainty = 0.003\n[[reaction]]\nstoichiometry = { methyl_acetate = -1, water = -1, acetic_acid = 1, methanol = 1 }\nkey = \"methyl_acetate\"\nconversion = 0.42\nconversion_uncertainty = 0.02\n[heater]\nduty = \"0.145 MW\"\nduty_uncertainty = \"2 %\"\nheat_loss = \"6 kW\"\nheat_loss_uncertainty = \"2 kW\"\n";
+
+    /// Every u(x) of the text budget carries its input's unit, and the JSON says it too.
+    #[test]
+    fn each_input_uncertainty_has_its_unit() {
+        let report = run(UNCERTAIN).unwrap();
+        let text = report.to_text();
+        let line = |label: &str| {
+            text.lines()
+                .find(|l| l.trim_start().starts_with(label) && l.contains("u(x) ="))
+                .unwrap_or_else(|| panic!("no budget line for {label}:\n{text}"))
+                .to_string()
+        };
+        for (label, unit) in [
+            ("feed 1 flow", "mol/s"),
+            ("feed 1 temperature", "K"),
+            ("feed 1 methyl_acetate fraction", "mol/mol"),
+            ("feed 2 flow", "kg/s"),
+            ("feed 2 water fraction", "kg/kg"),
+            ("reaction 1 conversion", "mol/mol"),
+            ("heater duty", "W"),
+            ("heat loss", "W"),
+        ] {
+            let l = line(label);
+            let after = l.split("u(x) =").nth(1).unwrap().split_whitespace().nth(1);
+            assert_eq!(after, Some(unit), "{l}");
+        }
+        // 1 % of 38.5 kmol/h = 0.106944 mol/s; 10 kg/h = 2.77778e-3 kg/s (unit definitions).
+        assert!(line("feed 1 flow").contains("1.06944e-1 mol/s"), "{text}");
+        assert!(line("feed 2 flow").contains("2.77778e-3 kg/s"), "{text}");
+        let json: serde_json::Value = serde_json::from_str(&report.to_json()).unwrap();
+        let units: Vec<&str> = json["uncertainty"]["contributions"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|c| c["unit"].as_str().unwrap())
+            .collect();
+        assert!(units.contains(&"kg/kg") && units.contains(&"mol/s") && units.contains(&"W"), "{units:?}");
+    }
+
+    /// In a duty solve the effluent temperature is the target, not a measurement.
+    #[test]
+    fn the_effluent_temperature_of_a_duty_solve_is_the_target() {
+        let case = "[[feed]]\nflow = 10.0\ntemperature = \"40 degC\"\ncomposition = { water = 1.0 }\n[effluent]\ntemperature = \"63 degC\"\n[solve]\nunknown = \"duty\"\n";
+        let text = run(case).unwrap().to_text();
+        assert!(text.contains("target effluent temperature (the duty reaches it): \"63 degC\""), "{text}");
+        assert!(!text.contains("measured"), "{text}");
+        let measured = format!("{}[effluent]\ntemperature = \"60 degC\"\n", water_feed("\"40 degC\""));
+        assert!(run(&measured).unwrap().to_text().contains("measured effluent temperature: \"60 degC\""));
+    }
+
+    /// Warnings come before the result. Source of the warning: water boils at 373.12 K at
+    /// 101325 Pa (CRC Handbook 95th ed., tb of config/components.toml); 10 mol/s of water from
+    /// 330 K with 60 kW ends near 410 K (Cp about 75.3 J/(mol K), CRC), above it.
+    #[test]
+    fn warnings_come_before_the_result() {
+        let case =
+            format!("[model]\npressure = \"1 atm\"\n{}", water_feed("330.0").replace("100 kW", "60 kW"));
+        let report = run(&case).unwrap();
+        assert!(report.flags.contains(&"two_phase_risk".to_string()), "{:?}", report.flags);
+        assert_eq!(report.validity_warnings(), report.flags.len());
+        let text = report.to_text();
+        let warnings = text.find("Warnings").unwrap();
+        let two_phase = text.find("two-phase risk").unwrap();
+        let inputs = text.find("\nInputs").unwrap();
+        let result = text.find("\nResult").unwrap();
+        assert!(warnings < two_phase && two_phase < inputs && inputs < result, "{text}");
+        assert_eq!(text.matches("two-phase risk").count(), 1, "{text}");
+        // Without a warning, no section.
+        let quiet = run(&water_feed("330.0")).unwrap();
+        assert_eq!(quiet.validity_warnings(), 0);
+        assert!(!quiet.to_text().contains("Warnings"));
+    }
+
+    /// A solved effluent temperature below the effluent's liquid floor is a validity warning
+    /// (so `--strict` fails it). Source: water's liquid ranges start at 273.16 K
+    /// (config/components.toml, Perry's 8th ed.); 10 mol/s of water at 300 K losing 50 kW ends
+    /// near 300 - 50000/(10 x 75.3) = 234 K (liquid Cp about 75.3 J/(mol K), CRC).
+    #[test]
+    fn a_solved_effluent_below_the_liquid_floor_is_flagged() {
+        let report = run(&water_feed("300.0").replace("100 kW", "-50 kW")).unwrap();
+        assert!(report.effluent_temperature_k < 273.16, "{}", report.effluent_temperature_k);
+        assert!(report.flags.contains(&"below_liquid_range".to_string()), "{:?}", report.flags);
+        assert!(report.warnings.iter().any(|w| w.contains("below 273.16 K") && w.contains("may be frozen")));
+        assert!(report.validity_warnings() > 0);
+        let warm = run(&water_feed("300.0")).unwrap();
+        assert!(!warm.flags.contains(&"below_liquid_range".to_string()), "{:?}", warm.flags);
     }
 }

@@ -7,7 +7,7 @@ use serde::Serialize;
 
 use super::{Case, Echo};
 use crate::source::{KeyPath, LocatedErrors};
-use crate::thermo::balance::{Basis, Outcome, SolveError, Unknown};
+use crate::thermo::balance::{Basis, Effluent, FlowValue, Outcome, SolveError, Unknown};
 use crate::thermo::uncertainty::{InputRef, UncertaintyReport, propagate};
 
 impl Case {
@@ -17,21 +17,21 @@ impl Case {
             let key = match &e {
                 SolveError::Temperature(..) => KeyPath::keys("heater.duty"),
                 SolveError::ImpossibleConversion { .. } => KeyPath::keys("effluent.temperature"),
-                SolveError::NegativeFlow { component, .. } => self
-                    .system
-                    .reactions
-                    .iter()
-                    .enumerate()
-                    .find(|(_, r)| {
-                        self.system
-                            .components
-                            .iter()
-                            .position(|c| c.id == *component)
-                            .is_some_and(|i| r.nu[i] < 0.0)
-                    })
-                    .map_or(KeyPath::keys("reaction"), |(r, _)| {
+                SolveError::NegativeFlow { component, .. } => {
+                    // The conversion of a reaction that consumes the component, else of one
+                    // that makes it (a negative conversion), else of the first.
+                    let i = self.system.components.iter().position(|c| c.id == *component);
+                    let nu = |r: &crate::thermo::balance::Reaction| i.map_or(0.0, |i| r.nu[i]);
+                    let reactions = &self.system.reactions;
+                    let r = reactions
+                        .iter()
+                        .position(|r| nu(r) < 0.0)
+                        .or_else(|| reactions.iter().position(|r| nu(r) != 0.0))
+                        .or((!reactions.is_empty()).then_some(0));
+                    r.map_or(KeyPath::keys("reaction"), |r| {
                         KeyPath::keys("reaction").index(r).key("conversion")
-                    }),
+                    })
+                }
                 SolveError::NoKeyFeed { reaction, .. } => {
                     KeyPath::keys("reaction").index(*reaction).key("key")
                 }
@@ -126,6 +126,10 @@ pub struct ContributionReport {
     pub value: f64,
     /// Its standard uncertainty (SI).
     pub standard_uncertainty: f64,
+    /// The unit of `value` and `standard_uncertainty`: `mol/s` or `kg/s` (a flow, in its own
+    /// basis), `K`, `W`, `mol/mol` or `kg/kg` (a fraction, in its composition's basis; a
+    /// conversion: mol of key converted per mol fed).
+    pub unit: &'static str,
     /// ∂(unknown)/∂(input).
     pub sensitivity: f64,
     /// |sensitivity|·u, in the unknown's unit.
@@ -239,9 +243,19 @@ impl Report {
             })
             .collect();
         let element_balance = element_balance(o);
-        let uncertainty = u.map(|u| uncertainty_json(case.unknown, u));
+        let uncertainty = u.map(|u| uncertainty_json(case, u));
         let mut warnings = case.warnings.clone();
         warnings.extend(o.flags.iter().map(ToString::to_string));
+        let mut flags: Vec<String> = o.flags.iter().map(|f| f.code()).collect();
+        if let Some((floor, why)) = &case.effluent_floor
+            && o.t_out < *floor
+        {
+            flags.push("below_liquid_range".into());
+            warnings.push(format!(
+                "the effluent at {:.2} K is below {floor:.2} K, where the liquid data of its components start ({why}): it may be frozen, and the liquid balance extrapolates",
+                o.t_out
+            ));
+        }
         Report {
             case: case.source.path.display().to_string(),
             solved_for: case.unknown.as_str(),
@@ -268,7 +282,7 @@ impl Report {
                 crate::thermo::solver::Method::Newton => "newton",
                 crate::thermo::solver::Method::Brent => "brent",
             }),
-            flags: o.flags.iter().map(|f| f.code()).collect(),
+            flags,
             warnings,
             component_notes: sys
                 .components
@@ -292,6 +306,12 @@ impl Report {
         }
     }
 
+    /// How many validity warnings (the `flags`) the result carries; notes from checking the
+    /// case (a rescaled composition, an unused component) are not counted.
+    pub fn validity_warnings(&self) -> usize {
+        self.flags.len()
+    }
+
     /// The JSON object.
     pub fn to_json(&self) -> String {
         serde_json::to_string_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"))
@@ -301,15 +321,16 @@ impl Report {
     pub fn to_text(&self) -> String {
         let mut s = String::new();
         let _ = write!(s, "efftemp calc: {}\n\n", self.case);
-        self.write_inputs(&mut s);
-        self.write_result(&mut s);
-        self.write_uncertainty(&mut s);
         if !self.warnings.is_empty() {
-            s.push_str("\nWarnings\n");
+            s.push_str("Warnings (read these before the result)\n");
             for w in &self.warnings {
                 let _ = writeln!(s, "  - {w}");
             }
+            s.push('\n');
         }
+        self.write_inputs(&mut s);
+        self.write_result(&mut s);
+        self.write_uncertainty(&mut s);
         if !self.component_notes.is_empty() {
             s.push_str("\nComponent notes\n");
             for (id, n) in &self.component_notes {
@@ -359,7 +380,12 @@ impl Report {
             let _ = writeln!(s, "  reaction {}: key {}, conversion {conv}", r.reaction, r.key);
         }
         if let Some(t) = self.echo.effluent_temperature.as_deref() {
-            let _ = writeln!(s, "  measured effluent temperature: \"{t}\"");
+            let label = match self.solved_for {
+                "duty" => "target effluent temperature (the duty reaches it)",
+                "conversion" => "specified effluent temperature (the conversion reproduces it)",
+                _ => "measured effluent temperature",
+            };
+            let _ = writeln!(s, "  {label}: \"{t}\"");
         }
         if let Some(p) = self.pressure_pa {
             let _ = writeln!(
@@ -419,7 +445,7 @@ impl Report {
         let unit = match u.quantity {
             "effluent_temperature_k" => "K",
             "duty_w" => "W",
-            _ => "",
+            _ => "mol/mol",
         };
         let _ = write!(
             s,
@@ -431,12 +457,14 @@ impl Report {
         }
         s.push('\n');
         let width = u.contributions.iter().map(|c| c.input.chars().count()).max().unwrap_or(0);
-        for c in &u.contributions {
+        let u_x: Vec<String> =
+            u.contributions.iter().map(|c| format!("{:.5e} {}", c.standard_uncertainty, c.unit)).collect();
+        let u_width = u_x.iter().map(String::len).max().unwrap_or(0);
+        for (c, u_x) in u.contributions.iter().zip(&u_x) {
             let _ = writeln!(
                 s,
-                "  {:<width$} u(x) = {:<12.5e} contributes {:.4} {unit} ({:.1} %)",
+                "  {:<width$} u(x) = {u_x:<u_width$}  contributes {:.4} {unit} ({:.1} %)",
                 c.input,
-                c.standard_uncertainty,
                 c.contribution,
                 c.share * 100.0
             );
@@ -482,8 +510,8 @@ fn element_balance(o: &Outcome) -> Option<IndexMap<String, ElementReport>> {
 }
 
 /// The uncertainty of the solved quantity, per input.
-fn uncertainty_json(unknown: Unknown, u: &UncertaintyReport) -> UncertaintyJson {
-    let quantity = match unknown {
+fn uncertainty_json(case: &Case, u: &UncertaintyReport) -> UncertaintyJson {
+    let quantity = match case.unknown {
         Unknown::Temperature => "effluent_temperature_k",
         Unknown::Duty => "duty_w",
         Unknown::Conversion(_) => "conversion",
@@ -492,17 +520,42 @@ fn uncertainty_json(unknown: Unknown, u: &UncertaintyReport) -> UncertaintyJson 
         quantity,
         standard_uncertainty: u.u,
         dominant_input: u.dominant().map(|c| c.label.clone()),
+        // The contributions are in the order of the case's uncertain inputs.
         contributions: u
             .contributions
             .iter()
-            .map(|c| ContributionReport {
+            .zip(&case.uncertain)
+            .map(|(c, item)| ContributionReport {
                 input: c.label.clone(),
                 value: c.value,
                 standard_uncertainty: c.u,
+                unit: input_unit(case, item.input),
                 sensitivity: c.sensitivity,
                 contribution: c.contribution,
                 share: c.share,
             })
             .collect(),
+    }
+}
+
+/// The unit of an input's value and standard uncertainty.
+fn input_unit(case: &Case, input: InputRef) -> &'static str {
+    let fraction = |basis: Basis| match basis {
+        Basis::Mole => "mol/mol",
+        Basis::Mass => "kg/kg",
+    };
+    match input {
+        InputRef::FeedFlow(j) => match case.inputs.feeds.get(j).map(|f| f.flow) {
+            Some(FlowValue::Mass(_)) => "kg/s",
+            _ => "mol/s",
+        },
+        InputRef::FeedTemperature(_) | InputRef::EffluentTemperature => "K",
+        InputRef::FeedFraction(j, _) => fraction(case.inputs.feeds.get(j).map_or(Basis::Mole, |f| f.basis)),
+        InputRef::EffluentFraction(_) => match &case.inputs.effluent {
+            Effluent::Measured { basis, .. } => fraction(*basis),
+            _ => "mol/mol",
+        },
+        InputRef::Duty | InputRef::HeatLoss => "W",
+        InputRef::Conversion(_) => "mol/mol",
     }
 }
