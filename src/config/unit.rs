@@ -83,7 +83,9 @@ pub(crate) fn check_unit(
     let ambient = raw.ambient.temperature.as_ref().and_then(|s| {
         let role = "ambient temperature";
         let k = key.key("ambient.temperature");
-        tags.signal(ck, &k, s, &[Quantity::Temperature], role, TagKind::Continuous, false).map(|x| x.0)
+        let sig = tags.signal(ck, &k, s, &[Quantity::Temperature], role, TagKind::Continuous, false)?.0;
+        fixed_positive(ck, &k, sig);
+        Some(sig)
     });
     let mk = key.key("model");
     let model = model(ck, &mut tags, &mk, &raw.model, &comps, (reactions.len(), raw.reaction.len()));
@@ -418,6 +420,8 @@ fn feed(
     let basis = ck.basis(&fk.key("basis"), f.basis.as_ref());
     let composition = feed_composition(ck, tags, fk, (&fname, basis), f, comps);
     let (Some((flow, fq)), Some((temperature, _))) = (flow, temperature) else { return None };
+    fixed_positive(ck, &fk.key("flow"), flow);
+    fixed_positive(ck, &fk.key("temperature"), temperature);
     Some(FeedConfig {
         name: fname,
         flow,
@@ -631,8 +635,11 @@ fn model(
     let choices = enthalpy_choices(ck, mk, m, comps);
     let pressure = m.pressure.as_ref().and_then(|s| {
         let role = "reactor pressure";
-        tags.signal(ck, &mk.key("pressure"), s, &[Quantity::Pressure], role, TagKind::Continuous, false)
-            .map(|x| x.0)
+        let sig = tags
+            .signal(ck, &mk.key("pressure"), s, &[Quantity::Pressure], role, TagKind::Continuous, false)?
+            .0;
+        fixed_positive(ck, &mk.key("pressure"), sig);
+        Some(sig)
     });
     let bubble_margin = m
         .bubble_margin
@@ -1129,6 +1136,14 @@ fn tag_unit(
         }
     }
     found
+}
+
+/// A fixed value of a quantity that cannot be zero or negative in SI (a flow, an absolute
+/// temperature or pressure) must be positive.
+fn fixed_positive(ck: &mut Checker<'_>, key: &KeyPath, sig: Signal) {
+    if let Signal::Fixed { si, .. } = sig {
+        ck.within(key, si, Range::Positive);
+    }
 }
 
 /// The word of a basis, as written in the file.

@@ -209,6 +209,10 @@ fn fraction_and_positive_settings_are_range_checked_where_they_are_written() {
         ("flood_count = 5", "flood_count = 1"),
         ("conversion_uncertainty = 0.02", "conversion_uncertainty = 2"),
         ("bubble_margin = \"10 K\"", "bubble_margin = \"-10 K\""),
+        (
+            "flow = { tag = \"FI-2021\", unit = \"t/h\", uncertainty = \"1.5 %\", range = [0.0, 10.0] }",
+            "flow = { value = \"-2 t/h\" }",
+        ),
     ]);
     assert_eq!(code, Some(2), "{err}");
     let m = "unit[1].monitor";
@@ -225,7 +229,8 @@ fn fraction_and_positive_settings_are_range_checked_where_they_are_written() {
     assert!(error_for(&err, "unit[1].alerts.flood_count").contains("at least 2, got 1"));
     assert!(error_for(&err, "unit[1].reaction[1].conversion_uncertainty").contains("[0, 1), got 2"));
     assert!(error_for(&err, "unit[1].model.bubble_margin").contains("zero or positive"));
-    assert!(err.contains("11 problem(s)"), "{err}");
+    assert!(error_for(&err, "unit[1].feed[2].flow").contains("must be positive"));
+    assert!(err.contains("12 problem(s)"), "{err}");
 
     let (code, err) = check_example_with(&[("effectiveness_limit = 0.85", "effectiveness_limit = 1.5")]);
     assert_eq!(code, Some(2));
