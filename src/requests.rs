@@ -13,7 +13,8 @@ use std::path::{Path, PathBuf};
 use serde::{Deserialize, Serialize};
 
 use crate::core::UnitCore;
-use crate::core::alerts::Shelf;
+use crate::core::alerts::{Shelf, alert_id};
+use crate::core::vocabulary::Cause;
 
 /// What an engineer asks for.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -85,6 +86,65 @@ impl Request {
             }
         }
     }
+}
+
+/// Check a shelve/unshelve selector of unit `unit`: a cause (`heater_fouling`),
+/// `cause/subject` with a known cause (`data_quality/TI-2050`), or an alert id of the unit
+/// (`R-204-dq-1a2b3c4d`). The error names the causes and the one nearest to what was written.
+pub fn check_selector(selector: &str, unit: &str) -> Result<(), String> {
+    let s = selector.trim();
+    let cause_part = s.split_once('/').map_or(s, |(c, _)| c);
+    if Cause::from_name(cause_part).is_some() {
+        return match s.split_once('/') {
+            Some((_, subject)) if subject.trim().is_empty() => {
+                Err(format!("selector `{s}` names no subject after `/` (e.g. `{cause_part}/TI-2050`)"))
+            }
+            _ => Ok(()),
+        };
+    }
+    if let Some(prefix) = alert_id_prefix(s) {
+        return if prefix == unit {
+            Ok(())
+        } else {
+            Err(format!("`{s}` is an alert id of unit `{prefix}`, not of `{unit}`"))
+        };
+    }
+    let names: Vec<&str> = Cause::ALL.iter().map(|c| c.as_str()).collect();
+    let nearest = names.iter().min_by_key(|n| edit_distance(cause_part, n)).copied().unwrap_or_default();
+    let example = alert_id(unit, Cause::DataQuality, "TI-1", 0);
+    Err(format!(
+        "unknown selector `{s}` (did you mean `{}`?): give a cause ({}), `cause/subject` (e.g. `data_quality/TI-2050`) or an alert id of this unit (like `{example}`)",
+        if s.contains('/') {
+            format!("{nearest}/{}", s.split_once('/').map_or("", |x| x.1))
+        } else {
+            nearest.to_string()
+        },
+        names.join(", ")
+    ))
+}
+
+/// The unit part of an alert id `<unit>-<code>-<8 hex digits>`, if `s` has that shape.
+fn alert_id_prefix(s: &str) -> Option<&str> {
+    let (rest, hex) = s.rsplit_once('-')?;
+    let (prefix, code) = rest.rsplit_once('-')?;
+    let hex_ok = hex.len() == 8 && hex.bytes().all(|b| b.is_ascii_digit() || (b'a'..=b'f').contains(&b));
+    (hex_ok && !prefix.is_empty() && Cause::ALL.iter().any(|c| c.code() == code)).then_some(prefix)
+}
+
+/// Levenshtein distance (insertions, deletions and substitutions of characters).
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut row: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut diag = row[0];
+        row[0] = i + 1;
+        for (j, cb) in b.iter().enumerate() {
+            let next = (diag + usize::from(ca != *cb)).min(row[j] + 1).min(row[j + 1] + 1);
+            diag = row[j + 1];
+            row[j + 1] = next;
+        }
+    }
+    row[b.len()]
 }
 
 /// The directory requests are dropped into.
@@ -164,6 +224,29 @@ mod tests {
         ] {
             assert!(serde_json::from_str::<Request>(bad).is_err(), "{bad}");
         }
+    }
+
+    #[test]
+    fn selectors_are_causes_cause_subjects_or_alert_ids_of_the_unit() {
+        for ok in ["heater_fouling", "data_quality/TI-2050", " undetermined ", "R-204-hf-1a2b3c4d"] {
+            assert_eq!(check_selector(ok, "R-204"), Ok(()), "{ok}");
+        }
+        let id = alert_id("R-204", Cause::InstrumentFault, "TI-2050", 1_796_083_200_000);
+        assert_eq!(check_selector(&id, "R-204"), Ok(()), "{id}");
+        let typo = check_selector("heater_fuoling", "R-204").unwrap_err();
+        assert!(typo.contains("did you mean `heater_fouling`?"), "{typo}");
+        assert!(typo.contains("conversion_drift") && typo.contains("model_validity"), "{typo}");
+        let sub = check_selector("data_qualty/TI-2050", "R-204").unwrap_err();
+        assert!(sub.contains("did you mean `data_quality/TI-2050`?"), "{sub}");
+        assert!(check_selector("data_quality/", "R-204").unwrap_err().contains("no subject"));
+        let other = check_selector("R-205-hf-1a2b3c4d", "R-204").unwrap_err();
+        assert!(other.contains("of unit `R-205`"), "{other}");
+        // Not an alert id: unknown code, short or upper-case hex.
+        for bad in ["R-204-xx-1a2b3c4d", "R-204-hf-1a2b3c", "R-204-hf-1A2B3C4D", ""] {
+            assert!(check_selector(bad, "R-204").is_err(), "{bad}");
+        }
+        assert_eq!(edit_distance("heater_fuoling", "heater_fouling"), 2);
+        assert_eq!(edit_distance("", "abc"), 3);
     }
 
     #[test]

@@ -9,7 +9,13 @@
 //! * calorie: International Table calorie, 4.1868 J (the engineering convention for duties);
 //! * Btu: International Table Btu, 1055.05585262 J;
 //! * pound: 0.45359237 kg (exact); psi: 6894.757293168361 Pa; atm: 101325 Pa (exact);
-//! * degF: T/K = (t/°F + 459.67) · 5/9; degR: T/K = 5/9 · T/°R.
+//! * degF: T/K = (t/°F + 459.67) · 5/9; degR: T/K = 5/9 · T/°R;
+//! * gauge pressures (`barg`, `psig`, `kPag`, `MPag`, also written `bar(g)` …): p = p_gauge +
+//!   the site's atmospheric pressure, so they are read only where one is known
+//!   ([`parse_any_at`] with `Some(atmosphere)`); elsewhere they are refused with a hint;
+//! * compositions: `%`, `mol%`, `mass%` (also `wt%`) are 0.01, `ppm` is 1e-6 of a fraction;
+//!   `mol%` and `mass%` also name a basis, which the configuration checks against the
+//!   stream's `basis`.
 
 use std::fmt;
 
@@ -32,7 +38,7 @@ pub enum Quantity {
     MolarEnergy,
     /// Molar mass (SI: g/mol, the customary unit; not kg/mol).
     MolarMass,
-    /// A pure number (mole or mass fraction, conversion); only `%` is accepted as a unit.
+    /// A pure number (mole or mass fraction, conversion): `%`, `mol%`, `mass%`, `ppm`.
     Dimensionless,
 }
 
@@ -170,8 +176,49 @@ const UNITS: &[Unit] = &[
     u("kg/mol", Quantity::MolarMass, 1e3, 0.0),
     // dimensionless
     u("%", Quantity::Dimensionless, 0.01, 0.0),
+    u("mol%", Quantity::Dimensionless, 0.01, 0.0),
+    u("mass%", Quantity::Dimensionless, 0.01, 0.0),
+    u("ppm", Quantity::Dimensionless, 1e-6, 0.0),
     FRACTION,
 ];
+
+/// Gauge-pressure units: their offset is the atmospheric pressure, which is a site setting, so
+/// the table holds the scale only ([`gauge`] gives the unit at an atmospheric pressure).
+const GAUGE_UNITS: &[Unit] = &[
+    u("barg", Quantity::Pressure, 1e5, 0.0),
+    u("kPag", Quantity::Pressure, 1e3, 0.0),
+    u("MPag", Quantity::Pressure, 1e6, 0.0),
+    u("psig", Quantity::Pressure, LB * 9.80665 / (0.0254 * 0.0254), 0.0),
+];
+
+/// Other spellings of the gauge units (matched without regard to case, like the canonical ones).
+const GAUGE_ALIASES: &[(&str, &str)] =
+    &[("bar(g)", "barg"), ("kPa(g)", "kPag"), ("MPa(g)", "MPag"), ("psi(g)", "psig")];
+
+/// The canonical gauge unit that `symbol` spells (any case), if it is one.
+fn gauge_unit(symbol: &str) -> Option<&'static Unit> {
+    let canonical = GAUGE_ALIASES
+        .iter()
+        .find(|(alias, _)| alias.eq_ignore_ascii_case(symbol))
+        .map_or(symbol, |(_, canonical)| canonical);
+    GAUGE_UNITS.iter().find(|g| g.symbol.eq_ignore_ascii_case(canonical))
+}
+
+/// Whether `symbol` spells a gauge pressure.
+pub fn is_gauge(symbol: &str) -> bool {
+    gauge_unit(symbol).is_some()
+}
+
+/// A gauge-pressure unit read as absolute pressure at `atmosphere_pa`
+/// (p = p_gauge · scale + atmosphere); `None` when `symbol` is not a gauge unit.
+pub fn gauge(symbol: &str, atmosphere_pa: f64) -> Option<Unit> {
+    gauge_unit(symbol).map(|g| Unit { offset: atmosphere_pa, ..*g })
+}
+
+/// The canonical gauge symbols (for messages).
+pub fn gauge_symbols() -> Vec<&'static str> {
+    GAUGE_UNITS.iter().map(|g| g.symbol).collect()
+}
 
 /// A plain fraction (0..1): the unit of analyzer tags written without `%`.
 pub const FRACTION: Unit = u("fraction", Quantity::Dimensionless, 1.0, 0.0);
@@ -189,10 +236,12 @@ const ALIASES: &[(&str, &str)] = &[
     ("torr", "mmHg"),
     ("tonne/h", "t/h"),
     ("te/h", "t/h"),
+    ("mole%", "mol%"),
+    ("mol %", "mol%"),
+    ("wt%", "mass%"),
+    ("wt %", "mass%"),
+    ("mass %", "mass%"),
 ];
-
-/// Gauge-pressure spellings that are refused with a hint (the balance needs absolute pressure).
-const GAUGE: &[&str] = &["barg", "psig", "kPag", "kPa(g)", "bar(g)", "psi(g)"];
 
 /// Look up a unit by symbol (or alias) for a quantity.
 pub fn lookup(quantity: Quantity, symbol: &str) -> Option<&'static Unit> {
@@ -235,7 +284,7 @@ pub enum UnitError {
         /// Accepted units, comma-separated.
         accepted: String,
     },
-    /// A gauge pressure was given.
+    /// A gauge pressure where no atmospheric pressure is known (the `calc` case file).
     #[error("`{unit}` is a gauge pressure; give the absolute pressure (e.g. \"3.0 bar\")")]
     GaugePressure {
         /// The unit as written.
@@ -264,9 +313,25 @@ fn split_number(text: &str) -> Option<(f64, &str)> {
     best
 }
 
+/// The unit part of `"<number> <unit>"` (trimmed; empty when there is none), or `None` when
+/// the text does not start with a number.
+pub fn unit_part(text: &str) -> Option<&str> {
+    split_number(text).map(|(_, unit)| unit)
+}
+
 /// Parse `text` as a value of one of the given quantities; returns the SI value and which
-/// quantity matched (the first in `quantities` whose unit table contains the unit).
+/// quantity matched (the first in `quantities` whose unit table contains the unit). Gauge
+/// pressures are refused: see [`parse_any_at`].
 pub fn parse_any(text: &str, quantities: &[Quantity]) -> Result<(f64, Quantity), UnitError> {
+    parse_any_at(text, quantities, None)
+}
+
+/// [`parse_any`], reading gauge pressures as absolute at `atmosphere_pa` when it is given.
+pub fn parse_any_at(
+    text: &str,
+    quantities: &[Quantity],
+    atmosphere_pa: Option<f64>,
+) -> Result<(f64, Quantity), UnitError> {
     let Some((value, unit_text)) = split_number(text) else {
         return Err(UnitError::NotANumber { text: text.trim().to_string() });
     };
@@ -293,8 +358,13 @@ pub fn parse_any(text: &str, quantities: &[Quantity]) -> Result<(f64, Quantity),
             accepted: list(),
         });
     }
-    if GAUGE.iter().any(|g| g.eq_ignore_ascii_case(unit_text)) {
-        return Err(UnitError::GaugePressure { unit: unit_text.to_string() });
+    if quantities.contains(&Quantity::Pressure)
+        && let Some(g) = gauge_unit(unit_text)
+    {
+        return match atmosphere_pa {
+            Some(atm) => Ok((Unit { offset: atm, ..*g }.to_si(value), Quantity::Pressure)),
+            None => Err(UnitError::GaugePressure { unit: unit_text.to_string() }),
+        };
     }
     for &quantity in quantities {
         if let Some(unit) = lookup(quantity, unit_text) {
@@ -370,6 +440,39 @@ mod tests {
     }
 
     #[test]
+    fn composition_units() {
+        let x = |t: &str| parse(t, Quantity::Dimensionless).unwrap();
+        // Source: definitions (1 % = 1e-2, 1 ppm = 1e-6 of the fraction).
+        assert!(close(x("12.5 mol%"), 0.125));
+        assert!(close(x("12.5 mole%"), 0.125));
+        assert!(close(x("40 mass%"), 0.4));
+        assert!(close(x("40 wt%"), 0.4));
+        assert!(close(x("250 ppm"), 2.5e-4));
+        assert_eq!(lookup(Quantity::Dimensionless, "wt%").unwrap().symbol, "mass%");
+        let msg = parse("3 vol%", Quantity::Dimensionless).unwrap_err().to_string();
+        assert!(msg.contains("mol%") && msg.contains("mass%") && msg.contains("ppm"), "{msg}");
+    }
+
+    #[test]
+    fn gauge_pressures_need_the_atmosphere() {
+        let p = Quantity::Pressure;
+        // Source: NIST SP 811 appendix B (1 bar = 1e5 Pa, 1 psi = 6894.757 Pa, standard
+        // atmosphere 101325 Pa); absolute = gauge + atmospheric pressure by definition.
+        assert!(close(parse_any_at("2.5 barg", &[p], Some(101_325.0)).unwrap().0, 351_325.0));
+        assert!(close(parse_any_at("2.5 bar(g)", &[p], Some(95_000.0)).unwrap().0, 345_000.0));
+        assert!(close(parse_any_at("150 kPa(g)", &[p], Some(100_000.0)).unwrap().0, 250_000.0));
+        assert!(close(parse_any_at("0 BARG", &[p], Some(98_000.0)).unwrap().0, 98_000.0));
+        let psig = parse_any_at("30 psig", &[p], Some(101_325.0)).unwrap().0;
+        assert!((psig - (30.0 * 6894.757 + 101_325.0)).abs() < 0.05, "{psig}");
+        // Without an atmospheric pressure (the case file) they stay refused.
+        assert!(matches!(parse("2.5 bar(g)", p), Err(UnitError::GaugePressure { .. })));
+        let u = gauge("kPa(g)", 100_000.0).unwrap();
+        assert_eq!(u.symbol, "kPag");
+        assert!(close(u.to_si(50.0), 150_000.0) && close(u.from_si(150_000.0), 50.0));
+        assert!(gauge("bar", 100_000.0).is_none() && is_gauge("psi(g)") && !is_gauge("psia"));
+    }
+
+    #[test]
     fn flow_picks_molar_or_mass() {
         let both = [Quantity::MolarFlow, Quantity::MassFlow];
         assert_eq!(parse_any("850 kmol/h", &both).unwrap().1, Quantity::MolarFlow);
@@ -395,6 +498,15 @@ impl Number {
 
     /// The SI value and the matching quantity, trying each quantity in turn.
     pub fn si_any(&self, quantities: &[Quantity]) -> Result<(f64, Quantity), UnitError> {
+        self.si_any_at(quantities, None)
+    }
+
+    /// [`Number::si_any`], reading gauge pressures as absolute at `atmosphere_pa` when given.
+    pub fn si_any_at(
+        &self,
+        quantities: &[Quantity],
+        atmosphere_pa: Option<f64>,
+    ) -> Result<(f64, Quantity), UnitError> {
         match self {
             Number::Plain(v) if v.is_finite() => {
                 Ok((*v, quantities.first().copied().unwrap_or(Quantity::Dimensionless)))
@@ -411,7 +523,7 @@ impl Number {
                         Err(UnitError::NotFinite { text: t.clone() })
                     };
                 }
-                parse_any(t, quantities)
+                parse_any_at(t, quantities, atmosphere_pa)
             }
         }
     }

@@ -9,7 +9,7 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 use crate::app::commands::{self, Failure};
-use crate::app::logging::LogFormat;
+use crate::app::logging::{LogFormat, err_line};
 
 const AFTER_HELP: &str = concat!(
     "CAUTION: efftemp is advisory. It is not a safety instrumented function, must not be used for ",
@@ -256,24 +256,24 @@ fn exit(failure: &Failure) -> ExitCode {
     match failure {
         Failure::Closed => ExitCode::SUCCESS,
         Failure::Usage(message) => {
-            eprintln!("error: {message}");
+            err_line(format_args!("error: {message}"));
             ExitCode::from(EXIT_CONFIG)
         }
         Failure::Site(errors) => {
             for e in &errors.0 {
-                eprintln!("error: {e}");
+                err_line(format_args!("error: {e}"));
             }
-            eprintln!("{} problem(s) in the configuration", errors.0.len());
+            err_line(format_args!("{} problem(s) in the configuration", errors.0.len()));
             ExitCode::from(EXIT_CONFIG)
         }
         Failure::Case(errors) => {
             for e in &errors.0 {
-                eprintln!("error: {e}");
+                err_line(format_args!("error: {e}"));
             }
             ExitCode::from(EXIT_CONFIG)
         }
         Failure::Runtime(message) => {
-            eprintln!("error: {message}");
+            err_line(format_args!("error: {message}"));
             ExitCode::from(EXIT_RUNTIME)
         }
         Failure::Invalid(message) => {

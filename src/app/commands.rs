@@ -7,7 +7,7 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-use crate::app::logging::LogFormat;
+use crate::app::logging::{LogFormat, err_line};
 use crate::app::signals::{Control, signals};
 use crate::config::case::Case;
 use crate::config::{SiteConfig, UnitConfig};
@@ -69,37 +69,62 @@ pub fn calc(path: &Path, json: bool, strict: bool) -> Result<(), Failure> {
     }
 }
 
-/// `efftemp check`.
+/// `efftemp check`: the summary of a valid configuration, with its notes.
 pub fn check(path: &Path) -> Result<(), Failure> {
     let site = load_site(path)?;
     say(format_args!("configuration OK: site \"{}\", {} unit(s)", site.name, site.units.len()))?;
     for u in &site.units {
-        let comps: Vec<String> = u
-            .spec
-            .system
-            .components
-            .iter()
-            .zip(&u.spec.system.paths)
-            .map(|(c, p)| format!("{} ({})", c.id, p.as_str()))
-            .collect();
-        say(format_args!(
-            "  {}: {} tag(s), interval {} s, input {}/{} ({:?}), components {}",
-            u.spec.name,
-            u.spec.tags.len(),
-            u.spec.interval_ms / 1000,
-            u.input.directory.display(),
-            u.input.pattern,
-            u.input.layout,
-            comps.join(", ")
-        ))?;
+        say(unit_summary(u))?;
+        for note in &u.notes {
+            say(format_args!("  note: {note}"))?;
+        }
     }
     say(format_args!("  state: {}; output: {}", site.state_dir.display(), site.output_dir.display()))
+}
+
+/// One unit's line in the `check` summary.
+fn unit_summary(u: &UnitConfig) -> String {
+    let comps: Vec<String> = u
+        .spec
+        .system
+        .components
+        .iter()
+        .zip(&u.spec.system.paths)
+        .map(|(c, p)| format!("{} ({})", c.id, p.as_str()))
+        .collect();
+    let info = u.spec.info.len();
+    format!(
+        "  {}: {} tag(s){}, interval {} s, input {}/{} ({}), components {}",
+        u.spec.name,
+        u.spec.tags.len(),
+        if info > 0 { format!(" ({info} informational)") } else { String::new() },
+        u.spec.interval_ms / 1000,
+        u.input.directory.display(),
+        u.input.pattern,
+        layout_text(&u.input.layout),
+        comps.join(", ")
+    )
+}
+
+/// A layout in words: "wide", or "long: columns tag, value, quality".
+fn layout_text(layout: &crate::ingest::settings::Layout) -> String {
+    use crate::ingest::settings::Layout;
+    match layout {
+        Layout::Wide => "wide".to_string(),
+        Layout::Long { tag, value, quality } => {
+            let q = quality.as_ref().map_or(String::new(), |q| format!(", {q}"));
+            format!("long: columns {tag}, {value}{q}")
+        }
+    }
 }
 
 /// `efftemp run`: the service until SIGTERM/SIGINT; SIGHUP reloads a validated configuration.
 pub fn run(path: &Path, format: LogFormat, level: &str) -> Result<(), Failure> {
     logging(format, level)?;
     let site = Arc::new(load_site(path)?);
+    for note in site.units.iter().flat_map(|u| &u.notes) {
+        tracing::info!(note = %note, "configuration note");
+    }
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
@@ -182,10 +207,10 @@ fn redirect_inputs(site: &mut SiteConfig, paths: &[PathBuf]) {
         match hit {
             Some(p) => u.input.directory = p.clone(),
             None => {
-                eprintln!(
+                err_line(format_args!(
                     "warning: no file for unit {} ({}) in the given paths; it reads nothing",
                     u.spec.name, u.input.pattern
-                );
+                ));
                 u.input.directory = PathBuf::from("/nonexistent/efftemp-replay");
             }
         }
@@ -355,8 +380,15 @@ pub fn request(
     }
     let action = match asked {
         Asked::Rebaseline => Action::Rebaseline,
-        Asked::Action(a) => a,
+        Asked::Action(a) => {
+            if let Action::Unshelve { selector } = &a {
+                crate::requests::check_selector(selector, unit_name).map_err(Failure::Usage)?;
+            }
+            a
+        }
         Asked::Shelve { selector, duration } => {
+            crate::requests::check_selector(&selector, unit_name).map_err(Failure::Usage)?;
+            let selector = selector.trim().to_string();
             let ms = crate::config::parse_duration_ms(&duration)
                 .map_err(|e| Failure::Usage(format!("--for: {e}")))?;
             let max = u.spec.alerts.shelve_max_ms;
@@ -372,7 +404,7 @@ pub fn request(
             Action::Shelve { selector, until }
         }
     };
-    let by = by.or_else(|| std::env::var("USER").ok()).unwrap_or_else(|| "unknown".into());
+    let by = by.unwrap_or_else(|| crate::app::audit::invoking_person(&crate::app::audit::from_environment()));
     let req = Request { unit: unit_name.to_string(), action, reason: reason.to_string(), by };
     let file = crate::requests::submit(&site.state_dir, &req)
         .map_err(|e| Failure::Runtime(format!("cannot queue the request: {e}")))?;
@@ -424,17 +456,23 @@ pub fn identify(path: &Path, unit_name: &str, max_dead_time: &str) -> Result<(),
         100.0 * id.improvement
     ))?;
     if id.trustworthy {
-        say(format_args!(
-            "put into [unit.monitor]: dead_time = \"{:.0}s\", lag = \"{:.0}s\"",
-            id.delay as f64 * s,
-            id.tau * s
-        ))
+        say(paste_lines(unit_name, id.delay as f64 * s, id.tau * s))
     } else {
-        eprintln!(
+        err_line(format_args!(
             "warning: weak estimate (the peak correlation is not clearly above chance or several dead times fit about as well): keep the configured values, or run this on a period with clear duty or feed-rate moves"
-        );
+        ));
         Ok(())
     }
+}
+
+/// The lines `identify` prints for the site file: a comment naming the table, then `dead_time`
+/// and `lag` in whole seconds, exactly as `[unit.monitor]` takes them.
+fn paste_lines(unit: &str, dead_time_s: f64, lag_s: f64) -> String {
+    format!(
+        "# paste into [unit.monitor] of the [[unit]] named \"{unit}\":\ndead_time = \"{:.0}s\"\nlag = \"{:.0}s\"",
+        dead_time_s.max(0.0),
+        lag_s.max(0.0)
+    )
 }
 
 /// Predicted and measured temperatures of the longest stretch of rows without gaps.
@@ -453,4 +491,35 @@ fn longest_contiguous(rows: &[crate::sinks::report::Row], interval: i64) -> (Vec
     }
     let seg = &rows[best.0..best.1];
     (seg.iter().filter_map(|r| r.predicted).collect(), seg.iter().filter_map(|r| r.measured).collect())
+}
+
+#[cfg(test)]
+#[allow(clippy::unwrap_used)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_pasted_lines_are_toml_of_the_monitor_table() {
+        let text = paste_lines("R-204", 120.4, 239.6);
+        let lines: Vec<&str> = text.lines().collect();
+        assert_eq!(
+            lines,
+            [
+                "# paste into [unit.monitor] of the [[unit]] named \"R-204\":",
+                "dead_time = \"120s\"",
+                "lag = \"240s\""
+            ]
+        );
+        let parsed: crate::config::RawMonitor = toml::from_str(&text).unwrap();
+        assert_eq!(parsed.dead_time.as_deref(), Some("120s"));
+        assert_eq!(parsed.lag.as_deref(), Some("240s"));
+    }
+
+    #[test]
+    fn layouts_read_as_words() {
+        use crate::ingest::settings::Layout;
+        assert_eq!(layout_text(&Layout::Wide), "wide");
+        let long = Layout::Long { tag: "tag".into(), value: "value".into(), quality: Some("q".into()) };
+        assert_eq!(layout_text(&long), "long: columns tag, value, q");
+    }
 }

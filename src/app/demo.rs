@@ -10,6 +10,7 @@ use std::sync::atomic::{AtomicI64, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
+use crate::app::logging::{err_line, err_text};
 use crate::app::service::{self, Wake};
 use crate::app::sim::{self, Event, Plant, Scenario};
 use crate::config::SiteConfig;
@@ -190,20 +191,20 @@ fn write_site(dir: &Path, scenario: &Scenario) -> anyhow::Result<Arc<SiteConfig>
 
 /// Say what the demo simulates and which events it injects.
 fn announce(opts: &DemoOptions, scenario: &Scenario, speed: f64, dir: &Path) {
-    eprintln!(
+    err_line(format_args!(
         "efftemp demo: reactor R-204 of the (invented) Larchmoor works, {} simulated days from {} at {:.0}x; files in {}",
         opts.days,
         day_label(sim::START_S * 1000),
         speed,
         dir.display()
-    );
-    eprintln!("  injected events:");
+    ));
+    err_line(format_args!("  injected events:"));
     for e in &scenario.events {
-        eprintln!("    {}  {}", day_label(e.start_s * 1000), e.description);
+        err_line(format_args!("    {}  {}", day_label(e.start_s * 1000), e.description));
     }
-    eprintln!(
+    err_line(format_args!(
         "  the first ~1.5 days teach the monitor its baseline; alerts appear below as the service raises them.\n"
-    );
+    ));
 }
 
 /// What the service's observer shares with the demo while it runs: how far the service has
@@ -251,14 +252,14 @@ fn print_event(e: &AlertEvent, tty: bool) {
         AlertKind::Cleared => "cleared",
     };
     let msg: String = e.message.chars().take(150).collect();
-    eprintln!(
+    err_line(format_args!(
         "{}[{}] {mark} {:<16} {:<6} {}: {msg}",
         if tty { "\r\x1b[K" } else { "" },
         day_label(e.time_ms),
         e.cause.as_str(),
         e.severity.as_str(),
         e.subject
-    );
+    ));
 }
 
 /// Append the plant's rows up to simulated time `target` to the export files (one file per
@@ -338,12 +339,12 @@ impl Writer<'_> {
             .lock()
             .map(|v| v.iter().filter(|e| e.event == AlertKind::Raised).count())
             .unwrap_or(0);
-        eprint!(
+        err_text(format_args!(
             "\r\x1b[K  simulated {} ({:.0} %), processed to {}, {n} alert(s) raised ",
             day_label(plant.time_s() * 1000),
             done * 100.0,
             day_label(self.seen.last_end.load(Ordering::Relaxed))
-        );
+        ));
         let _ = std::io::stderr().flush();
     }
 }
@@ -406,7 +407,7 @@ pub fn run(opts: &DemoOptions) -> anyhow::Result<DemoResult> {
     });
     result?;
     if tty && opts.verbose {
-        eprint!("\r\x1b[K");
+        err_text(format_args!("\r\x1b[K"));
     }
     let res = results(&dir, &scenario);
     if opts.discard {

@@ -2,7 +2,8 @@
 //! journald and log aggregators), INFO by default. Logs go to standard error; standard output
 //! is reserved for alert events and command output.
 
-use std::io::IsTerminal;
+use std::fmt::Display;
+use std::io::{IsTerminal, Write};
 
 use tracing_subscriber::EnvFilter;
 use tracing_subscriber::filter::LevelFilter;
@@ -37,4 +38,18 @@ pub fn init(format: LogFormat, filter: &str) -> Result<(), String> {
         builder.with_target(false).try_init()
     };
     res.map_err(|e| format!("cannot install the logger: {e}"))
+}
+
+/// Write a line on standard error. Unlike `eprintln!` it does not panic when standard error is
+/// a closed pipe (`efftemp check … 2>&1 | head -1`): what cannot be written is dropped.
+pub fn err_line(text: impl Display) {
+    let mut err = std::io::stderr().lock();
+    let _ = writeln!(err, "{text}");
+}
+
+/// [`err_line`] without the newline (progress lines redrawn in place).
+pub fn err_text(text: impl Display) {
+    let mut err = std::io::stderr().lock();
+    let _ = write!(err, "{text}");
+    let _ = err.flush();
 }

@@ -1,6 +1,7 @@
 //! The program around the pipeline: the command line, the service loop and its signals, the
 //! health and metrics endpoint, logging, and the embedded demo with its plant simulator.
 
+pub mod audit;
 pub mod cli;
 pub mod commands;
 pub mod demo;

@@ -14,14 +14,15 @@ use crate::units::{Number, Quantity};
 
 /// Parse a duration like "90s", "5m", "1h 30m" or "PT1M".
 pub fn parse_duration_ms(text: &str) -> Result<i64, String> {
-    let bad = |e: &dyn std::fmt::Display| {
-        format!("`{text}` is not a duration (e.g. \"60s\", \"5m\", \"1h 30m\", \"7d\"): {e}")
-    };
-    let span: jiff::Span = text.trim().parse().map_err(|e| bad(&e))?;
+    if text.trim().parse::<f64>().is_ok() {
+        return Err(format!("`{}` has no unit: a duration needs a unit, e.g. 8h or 30m", text.trim()));
+    }
+    let bad = || format!("`{text}` is not a duration (e.g. \"60s\", \"5m\", \"1h 30m\", \"7d\")");
+    let span: jiff::Span = text.trim().parse().map_err(|_| bad())?;
     // Days (and weeks) are 24 h here: durations in the configuration are elapsed times.
     let ms = span
         .total((jiff::Unit::Millisecond, jiff::SpanRelativeTo::days_are_24_hours()))
-        .map_err(|e| bad(&e))?;
+        .map_err(|_| bad())?;
     if !ms.is_finite() || ms.fract() != 0.0 {
         return Err(format!("duration `{text}` must be a whole number of milliseconds"));
     }
@@ -31,6 +32,66 @@ pub fn parse_duration_ms(text: &str) -> Result<i64, String> {
         return Err(format!("duration `{text}` must be positive"));
     }
     i64::try_from(ms).map_err(|_| format!("duration `{text}` is too long"))
+}
+
+/// Whether `text` is a zero duration such as "0s", "0m" or "0".
+fn is_zero_duration(text: &str) -> bool {
+    let t = text.trim();
+    t == "0"
+        || t.parse::<jiff::Span>().is_ok_and(|s| {
+            s.total((jiff::Unit::Millisecond, jiff::SpanRelativeTo::days_are_24_hours()))
+                .is_ok_and(|ms| ms == 0.0)
+        })
+}
+
+/// For a value outside 0..1 that reads as a percentage (2 <= x <= 100), the fraction it likely
+/// means: " (did you mean 0.85? …)".
+fn percent_hint(x: f64) -> String {
+    if (2.0..=100.0).contains(&x) {
+        format!(" (did you mean {}? the setting is a fraction: {x} % is {})", x / 100.0, x / 100.0)
+    } else {
+        String::new()
+    }
+}
+
+/// An interval of allowed values for [`Checker::within`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) enum Range {
+    /// 0 < x < 1.
+    OpenUnit,
+    /// 0 < x <= 1.
+    UnitClosedAbove,
+    /// 0 <= x < 1.
+    UnitClosedBelow,
+    /// 0 < x (finite).
+    Positive,
+    /// 0 <= x (finite).
+    NonNegative,
+}
+
+impl Range {
+    fn contains(self, x: f64) -> bool {
+        x.is_finite()
+            && match self {
+                Range::OpenUnit => x > 0.0 && x < 1.0,
+                Range::UnitClosedAbove => x > 0.0 && x <= 1.0,
+                Range::UnitClosedBelow => (0.0..1.0).contains(&x),
+                Range::Positive => x > 0.0,
+                Range::NonNegative => x >= 0.0,
+            }
+    }
+}
+
+impl std::fmt::Display for Range {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Range::OpenUnit => "a fraction in (0, 1)",
+            Range::UnitClosedAbove => "a fraction in (0, 1]",
+            Range::UnitClosedBelow => "a fraction in [0, 1)",
+            Range::Positive => "positive",
+            Range::NonNegative => "zero or positive",
+        })
+    }
 }
 
 /// Resolve an IANA time-zone name.
@@ -59,12 +120,35 @@ pub(crate) enum Percent {
 pub(crate) struct Checker<'a> {
     src: &'a SourceText,
     errors: &'a mut Vec<LocatedError>,
+    /// The site's atmospheric pressure, Pa, for gauge pressures (none in the case file,
+    /// which refuses them).
+    atmosphere_pa: Option<f64>,
+    /// Whether `mol%` and `mass%` are read: only where the caller checks them against the
+    /// stream's basis (the site file); elsewhere (the case file) they are refused.
+    basis_units: bool,
 }
 
 impl<'a> Checker<'a> {
     /// A checker of `src` that adds its errors to `errors`.
     pub(crate) fn new(src: &'a SourceText, errors: &'a mut Vec<LocatedError>) -> Checker<'a> {
-        Checker { src, errors }
+        Checker { src, errors, atmosphere_pa: None, basis_units: false }
+    }
+
+    /// This checker, reading gauge pressures as absolute at `atmosphere_pa`.
+    pub(crate) fn with_atmosphere(mut self, atmosphere_pa: f64) -> Checker<'a> {
+        self.atmosphere_pa = Some(atmosphere_pa);
+        self
+    }
+
+    /// This checker, reading `mol%` and `mass%` (the caller checks their basis).
+    pub(crate) fn with_basis_units(mut self) -> Checker<'a> {
+        self.basis_units = true;
+        self
+    }
+
+    /// The atmospheric pressure gauge pressures are read at, if any.
+    pub(crate) fn atmosphere(&self) -> Option<f64> {
+        self.atmosphere_pa
     }
 
     /// Report a problem at `key`.
@@ -110,7 +194,22 @@ impl<'a> Checker<'a> {
         v: &Number,
         quantities: &[Quantity],
     ) -> Option<(f64, Quantity)> {
-        match v.si_any(quantities) {
+        if !self.basis_units
+            && let Number::Text(t) = v
+            && let Some(unit) = crate::units::unit_part(t)
+            && let Some(u) = crate::units::lookup(Quantity::Dimensionless, unit)
+            && matches!(u.symbol, "mol%" | "mass%")
+        {
+            self.err(
+                key,
+                format!(
+                    "`{}` names a basis: write the fraction or % and give the stream's `basis`",
+                    t.trim()
+                ),
+            );
+            return None;
+        }
+        match v.si_any_at(quantities, self.atmosphere_pa) {
             Ok(x) => Some(x),
             Err(e) => {
                 self.err(key, e.to_string());
@@ -133,23 +232,48 @@ impl<'a> Checker<'a> {
         Some(t)
     }
 
-    /// A positive, finite number.
-    pub(crate) fn positive(&mut self, key: &KeyPath, x: f64) -> Option<f64> {
-        if x > 0.0 && x.is_finite() {
-            Some(x)
-        } else {
-            self.err(key, format!("must be positive, got {x}"));
-            None
-        }
-    }
-
     /// Whether `x`, a fraction of `what` (a conversion, a mole fraction), is within 0..1.
     pub(crate) fn fraction(&mut self, key: &KeyPath, what: &str, x: f64) -> bool {
         let ok = (0.0..=1.0).contains(&x);
         if !ok {
-            self.err(key, format!("{what} must be within 0..1, got {x}"));
+            self.err(key, format!("{what} must be within 0..1, got {x}{}", percent_hint(x)));
         }
         ok
+    }
+
+    /// `x` when it lies in `range` (a fraction-like setting such as a filter constant or an
+    /// effectiveness), else an error that states the range and, for a value that looks like a
+    /// percentage, the fraction meant.
+    pub(crate) fn within(&mut self, key: &KeyPath, x: f64, range: Range) -> Option<f64> {
+        if range.contains(x) {
+            Some(x)
+        } else {
+            self.err(key, format!("must be {range}, got {x}{}", percent_hint(x)));
+            None
+        }
+    }
+
+    /// `n` when it is at least `min`, else an error.
+    pub(crate) fn at_least<T: PartialOrd + std::fmt::Display>(
+        &mut self,
+        key: &KeyPath,
+        n: T,
+        min: T,
+    ) -> Option<T> {
+        if n >= min {
+            Some(n)
+        } else {
+            self.err(key, format!("must be at least {min}, got {n}"));
+            None
+        }
+    }
+
+    /// A duration that may be zero ("0s" switches a setting off), else as [`Checker::duration`].
+    pub(crate) fn duration_or_zero(&mut self, key: &KeyPath, v: Option<&String>, default_ms: i64) -> i64 {
+        match v {
+            Some(t) if is_zero_duration(t) => 0,
+            _ => self.duration(key, v, default_ms),
+        }
     }
 
     /// A range `[low, high]` of finite numbers with low < high.
@@ -210,6 +334,56 @@ mod tests {
         assert_eq!(parse_duration_ms("7d"), Ok(7 * 86_400_000));
         assert_eq!(parse_duration_ms("2w"), Ok(14 * 86_400_000));
         assert!(parse_duration_ms("1 month").is_err());
+        let bare = parse_duration_ms("8").unwrap_err();
+        assert!(bare.contains("a duration needs a unit, e.g. 8h or 30m"), "{bare}");
+        // The parser's own wording stays inside.
+        assert_eq!(
+            parse_duration_ms("soon").unwrap_err(),
+            "`soon` is not a duration (e.g. \"60s\", \"5m\", \"1h 30m\", \"7d\")"
+        );
         assert!(parse_duration_ms("0s").is_err());
+        assert!(is_zero_duration("0s") && is_zero_duration(" 0m ") && is_zero_duration("0"));
+        assert!(!is_zero_duration("1s") && !is_zero_duration("soon"));
+    }
+
+    #[test]
+    fn basis_units_are_read_only_where_their_basis_is_checked() {
+        let src = SourceText::new("c.toml", "x = \"30 mol%\"\n");
+        let (k, q) = (KeyPath::keys("x"), Quantity::Dimensionless);
+        let mut errors = Vec::new();
+        let mut ck = Checker::new(&src, &mut errors);
+        assert_eq!(ck.number(&k, &Number::Text("30 mol%".into()), q), None);
+        assert_eq!(ck.number(&k, &Number::Text("30 %".into()), q), Some(0.3));
+        assert_eq!(ck.number(&k, &Number::Text("300 ppm".into()), q), Some(3e-4));
+        let mut ck = Checker::new(&src, &mut errors).with_basis_units();
+        assert_eq!(ck.number(&k, &Number::Text("30 mass%".into()), q), Some(0.3));
+        assert_eq!(errors.len(), 1);
+        assert!(errors[0].message.contains("names a basis"), "{}", errors[0]);
+    }
+
+    #[test]
+    fn ranges_and_percent_hints() {
+        let src = SourceText::new("s.toml", "[m]\nx = 85\n");
+        let mut errors = Vec::new();
+        let mut ck = Checker::new(&src, &mut errors);
+        let k = KeyPath::keys("m.x");
+        assert_eq!(ck.within(&k, 0.85, Range::OpenUnit), Some(0.85));
+        assert_eq!(ck.within(&k, 85.0, Range::OpenUnit), None);
+        assert_eq!(ck.within(&k, 1.0, Range::OpenUnit), None);
+        assert_eq!(ck.within(&k, 1.0, Range::UnitClosedAbove), Some(1.0));
+        assert_eq!(ck.within(&k, 0.0, Range::UnitClosedBelow), Some(0.0));
+        assert_eq!(ck.within(&k, -1.0, Range::Positive), None);
+        assert_eq!(ck.within(&k, f64::INFINITY, Range::NonNegative), None);
+        assert_eq!(ck.at_least(&k, 0_u32, 1), None);
+        assert_eq!(ck.at_least(&k, 3_u32, 1), Some(3));
+        let text: Vec<String> = errors.iter().map(ToString::to_string).collect();
+        assert_eq!(text.len(), 5, "{text:?}");
+        assert!(
+            text[0].contains("s.toml:2:5") && text[0].contains("a fraction in (0, 1), got 85"),
+            "{text:?}"
+        );
+        assert!(text[0].contains("did you mean 0.85?") && text[0].contains("85 % is 0.85"), "{}", text[0]);
+        assert!(!text[1].contains("% is"), "{}", text[1]);
+        assert!(text[4].contains("must be at least 1, got 0"), "{}", text[4]);
     }
 }

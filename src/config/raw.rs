@@ -30,6 +30,9 @@ pub struct RawSiteSection {
     pub shifts: Vec<String>,
     /// Write a shift report automatically when a shift ends (default true).
     pub shift_reports: Option<bool>,
+    /// The site's atmospheric pressure (absolute), which turns gauge-pressure tags (`barg`,
+    /// `psig`, `kPa(g)`, …) into absolute pressure (default 101325 Pa).
+    pub atmospheric_pressure: Option<Number>,
 }
 
 /// `[service]`.
@@ -344,6 +347,10 @@ pub struct RawUnit {
     /// Monitoring settings.
     #[serde(default)]
     pub monitor: RawMonitor,
+    /// Informational tags: each key names a soft-tag column (after the documented ones); the
+    /// tag is read and checked like any other, but used by no computation.
+    #[serde(default)]
+    pub info: IndexMap<String, RawSignal>,
 }
 
 /// A syslog facility: a name (`"local0"`, `"daemon"`) or a number 0–23.

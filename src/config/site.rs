@@ -62,7 +62,16 @@ pub struct SiteConfig {
     pub shift_reports: bool,
     /// Syslog forwarding of alert events (`[forward.syslog]`), queue in `<state_dir>/syslog-queue`.
     pub syslog: Option<SyslogConfig>,
+    /// Atmospheric pressure, Pa, at which gauge-pressure tags are read.
+    pub atmospheric_pressure_pa: f64,
 }
+
+/// The standard atmosphere, Pa (the default `atmospheric_pressure`).
+const STANDARD_ATMOSPHERE_PA: f64 = 101_325.0;
+
+/// The plausible range of a site's atmospheric pressure, Pa: from about 5500 m above sea level
+/// to a deep valley in high weather.
+const ATMOSPHERE_RANGE_PA: (f64, f64) = (50_000.0, 110_000.0);
 
 /// A unit as read from the main file or an include: the file and the unit's key in it.
 type FoundUnit = (RawUnit, Arc<SourceText>, KeyPath);
@@ -98,6 +107,7 @@ impl SiteConfig {
         let service = check_service(&mut ck, &raw.service);
         let syslog = raw.forward.syslog.as_ref().and_then(|s| check_syslog(&mut ck, s, &state_dir));
         let library = site_library(&mut ck, &raw.site, &main, &base)?;
+        let atmosphere = atmospheric_pressure(&mut ck, raw.site.atmospheric_pressure.as_ref());
         if units.is_empty() {
             ck.err(&KeyPath::root(), "no [[unit]] is configured");
         }
@@ -117,6 +127,7 @@ impl SiteConfig {
             tz: &site_tz,
             tz_name: &site_tz_name,
             dirs: [&output_dir, &state_dir],
+            atmosphere,
         };
         let checked = site.check(&units, &mut errors);
         if !errors.is_empty() {
@@ -137,6 +148,7 @@ impl SiteConfig {
             service,
             units: checked,
             syslog,
+            atmospheric_pressure_pa: atmosphere,
         })
     }
 }
@@ -194,6 +206,29 @@ fn read_includes(
         files.push(src);
     }
     (files, units)
+}
+
+/// `[site] atmospheric_pressure`: an absolute pressure within [`ATMOSPHERE_RANGE_PA`].
+fn atmospheric_pressure(ck: &mut Checker<'_>, raw: Option<&crate::units::Number>) -> f64 {
+    let Some(v) = raw else { return STANDARD_ATMOSPHERE_PA };
+    let key = KeyPath::keys("site.atmospheric_pressure");
+    let Some(p) = ck.number(&key, v, crate::units::Quantity::Pressure) else { return STANDARD_ATMOSPHERE_PA };
+    let (lo, hi) = ATMOSPHERE_RANGE_PA;
+    if (lo..=hi).contains(&p) {
+        p
+    } else {
+        ck.err(
+            &key,
+            format!(
+                "an atmospheric pressure must be within {} to {} kPa (absolute), got {} Pa (`{}`)",
+                lo / 1e3,
+                hi / 1e3,
+                p,
+                v.as_written()
+            ),
+        );
+        STANDARD_ATMOSPHERE_PA
+    }
 }
 
 /// `[service]`, checked.
@@ -287,6 +322,8 @@ struct SiteUnits<'a> {
     tz_name: &'a str,
     /// The output and the state directory, which no export directory may overlap.
     dirs: [&'a PathBuf; 2],
+    /// Atmospheric pressure for gauge-pressure tags, Pa.
+    atmosphere: f64,
 }
 
 impl SiteUnits<'_> {
@@ -295,7 +332,7 @@ impl SiteUnits<'_> {
         let mut checked = Vec::new();
         let mut names: HashMap<String, KeyPath> = HashMap::new();
         for (raw_unit, src, key) in units {
-            let mut uck = Checker::new(src, errors);
+            let mut uck = Checker::new(src, errors).with_atmosphere(self.atmosphere).with_basis_units();
             if let Some(name) = &raw_unit.name
                 && let Some(prev) = names.insert(name.to_lowercase(), key.clone())
             {

@@ -2,15 +2,17 @@
 //! ([`InputConfig`]) and what the core computes with ([`UnitSpec`]).
 //!
 //! The sections are checked in a fixed order (input, timing, components, feeds, heater,
-//! effluent, reactions, ambient, model, alerts, monitor): the tag table grows in that order,
-//! which gives every tag its index.
+//! effluent, reactions, ambient, model, alerts, monitor, info): the tag table grows in that
+//! order, which gives every tag its index (the informational tags come last).
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
 use jiff::tz::TimeZone;
 
-use super::check::{Checker, Percent, parse_time_zone, resolve_path};
+use indexmap::IndexMap;
+
+use super::check::{Checker, Percent, Range, parse_time_zone, resolve_path};
 use super::raw::{
     RawAlerts, RawEffluent, RawFeed, RawHeater, RawInput, RawMonitor, RawSignal, RawSignalTable, RawSsd,
     RawTiming, RawUnit, RawUnitModel, RawUnitReaction,
@@ -20,7 +22,7 @@ use crate::core::monitor::settings::MonitorConfig;
 use crate::core::spec::{ConversionConfig, FeedConfig, Signal, TagConfig, Uncertainty, UnitSpec};
 use crate::core::vocabulary::TagKind;
 use crate::ingest::settings::{InputConfig, Layout, TimestampFormat};
-use crate::source::{KeyPath, SourceText};
+use crate::source::{KeyPath, LocatedError, SourceText};
 use crate::thermo::Component;
 use crate::thermo::balance::{Basis, DEFAULT_BOUNDS, PathChoice, Reaction, System};
 use crate::thermo::component::{Library, Origin, normalize_id};
@@ -40,6 +42,8 @@ pub struct UnitConfig {
     pub input: InputConfig,
     /// The unit as the core sees it.
     pub spec: UnitSpec,
+    /// Located remarks that are not errors (`check` prints them), e.g. an unset dead time.
+    pub notes: Vec<LocatedError>,
 }
 
 /// Check one unit; None when it has errors (they are in `ck`).
@@ -79,12 +83,15 @@ pub(crate) fn check_unit(
     let ambient = raw.ambient.temperature.as_ref().and_then(|s| {
         let role = "ambient temperature";
         let k = key.key("ambient.temperature");
-        tags.signal(ck, &k, s, &[Quantity::Temperature], role, TagKind::Continuous, false).map(|x| x.0)
+        let sig = tags.signal(ck, &k, s, &[Quantity::Temperature], role, TagKind::Continuous, false)?.0;
+        fixed_positive(ck, &k, sig);
+        Some(sig)
     });
     let mk = key.key("model");
     let model = model(ck, &mut tags, &mk, &raw.model, &comps, (reactions.len(), raw.reaction.len()));
     let alerts = alerts(ck, &key.key("alerts"), &raw.alerts);
     let monitor = check_monitor(ck, &key.key("monitor"), &raw.monitor, interval_ms);
+    let info = info_tags(ck, &mut tags, key, &raw.info);
 
     if ck.count() > errors_before {
         return None;
@@ -97,7 +104,9 @@ pub(crate) fn check_unit(
                 return None;
             }
         };
+    let notes = dynamics_notes(src, key, &raw.monitor, &name);
     Some(UnitConfig {
+        notes,
         description: raw.description.clone().unwrap_or_default(),
         source: src.clone(),
         time_zone_name,
@@ -124,8 +133,30 @@ pub(crate) fn check_unit(
             accepted_flags: model.accepted_flags,
             alerts,
             monitor,
+            info,
         },
     })
+}
+
+/// A note when `dead_time` or `lag` is unset: they default to 0 (no dynamic compensation),
+/// which makes every feed or duty move look like a residual transient.
+fn dynamics_notes(src: &SourceText, key: &KeyPath, m: &RawMonitor, unit: &str) -> Vec<LocatedError> {
+    let unset: Vec<&str> = [("dead_time", m.dead_time.is_none()), ("lag", m.lag.is_none())]
+        .into_iter()
+        .filter_map(|(name, unset)| unset.then_some(name))
+        .collect();
+    if unset.is_empty() {
+        return Vec::new();
+    }
+    let path = src.path.display();
+    vec![src.error_at(
+        &key.key("monitor"),
+        format!(
+            "{} unset, so 0 s: the prediction is not compensated for the reactor's dynamics; estimate {} with `efftemp identify --config {path} --unit {unit}`",
+            if unset.len() == 2 { "dead_time and lag are".to_string() } else { format!("{} is", unset[0]) },
+            if unset.len() == 2 { "them" } else { "it" }
+        ),
+    )]
 }
 
 /// The unit's name: letters, digits, `-` and `_` (it names files and alert ids).
@@ -386,9 +417,11 @@ fn feed(
             None
         }
     };
-    let composition = feed_composition(ck, tags, fk, &fname, f, comps);
     let basis = ck.basis(&fk.key("basis"), f.basis.as_ref());
+    let composition = feed_composition(ck, tags, fk, (&fname, basis), f, comps);
     let (Some((flow, fq)), Some((temperature, _))) = (flow, temperature) else { return None };
+    fixed_positive(ck, &fk.key("flow"), flow);
+    fixed_positive(ck, &fk.key("temperature"), temperature);
     Some(FeedConfig {
         name: fname,
         flow,
@@ -406,7 +439,7 @@ fn feed_composition(
     ck: &mut Checker<'_>,
     tags: &mut TagTable,
     fk: &KeyPath,
-    fname: &str,
+    (fname, basis): (&str, Basis),
     f: &RawFeed,
     comps: &Components,
 ) -> Vec<Signal> {
@@ -424,6 +457,7 @@ fn feed_composition(
         else {
             continue;
         };
+        tags.check_basis(ck, &k, s, sig, (fname, basis));
         match sig {
             Signal::Fixed { si, .. } => {
                 ck.fraction(&k, "fraction", si);
@@ -505,18 +539,22 @@ fn effluent_composition(
     comps: &Components,
 ) -> Option<(Vec<Signal>, Basis)> {
     let c = e.composition.as_ref()?;
+    let basis = ck.basis(&ek.key("basis"), e.basis.as_ref());
     let mut sigs = vec![Signal::Fixed { si: 0.0, u: 0.0 }; comps.len()];
     for (id, s) in c {
         let role = format!("effluent {id} fraction");
         let k = ek.key("composition").key(id);
-        if let Some((sig, _)) =
+        let Some((sig, _)) =
             tags.signal(ck, &k, s, &[Quantity::Dimensionless], &role, TagKind::Analyzer, false)
-            && let Some(i) = comps.index_of(id)
-        {
+        else {
+            continue;
+        };
+        tags.check_basis(ck, &k, s, sig, ("effluent analyzer", basis));
+        if let Some(i) = comps.index_of(id) {
             sigs[i] = sig;
         }
     }
-    Some((sigs, ck.basis(&ek.key("basis"), e.basis.as_ref())))
+    Some((sigs, basis))
 }
 
 /// `[[unit.reaction]]`: the reactions of the balance and their conversions.
@@ -555,15 +593,20 @@ fn reactions(
             0.0
         });
         ck.fraction(&rk.key("design_conversion"), "conversion", design);
+        let u = re.conversion_uncertainty.map_or(0.0, |u| {
+            ck.within(&rk.key("conversion_uncertainty"), u, Range::UnitClosedBelow).unwrap_or(0.0)
+        });
         let tag = re.conversion.as_ref().and_then(|s| {
             let role = format!("reaction {} conversion", r + 1);
             let k = rk.key("conversion");
-            tags.signal(ck, &k, s, &[Quantity::Dimensionless], &role, TagKind::Analyzer, false).map(|x| x.0)
+            let sig = tags.signal(ck, &k, s, &[Quantity::Dimensionless], &role, TagKind::Analyzer, false)?.0;
+            tags.refuse_basis(ck, &k, s, sig, "a conversion is a fraction or %");
+            Some(sig)
         });
         if let Some(k) = key_idx {
             let label = re.name.clone().unwrap_or_else(|| format!("reaction {}", r + 1));
             reactions.push(Reaction { label, nu, key: k });
-            conversions.push(ConversionConfig { design, u: re.conversion_uncertainty.unwrap_or(0.0), tag });
+            conversions.push(ConversionConfig { design, u, tag });
         }
     }
     (reactions, conversions)
@@ -592,14 +635,21 @@ fn model(
     let choices = enthalpy_choices(ck, mk, m, comps);
     let pressure = m.pressure.as_ref().and_then(|s| {
         let role = "reactor pressure";
-        tags.signal(ck, &mk.key("pressure"), s, &[Quantity::Pressure], role, TagKind::Continuous, false)
-            .map(|x| x.0)
+        let sig = tags
+            .signal(ck, &mk.key("pressure"), s, &[Quantity::Pressure], role, TagKind::Continuous, false)?
+            .0;
+        fixed_positive(ck, &mk.key("pressure"), sig);
+        Some(sig)
     });
     let bubble_margin = m
         .bubble_margin
         .as_ref()
         .and_then(|b| ck.number(&mk.key("bubble_margin"), b, Quantity::TemperatureDifference))
+        .and_then(|b| ck.within(&mk.key("bubble_margin"), b, Range::NonNegative))
         .unwrap_or(crate::config::case::DEFAULT_BUBBLE_MARGIN);
+    if let Some(n) = m.watson_n {
+        ck.within(&mk.key("watson_n"), n, Range::Positive);
+    }
     let bounds = match &m.temperature_range {
         None => DEFAULT_BOUNDS,
         Some([lo, hi]) => match (lo.si(Quantity::Temperature), hi.si(Quantity::Temperature)) {
@@ -700,15 +750,20 @@ fn accepted_flags(ck: &mut Checker<'_>, mk: &KeyPath, m: &RawUnitModel, comps: &
 
 /// `[unit.alerts]`.
 fn alerts(ck: &mut Checker<'_>, ak: &KeyPath, a: &RawAlerts) -> AlertConfig {
+    let mut count = |name: &str, v: Option<u32>, min: u32, default: u32| {
+        v.map_or(default, |n| ck.at_least(&ak.key(name), n, min).unwrap_or(default))
+    };
+    let (on_delay, off_delay) = (count("on_delay", a.on_delay, 1, 2), count("off_delay", a.off_delay, 1, 3));
+    let flood_count = count("flood_count", a.flood_count, 2, 10);
     AlertConfig {
-        on_delay: a.on_delay.unwrap_or(2).max(1),
-        off_delay: a.off_delay.unwrap_or(3).max(1),
+        on_delay,
+        off_delay,
         realert_suppress_ms: ck.duration(
             &ak.key("realert_suppress"),
             a.realert_suppress.as_ref(),
             12 * 3_600_000,
         ),
-        flood_count: a.flood_count.unwrap_or(10).max(2),
+        flood_count,
         flood_window_ms: ck.duration(&ak.key("flood_window"), a.flood_window.as_ref(), 600_000),
         reminder_ms: ck.duration(&ak.key("reminder"), a.reminder.as_ref(), 24 * 3_600_000),
         shelve_max_ms: ck.duration(&ak.key("shelve_max"), a.shelve_max.as_ref(), 7 * 86_400_000),
@@ -734,27 +789,25 @@ fn check_monitor(ck: &mut Checker<'_>, key: &KeyPath, m: &RawMonitor, interval_m
         }
         c.baseline_blocks = n.max(20);
     }
-    c.dead_time_ms = m.dead_time.as_ref().map_or(0, |d| ck.duration(&key.key("dead_time"), Some(d), 0));
-    c.lag_ms = m.lag.as_ref().map_or(0, |d| ck.duration(&key.key("lag"), Some(d), 0));
-    let positives = [
-        ("false_alert_days", m.false_alert_days, &mut c.false_alert_days),
-        ("cusum_k", m.cusum_k, &mut c.cusum_k),
-        ("ewma_lambda", m.ewma_lambda, &mut c.ewma_lambda),
-        ("shewhart_z", m.shewhart_z, &mut c.shewhart_z),
-        ("enter_z", m.enter_z, &mut c.enter_z),
-        ("clear_z", m.clear_z, &mut c.clear_z),
-        ("effectiveness_limit", m.effectiveness_limit, &mut c.effectiveness_limit),
-        ("min_feed_fraction", m.min_feed_fraction, &mut c.min_feed_fraction),
+    // Zero (the default) switches the dynamic compensation off.
+    c.dead_time_ms = ck.duration_or_zero(&key.key("dead_time"), m.dead_time.as_ref(), 0);
+    c.lag_ms = ck.duration_or_zero(&key.key("lag"), m.lag.as_ref(), 0);
+    let settings = [
+        ("false_alert_days", m.false_alert_days, &mut c.false_alert_days, Range::Positive),
+        ("cusum_k", m.cusum_k, &mut c.cusum_k, Range::Positive),
+        ("ewma_lambda", m.ewma_lambda, &mut c.ewma_lambda, Range::UnitClosedAbove),
+        ("shewhart_z", m.shewhart_z, &mut c.shewhart_z, Range::Positive),
+        ("enter_z", m.enter_z, &mut c.enter_z, Range::Positive),
+        ("clear_z", m.clear_z, &mut c.clear_z, Range::Positive),
+        ("effectiveness_limit", m.effectiveness_limit, &mut c.effectiveness_limit, Range::OpenUnit),
+        ("min_feed_fraction", m.min_feed_fraction, &mut c.min_feed_fraction, Range::OpenUnit),
     ];
-    for (name, v, target) in positives {
+    for (name, v, target, range) in settings {
         if let Some(x) = v
-            && let Some(x) = ck.positive(&key.key(name), x)
+            && let Some(x) = ck.within(&key.key(name), x, range)
         {
             *target = x;
         }
-    }
-    if c.ewma_lambda > 1.0 {
-        ck.err(&key.key("ewma_lambda"), "must be within (0, 1]");
     }
     if c.clear_z >= c.enter_z {
         ck.err(
@@ -762,8 +815,10 @@ fn check_monitor(ck: &mut Checker<'_>, key: &KeyPath, m: &RawMonitor, interval_m
             format!("clear_z ({}) must be below enter_z ({}) to give a deadband", c.clear_z, c.enter_z),
         );
     }
-    if let Some(n) = m.clear_blocks {
-        c.clear_blocks = n.max(1);
+    if let Some(n) = m.clear_blocks
+        && let Some(n) = ck.at_least(&key.key("clear_blocks"), n, 1)
+    {
+        c.clear_blocks = n;
     }
     c.trend_window_ms = ck.duration(&key.key("trend_window"), m.trend_window.as_ref(), c.trend_window_ms);
     c.trend_point_ms = ck.duration(&key.key("trend_point"), m.trend_point.as_ref(), c.trend_point_ms);
@@ -774,7 +829,7 @@ fn check_monitor(ck: &mut Checker<'_>, key: &KeyPath, m: &RawMonitor, interval_m
     if let Some(u) = &m.max_prediction_uncertainty {
         let k = key.key("max_prediction_uncertainty");
         if let Some(v) = ck.number(&k, u, Quantity::TemperatureDifference)
-            && let Some(v) = ck.positive(&k, v)
+            && let Some(v) = ck.within(&k, v, Range::Positive)
         {
             c.max_prediction_uncertainty = v;
         }
@@ -794,17 +849,109 @@ fn steady_state(ck: &mut Checker<'_>, sk: &KeyPath, s: &RawSsd, c: &mut MonitorC
             ck.err(&sk.key("lambdas"), "filter constants must be within (0, 1]");
         }
     }
-    if let Some(v) = s.r_high {
+    if let Some(v) = s.r_high
+        && let Some(v) = ck.within(&sk.key("r_high"), v, Range::Positive)
+    {
         c.ssd.r_hi = v;
     }
-    if let Some(v) = s.r_low {
+    if let Some(v) = s.r_low
+        && let Some(v) = ck.within(&sk.key("r_low"), v, Range::Positive)
+    {
         c.ssd.r_lo = v;
     }
     if c.ssd.r_lo >= c.ssd.r_hi {
         ck.err(sk, "r_low must be below r_high (hysteresis)");
     }
-    if let Some(n) = s.steady_count {
-        c.ssd.steady_count = n.max(1);
+    if let Some(n) = s.steady_count
+        && let Some(n) = ck.at_least(&sk.key("steady_count"), n, 1)
+    {
+        c.ssd.steady_count = n;
+    }
+}
+
+/// The quantities an informational tag may measure (its unit must be one of theirs).
+const INFO_QUANTITIES: &[Quantity] = &[
+    Quantity::Temperature,
+    Quantity::Pressure,
+    Quantity::MolarFlow,
+    Quantity::MassFlow,
+    Quantity::Power,
+    Quantity::Dimensionless,
+];
+
+/// `[unit.info]`: informational tags, each a soft-tag column named by its key. They are read,
+/// checked (unit, range, staleness) and written like any tag, but no computation uses them.
+fn info_tags(
+    ck: &mut Checker<'_>,
+    tags: &mut TagTable,
+    key: &KeyPath,
+    raw: &IndexMap<String, RawSignal>,
+) -> Vec<(String, usize)> {
+    let standard: Vec<&str> = crate::sinks::softtags::SOFT_TAG_HEADER.split(',').collect();
+    let mut out = Vec::new();
+    for (name, s) in raw {
+        let k = key.key("info").key(name);
+        if name.is_empty() || !name.chars().all(|c| c.is_ascii_alphanumeric() || matches!(c, '_' | '-' | '.'))
+        {
+            ck.err(&k, format!("column name `{name}` may contain only letters, digits, '_', '-' and '.'"));
+        } else if standard.contains(&name.as_str()) {
+            ck.err(
+                &k,
+                format!("`{name}` is already a soft-tag column; name the informational column otherwise"),
+            );
+        }
+        let RawSignal::Table(t) = s else {
+            ck.err(&k, "an informational tag is a table: { tag = \"PI-2045\", unit = \"barg\" }");
+            continue;
+        };
+        if t.tag.is_none() || t.value.is_some() {
+            ck.err(&k, "an informational tag needs `tag` (a fixed value would tell nothing)");
+            continue;
+        }
+        if t.unit.is_none() {
+            ck.err(&k, "an informational tag needs a `unit` (\"fraction\" for a plain number)");
+            continue;
+        }
+        if t.uncertainty.is_some() {
+            ck.err(
+                &k.key("uncertainty"),
+                "an informational tag enters no computation: `uncertainty` has no use",
+            );
+        }
+        let before = tags.tags.len();
+        let role = format!("{name} (informational)");
+        if let Some((Signal::Tag(i), _)) =
+            tags.signal(ck, &k, s, INFO_QUANTITIES, &role, TagKind::Continuous, false)
+        {
+            // A tag the balance also reads stays a balance tag.
+            if i >= before {
+                tags.tags[i].info = true;
+            }
+            out.push((name.clone(), i));
+        }
+    }
+    out
+}
+
+/// The composition basis a fraction unit names: `mol%` mole, `mass%` mass.
+fn basis_of_unit(symbol: &str) -> Option<Basis> {
+    match symbol {
+        "mol%" => Some(Basis::Mole),
+        "mass%" => Some(Basis::Mass),
+        _ => None,
+    }
+}
+
+/// The unit symbol a signal is written in: its tag's unit, or the unit of a fixed value's text.
+fn written_symbol<'t>(tags: &'t TagTable, raw: &'t RawSignal, sig: Signal) -> Option<&'t str> {
+    match (sig, raw) {
+        (Signal::Tag(i), _) => Some(tags.tags[i].unit.symbol),
+        (Signal::Fixed { .. }, RawSignal::Fixed(Number::Text(t)))
+        | (Signal::Fixed { .. }, RawSignal::Table(RawSignalTable { value: Some(Number::Text(t)), .. })) => {
+            let unit = units::unit_part(t)?;
+            units::lookup(Quantity::Dimensionless, unit).map(|u| u.symbol)
+        }
+        _ => None,
     }
 }
 
@@ -816,6 +963,38 @@ struct TagTable {
 }
 
 impl TagTable {
+    /// A fraction written in `mol%` or `mass%` must agree with its stream's basis.
+    fn check_basis(
+        &self,
+        ck: &mut Checker<'_>,
+        key: &KeyPath,
+        raw: &RawSignal,
+        sig: Signal,
+        (stream, basis): (&str, Basis),
+    ) {
+        let Some(symbol) = written_symbol(self, raw, sig) else { return };
+        if let Some(b) = basis_of_unit(symbol)
+            && b != basis
+        {
+            let (want, have) = (basis_word(b), basis_word(basis));
+            ck.err(
+                key,
+                format!(
+                    "given in {symbol}, but the basis of {stream} is \"{have}\": set basis = \"{want}\" there, or give {have} fractions"
+                ),
+            );
+        }
+    }
+
+    /// A signal that is not a composition may not be written in `mol%` or `mass%`.
+    fn refuse_basis(&self, ck: &mut Checker<'_>, key: &KeyPath, raw: &RawSignal, sig: Signal, what: &str) {
+        if let Some(symbol) = written_symbol(self, raw, sig)
+            && basis_of_unit(symbol).is_some()
+        {
+            ck.err(key, format!("{symbol} is a composition unit; {what}"));
+        }
+    }
+
     /// Check a signal of a quantity (or of `quantities`, first match wins).
     #[allow(clippy::too_many_arguments)]
     fn signal(
@@ -911,13 +1090,15 @@ impl TagTable {
             uncertainty: unc,
             required: required && kind == TagKind::Continuous,
             role: role.to_string(),
+            info: false,
         });
         Some((Signal::Tag(self.tags.len() - 1), unit.quantity))
     }
 }
 
 /// The engineering unit of a tag: one of `quantities`' units (a fraction when no unit is
-/// given and a fraction is accepted).
+/// given and a fraction is accepted); a gauge pressure is read at the site's atmospheric
+/// pressure.
 fn tag_unit(
     ck: &mut Checker<'_>,
     key: &KeyPath,
@@ -925,15 +1106,26 @@ fn tag_unit(
     t: &RawSignalTable,
     quantities: &[Quantity],
     role: &str,
-) -> Option<&'static Unit> {
+) -> Option<Unit> {
     let unit_text = t.unit.clone().unwrap_or_default();
-    let found = if unit_text.trim().is_empty() && quantities.contains(&Quantity::Dimensionless) {
-        Some(&units::FRACTION)
+    let text = unit_text.trim();
+    let pressure = quantities.contains(&Quantity::Pressure);
+    let found = if text.is_empty() && quantities.contains(&Quantity::Dimensionless) {
+        Some(units::FRACTION)
+    } else if pressure && units::is_gauge(text) {
+        let Some(atm) = ck.atmosphere() else {
+            ck.err(&key.key("unit"), format!("`{text}` is a gauge pressure; give the absolute pressure"));
+            return None;
+        };
+        units::gauge(text, atm)
     } else {
-        quantities.iter().find_map(|q| units::lookup(*q, unit_text.trim()))
+        quantities.iter().find_map(|q| units::lookup(*q, text)).copied()
     };
     if found.is_none() {
-        let accepted: Vec<&str> = quantities.iter().flat_map(|q| units::accepted(*q)).collect();
+        let mut accepted: Vec<&str> = quantities.iter().flat_map(|q| units::accepted(*q)).collect();
+        if pressure && ck.atmosphere().is_some() {
+            accepted.extend(units::gauge_symbols());
+        }
         if t.unit.is_none() {
             ck.err(key, format!("tag `{tag}` needs a `unit` ({})", accepted.join(", ")));
         } else {
@@ -944,6 +1136,22 @@ fn tag_unit(
         }
     }
     found
+}
+
+/// A fixed value of a quantity that cannot be zero or negative in SI (a flow, an absolute
+/// temperature or pressure) must be positive.
+fn fixed_positive(ck: &mut Checker<'_>, key: &KeyPath, sig: Signal) {
+    if let Signal::Fixed { si, .. } = sig {
+        ck.within(key, si, Range::Positive);
+    }
+}
+
+/// The word of a basis, as written in the file.
+fn basis_word(b: Basis) -> &'static str {
+    match b {
+        Basis::Mole => "mole",
+        Basis::Mass => "mass",
+    }
 }
 
 /// The uncertainty of a signal (`"x %"` of a fraction is an amount of it); none when absent or

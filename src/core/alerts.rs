@@ -164,15 +164,7 @@ pub fn key_of(cause: Cause, subject: &str) -> String {
 /// A stable alert id: unit, a short cause code, and a hash of (unit, cause, subject, raise
 /// time), e.g. `R-204-dq-3f9a1c07`.
 pub fn alert_id(unit: &str, cause: Cause, subject: &str, raised_ms: i64) -> String {
-    let short = match cause {
-        Cause::HeaterFouling => "hf",
-        Cause::ConversionDrift => "cd",
-        Cause::InstrumentFault => "if",
-        Cause::HeatLoss => "hl",
-        Cause::DataQuality => "dq",
-        Cause::ModelValidity => "mv",
-        Cause::Undetermined => "ud",
-    };
+    let short = cause.code();
     let h = fnv1a64(format!("{unit}\u{1f}{}\u{1f}{subject}\u{1f}{raised_ms}", cause.as_str()).as_bytes());
     format!("{unit}-{short}-{:08x}", h as u32)
 }

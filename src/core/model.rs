@@ -152,6 +152,11 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstima
             continue;
         }
         flags.push(Flag::Unusable(i, tv.status));
+        if tag.info {
+            // An informational tag is flagged (and its soft-tag cell left empty) but raises
+            // no alert: nothing computed depends on it.
+            continue;
+        }
         let age = tv.age_ms.map(|a| a as f64 / 60_000.0);
         let what = if tag.kind == TagKind::Analyzer { "analyzer value" } else { "value" };
         let message = match (tv.status, age) {

@@ -56,12 +56,20 @@ pub struct UnitSpec {
     pub alerts: AlertConfig,
     /// Monitoring.
     pub monitor: MonitorConfig,
+    /// Informational tags: (soft-tag column name, tag index), in configuration order.
+    pub info: Vec<(String, usize)>,
 }
 
 impl UnitSpec {
     /// The unit in which the measured effluent temperature is written (soft tags use it).
-    pub fn temperature_unit(&self) -> &'static Unit {
+    pub fn temperature_unit(&self) -> Unit {
         self.tags[self.effluent_temperature].unit
+    }
+
+    /// The informational tags (read, checked and written to the soft tags, never used by the
+    /// balance), in the order of `[unit.info]`: (column name, tag index).
+    pub fn info_columns(&self) -> impl Iterator<Item = (&str, usize)> {
+        self.info.iter().map(|(name, i)| (name.as_str(), *i))
     }
 
     /// Index of a tag by name.
@@ -97,8 +105,9 @@ impl Uncertainty {
 pub struct TagConfig {
     /// Tag name as in the files.
     pub name: String,
-    /// Its engineering unit (values are converted to SI with it).
-    pub unit: &'static Unit,
+    /// Its engineering unit (values are converted to SI with it; a gauge pressure carries the
+    /// site's atmospheric pressure).
+    pub unit: Unit,
     /// Aggregation.
     pub kind: TagKind,
     /// Stale after, ms.
@@ -111,6 +120,9 @@ pub struct TagConfig {
     pub required: bool,
     /// What it is, e.g. "ester recycle flow".
     pub role: String,
+    /// Only informational (`[unit.info]`): read and checked, written to the soft tags, but
+    /// used by neither the balance nor the monitor, and its data quality raises no alert.
+    pub info: bool,
 }
 
 /// Where a model input comes from.

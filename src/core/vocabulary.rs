@@ -27,6 +27,35 @@ pub enum Cause {
 }
 
 impl Cause {
+    /// Every cause, in the order of the documentation.
+    pub const ALL: [Cause; 7] = [
+        Cause::HeaterFouling,
+        Cause::ConversionDrift,
+        Cause::InstrumentFault,
+        Cause::HeatLoss,
+        Cause::DataQuality,
+        Cause::ModelValidity,
+        Cause::Undetermined,
+    ];
+
+    /// The two-letter code of the cause inside alert ids (`R-204-hf-1a2b3c4d`).
+    pub fn code(self) -> &'static str {
+        match self {
+            Cause::HeaterFouling => "hf",
+            Cause::ConversionDrift => "cd",
+            Cause::InstrumentFault => "if",
+            Cause::HeatLoss => "hl",
+            Cause::DataQuality => "dq",
+            Cause::ModelValidity => "mv",
+            Cause::Undetermined => "ud",
+        }
+    }
+
+    /// The cause of a name used in alert events.
+    pub fn from_name(name: &str) -> Option<Cause> {
+        Cause::ALL.into_iter().find(|c| c.as_str() == name)
+    }
+
     /// The name used in alert events.
     pub fn as_str(self) -> &'static str {
         match self {

@@ -21,7 +21,7 @@ use crate::ingest::tail::TailOptions;
 use crate::sinks::alert_log::AlertWriter;
 use crate::sinks::report::ReportUnit;
 use crate::sinks::report::ShiftReports;
-use crate::sinks::softtags::SoftTagWriter;
+use crate::sinks::softtags::{SoftTagWriter, info_columns};
 use crate::sinks::syslog::Forwarder;
 use crate::sinks::syslog::SyslogSink;
 use crate::sinks::{Sinks, ingest_counts};
@@ -174,7 +174,8 @@ impl UnitRuntime {
         let (tz, unit) = (spec.time_zone.clone(), spec.temperature_unit());
         let saved_end = saved.last_end_ms;
         let sinks = Sinks {
-            soft_tags: SoftTagWriter::open(&dir, &spec.name, tz.clone(), unit, FlagNames::new(&spec))?,
+            soft_tags: SoftTagWriter::open(&dir, &spec.name, tz.clone(), unit, FlagNames::new(&spec))?
+                .with_info(info_columns(&spec)),
             syslog: None,
             alert_log: AlertWriter::open(&dir, &spec.name, tz, out.stdout)?,
             reports: Some(ShiftReports::new(

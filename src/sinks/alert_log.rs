@@ -68,8 +68,16 @@ impl AlertWriter {
         writeln!(file.out, "{line}")?;
         if self.stdout {
             let mut out = io::stdout().lock();
-            writeln!(out, "{line}")?;
-            out.flush()?;
+            match writeln!(out, "{line}").and_then(|()| out.flush()) {
+                Ok(()) => {}
+                // The reader of standard output went away: the copies stop, the alert log
+                // (the record) goes on.
+                Err(e) if e.kind() == io::ErrorKind::BrokenPipe => {
+                    tracing::warn!(unit = %ev.unit, "standard output is closed: alert events are no longer copied there");
+                    self.stdout = false;
+                }
+                Err(e) => return Err(e),
+            }
         }
         self.last_sequence = ev.sequence;
         Ok(true)

@@ -21,8 +21,34 @@ use crate::sinks::Sink;
 use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, last_complete_line};
 use crate::units::{self, Quantity, Unit};
 
-/// The soft-tag CSV header (stable; documented in the README).
+/// The soft-tag CSV header (stable; documented in docs/outputs.md). A unit with informational
+/// tags (`[unit.info]`) has one more column per tag after these, named as configured.
 pub const SOFT_TAG_HEADER: &str = "time,unit,predicted_temperature,measured_temperature,residual,prediction_uncertainty,apparent_conversion,heater_effectiveness,monitor_state,flags";
+
+/// Whether a line is a soft-tag header (the documented columns, with or without the
+/// informational ones after them).
+fn is_header(line: &str) -> bool {
+    line.strip_prefix(SOFT_TAG_HEADER).is_some_and(|rest| rest.is_empty() || rest.starts_with(','))
+}
+
+/// An informational tag's soft-tag column: its name, the tag's index and its unit (the value
+/// is written in the tag's own unit).
+#[derive(Debug, Clone)]
+pub struct InfoColumn {
+    /// Column name (the key in `[unit.info]`).
+    pub name: String,
+    /// Index of the tag in the unit's tag table.
+    pub tag: usize,
+    /// The tag's engineering unit.
+    pub unit: Unit,
+}
+
+/// The informational columns of a unit, in configuration order.
+pub fn info_columns(spec: &crate::core::spec::UnitSpec) -> Vec<InfoColumn> {
+    spec.info_columns()
+        .map(|(name, tag)| InfoColumn { name: name.to_string(), tag, unit: spec.tags[tag].unit })
+        .collect()
+}
 
 /// Escape a text cell for CSV: quote when needed, and defuse cells a spreadsheet would execute
 /// (leading `=`, `+`, `-`, `@`) with a leading apostrophe.
@@ -113,7 +139,7 @@ fn fixed_into(out: &mut String, x: f64, decimals: usize) {
 pub(crate) fn newest_soft_tag_ms(dir: &Path, unit: &str, repair: bool) -> io::Result<Option<i64>> {
     for (_, path) in dated_files(dir, &format!("softtags-{unit}-"), ".csv").into_iter().rev() {
         let Some(line) = last_complete_line(&path, repair)? else { continue };
-        if line == SOFT_TAG_HEADER {
+        if is_header(&line) {
             continue;
         }
         let time = line.split(',').next().unwrap_or_default();
@@ -131,8 +157,11 @@ pub struct SoftTagWriter {
     /// File-name prefix, `softtags-<unit>-`.
     prefix: String,
     tz: TimeZone,
-    temperature: &'static Unit,
-    difference: &'static Unit,
+    temperature: Unit,
+    difference: Unit,
+    /// Informational columns after the documented ones, and the header that names them.
+    info: Vec<InfoColumn>,
+    header: String,
     current: Option<DayFile>,
     /// Local dates of interval ends (for the file) and of instants (for the time column).
     days: DayCache,
@@ -153,13 +182,14 @@ impl SoftTagWriter {
         dir: &Path,
         unit: &str,
         tz: TimeZone,
-        temperature: &'static Unit,
+        temperature: Unit,
         names: FlagNames,
     ) -> io::Result<SoftTagWriter> {
         let prefix = format!("softtags-{unit}-");
         let last = newest_soft_tag_ms(dir, unit, true)?;
-        let difference =
-            units::lookup(Quantity::TemperatureDifference, temperature.symbol).unwrap_or(temperature);
+        let difference = units::lookup(Quantity::TemperatureDifference, temperature.symbol)
+            .copied()
+            .unwrap_or(temperature);
         Ok(SoftTagWriter {
             dir: dir.to_path_buf(),
             unit: unit.to_string(),
@@ -167,6 +197,8 @@ impl SoftTagWriter {
             tz,
             temperature,
             difference,
+            info: Vec::new(),
+            header: SOFT_TAG_HEADER.to_string(),
             current: None,
             days: DayCache::default(),
             times: DayCache::default(),
@@ -177,13 +209,26 @@ impl SoftTagWriter {
         })
     }
 
+    /// Write these informational columns after the documented ones (a new day file's header
+    /// names them; a file begun before they were configured keeps its header until the day ends).
+    pub fn with_info(mut self, info: Vec<InfoColumn>) -> SoftTagWriter {
+        self.header = SOFT_TAG_HEADER.to_string();
+        for c in &info {
+            self.header.push(',');
+            csv_text_into(&mut self.header, &c.name);
+        }
+        self.info = info;
+        self
+    }
+
     /// Append one interval, unless it is already on disk. Returns whether it was written.
     pub fn write_row(&mut self, ev: &Evaluation, monitor_state: &str) -> io::Result<bool> {
         if self.last_written_end.is_some_and(|l| ev.end_ms <= l) {
             return Ok(false);
         }
         let day = self.days.day_of_interval(ev.end_ms, &self.tz);
-        let file = day_file(&mut self.current, &self.dir, &self.prefix, ".csv", day, Some(SOFT_TAG_HEADER))?;
+        let header = Some(self.header.as_str());
+        let file = day_file(&mut self.current, &self.dir, &self.prefix, ".csv", day, header)?;
         let (t, d) = (self.temperature, self.difference);
         let row = &mut self.row;
         row.clear();
@@ -207,6 +252,13 @@ impl SoftTagWriter {
         self.flags.clear();
         write_codes(&mut self.flags, &ev.flags, &self.names);
         csv_text_into(row, &self.flags);
+        for c in &self.info {
+            // A usable interval value in the tag's unit; empty when stale, bad or missing
+            // (the flags name the tag then).
+            let si = ev.signals.tag_values_si.get(c.tag).copied().flatten();
+            row.push(',');
+            num_into(row, si.map(|v| c.unit.from_si(v)), 4);
+        }
         row.push('\n');
         file.out.write_all(self.row.as_bytes())?;
         self.last_written_end = Some(ev.end_ms);
@@ -299,9 +351,7 @@ pub fn load_rows(dir: &Path, unit: &str, from_ms: i64, to_ms: i64, tz: &TimeZone
     let mut rows: Vec<Row> = files
         .iter()
         .filter_map(|f| std::fs::read_to_string(f).ok())
-        .flat_map(|text| {
-            text.lines().filter(|l| *l != SOFT_TAG_HEADER).filter_map(parse_row).collect::<Vec<_>>()
-        })
+        .flat_map(|text| text.lines().filter(|l| !is_header(l)).filter_map(parse_row).collect::<Vec<_>>())
         .collect();
     rows.retain(|r| r.t_ms > from_ms && r.t_ms <= to_ms);
     rows.sort_by_key(|r| r.t_ms);
@@ -372,7 +422,7 @@ mod tests {
             dir.path(),
             "R-1",
             TimeZone::UTC,
-            units::lookup(Quantity::Temperature, "K").unwrap(),
+            *units::lookup(Quantity::Temperature, "K").unwrap(),
             FlagNames::default(),
         )
         .unwrap();

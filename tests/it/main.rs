@@ -17,4 +17,5 @@ mod physics;
 mod reference;
 mod report;
 mod service;
+mod site_commands;
 mod tailer;

@@ -375,7 +375,7 @@ impl StepWindow {
         let mut moved: Option<(usize, f64)> = None;
         let mut frozen: Option<usize> = None;
         for (i, tag) in unit.tags.iter().enumerate() {
-            if i == unit.effluent_temperature || tag.kind != TagKind::Continuous {
+            if i == unit.effluent_temperature || tag.kind != TagKind::Continuous || tag.info {
                 continue;
             }
             let before: Vec<f64> =

@@ -42,7 +42,7 @@ pub struct ReportUnit {
     /// Heater effectiveness at which cleaning is due.
     pub effectiveness_limit: f64,
     /// Unit of the measured effluent temperature.
-    pub temperature_unit: &'static Unit,
+    pub temperature_unit: Unit,
 }
 
 impl ReportUnit {
