@@ -206,7 +206,7 @@ fn fraction_and_positive_settings_are_range_checked_where_they_are_written() {
         ("r_high = 3.0", "r_high = -3.0"),
         ("steady_count = 10", "steady_count = 0"),
         ("on_delay = 2", "on_delay = 0"),
-        ("flood_count = 5", "flood_count = 1"),
+        ("flood_count = 10", "flood_count = 1"),
         ("conversion_uncertainty = 0.02", "conversion_uncertainty = 2"),
         ("bubble_margin = \"10 K\"", "bubble_margin = \"-10 K\""),
         (
