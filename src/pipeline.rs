@@ -48,6 +48,8 @@ pub struct Pipeline {
     state: Option<StateDir>,
     /// Notes from loading the checkpoint.
     pub notes: Vec<String>,
+    /// Request entries (or a request folder) already reported as refused and left in place.
+    refused_requests: std::collections::HashSet<PathBuf>,
 }
 
 /// What a pass did.
@@ -78,7 +80,7 @@ pub enum PipelineError {
 impl Pipeline {
     /// A pipeline of no units (a placeholder while the real one is on another thread).
     pub(crate) fn empty() -> Pipeline {
-        Pipeline { units: Vec::new(), state: None, notes: Vec::new() }
+        Pipeline { units: Vec::new(), state: None, notes: Vec::new(), refused_requests: Default::default() }
     }
 
     /// Build the pipeline for a site.
@@ -103,7 +105,7 @@ impl Pipeline {
                 .map_err(|source| PipelineError::Output { unit: u.spec.name.clone(), source })?;
             units.push(rt);
         }
-        Ok(Pipeline { units, state, notes })
+        Ok(Pipeline { units, state, notes, refused_requests: Default::default() })
     }
 
     /// One pass over every unit.
@@ -122,25 +124,44 @@ impl Pipeline {
         Ok(summary)
     }
 
-    /// Apply engineers' requests waiting in the state directory (live service only); each is
-    /// logged for the audit trail and then removed.
+    /// Apply engineers' requests waiting in the state directory (live service only): each is
+    /// held to the command line's limits, applied, logged for the audit trail and removed. A
+    /// refused entry that cannot be removed (a directory, a FIFO) is reported once.
     fn apply_requests(&mut self) {
         let Some(dir) = self.state.as_ref().map(StateDir::path) else { return };
-        for (file, req) in crate::requests::pending(dir) {
-            match req {
-                Err(e) => warn!(file = %file.display(), error = %e, "ignoring an unreadable request"),
-                Ok(r) => match self.units.iter_mut().find(|u| u.cfg.spec.name == r.unit) {
-                    None => {
-                        warn!(file = %file.display(), unit = %r.unit, "request for an unknown unit ignored")
-                    }
-                    Some(u) => {
-                        let note = u.apply(&r);
-                        info!(target: "efftemp::audit", unit = %r.unit, action = r.action_name(), by = %r.by, reason = %r.reason, "{note}");
-                    }
-                },
+        let entries = match crate::requests::pending(dir) {
+            Ok(entries) => entries,
+            Err(problem) => {
+                if self.refused_requests.insert(PathBuf::from(&problem)) {
+                    warn!("{problem}");
+                }
+                return;
             }
-            if let Err(e) = std::fs::remove_file(&file) {
-                warn!(file = %file.display(), error = %e, "cannot remove an applied request");
+        };
+        for e in entries {
+            let file = e.path.display().to_string();
+            let owner = e.owner.map_or_else(|| "unknown".to_string(), |u| u.to_string());
+            let outcome = e.request.and_then(|r| {
+                let u = self.units.iter_mut().find(|u| u.cfg.spec.name == r.unit).ok_or_else(|| {
+                    format!("request for an unknown unit `{}`", crate::requests::escape_controls(&r.unit))
+                })?;
+                let admitted = r.admit(u.cfg.spec.alerts.shelve_max_ms, u.data_now_ms())?;
+                Ok((u.apply(&admitted), admitted))
+            });
+            match outcome {
+                Ok((note, r)) => {
+                    let esc = crate::requests::escape_controls;
+                    info!(target: "efftemp::audit", unit = %r.unit, action = r.action_name(), by = %esc(&r.by), file_owner_uid = %owner, reason = %esc(&r.reason), "{}", esc(&note));
+                }
+                Err(why) if e.remove || self.refused_requests.insert(e.path.clone()) => {
+                    warn!(file = %file, file_owner_uid = %owner, "request refused: {}", crate::requests::escape_controls(&why));
+                }
+                Err(_) => {}
+            }
+            if e.remove
+                && let Err(err) = std::fs::remove_file(&e.path)
+            {
+                warn!(file = %file, error = %err, "cannot remove a request");
             }
         }
     }

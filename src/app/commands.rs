@@ -401,7 +401,7 @@ pub fn request(
             let until = jiff::Timestamp::now()
                 .checked_add(jiff::SignedDuration::from_millis(ms))
                 .map_err(|e| Failure::Usage(format!("--for: {e}")))?;
-            Action::Shelve { selector, until }
+            Action::Shelve { selector, until, duration_ms: Some(ms) }
         }
     };
     let by = by.unwrap_or_else(|| crate::app::audit::invoking_person(&crate::app::audit::from_environment()));

@@ -281,6 +281,12 @@ impl UnitRuntime {
         }
     }
 
+    /// The unit's newest data time (ms), if it has seen data: what a request's duration is
+    /// counted from.
+    pub(super) fn data_now_ms(&self) -> Option<i64> {
+        self.assembler.max_event()
+    }
+
     /// Apply an engineer's request; returns the audit sentence.
     pub(super) fn apply(&mut self, request: &crate::requests::Request) -> String {
         request.apply(&mut self.core)
