@@ -41,6 +41,9 @@ pub struct Snapshot {
     pub last_pass_ms: Option<i64>,
     /// A pass older than this (ms) makes `/readyz` fail.
     pub ready_within_ms: i64,
+    /// Why the service runs degraded (outputs or the checkpoint cannot be written): `/healthz`
+    /// and `/readyz` answer 503 with it.
+    pub degraded: Option<String>,
 }
 
 fn esc(v: &str) -> String {
@@ -156,18 +159,31 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
             let _ = writeln!(o, "{name} {value}");
         }
     }
+    family(
+        &mut o,
+        "efftemp_degraded",
+        "gauge",
+        "1 while outputs or the checkpoint cannot be written (the service retries; /healthz says why).",
+    );
+    let _ = writeln!(o, "efftemp_degraded {}", u8::from(s.degraded.is_some()));
     family(&mut o, "efftemp_passes_total", "counter", "Pipeline passes completed.");
     let _ = writeln!(o, "efftemp_passes_total {}", s.passes);
     o
 }
 
-async fn healthz() -> impl IntoResponse {
-    (StatusCode::OK, "ok\n")
+async fn healthz(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
+    match rx.borrow().degraded.clone() {
+        None => (StatusCode::OK, "ok\n".to_string()),
+        Some(why) => (StatusCode::SERVICE_UNAVAILABLE, format!("degraded: {why}\n")),
+    }
 }
 
 async fn readyz(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
     let s = rx.borrow().clone();
     let now = jiff::Timestamp::now().as_millisecond();
+    if let Some(why) = &s.degraded {
+        return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: degraded: {why}\n"));
+    }
     match s.last_pass_ms {
         Some(t) if now - t <= s.ready_within_ms => {
             (StatusCode::OK, format!("ready: {} pass(es)\n", s.passes))

@@ -95,15 +95,31 @@ pub async fn run(
             // pass serves them all (a few tens of ms against a latency budget of a second).
             tokio::time::sleep(Duration::from_millis(EVENT_COALESCE_MS)).await;
         }
-        svc.pass().await?;
-        if let Some(obs) = observer.as_mut() {
-            obs(&svc.pipeline);
+        if let Err(e) = svc.pass_and_checkpoint(observer.as_mut()).await {
+            // Outputs cannot be written (a full disk, a read-only or vanished folder): keep
+            // running degraded, say why on /healthz, and start again from the last checkpoint
+            // after a pause, exactly as a restart would (outputs are idempotent, so nothing is
+            // lost or repeated once the fault clears). Only a broken internal task stops it.
+            if let ServiceError::Internal(_) = e {
+                return Err(e);
+            }
+            svc.degrade(&e).await?;
+            tokio::select! {
+                biased;
+                () = &mut shutdown => break,
+                () = tokio::time::sleep(Duration::from_millis(svc.retry_ms)) => {}
+            }
+            svc.retry_ms = (svc.retry_ms * 2).min(MAX_RETRY_MS);
+            svc.resume().await?;
         }
-        svc.report_progress();
-        svc.checkpoint_when_due().await?;
     }
     svc.stop().await
 }
+
+/// The first pause before a degraded service tries again; it doubles up to `MAX_RETRY_MS`.
+const FIRST_RETRY_MS: u64 = 1_000;
+/// The longest pause between tries of a degraded service.
+const MAX_RETRY_MS: u64 = 30_000;
 
 /// The running service: the pipeline and what surrounds it.
 struct Service {
@@ -126,6 +142,10 @@ struct Service {
     checkpoint_gap: u64,
     /// Whether anything was read or written since the last checkpoint.
     dirty: bool,
+    /// Why the service is degraded (outputs or the checkpoint cannot be written), if it is.
+    degraded: Option<String>,
+    /// The pause before the next try while degraded.
+    retry_ms: u64,
 }
 
 /// Run `f` on the pipeline on a blocking thread, and give the pipeline back.
@@ -187,7 +207,70 @@ impl Service {
             last_watchdog: 0,
             checkpoint_gap,
             dirty: false,
+            degraded: None,
+            retry_ms: FIRST_RETRY_MS,
         })
+    }
+
+    /// A pass, the observer, the progress report and a checkpoint when due.
+    async fn pass_and_checkpoint(&mut self, observer: Option<&mut Observer>) -> Result<(), ServiceError> {
+        self.pass().await?;
+        if let Some(obs) = observer {
+            obs(&self.pipeline);
+        }
+        let failures_before = self.pipeline.checkpoint_counts().1;
+        self.checkpoint_when_due().await?;
+        let (_, failures) = self.pipeline.checkpoint_counts();
+        if failures > failures_before {
+            let why = format!("the checkpoint cannot be written in {}", self.site.state_dir.display());
+            if self.degraded.as_deref() != Some(why.as_str()) {
+                warn!("degraded: {why}; outputs go on, a restart would re-read more data");
+            }
+            self.degraded = Some(why);
+        } else if self.degraded.is_some() && failures == failures_before {
+            info!("no longer degraded: outputs and the checkpoint are written again");
+            self.degraded = None;
+            self.retry_ms = FIRST_RETRY_MS;
+        }
+        self.report_progress();
+        Ok(())
+    }
+
+    /// Enter (or stay in) the degraded state after `e`: logged once per cause, published.
+    async fn degrade(&mut self, e: &ServiceError) -> Result<(), ServiceError> {
+        let why = format!("outputs cannot be written: {e}");
+        if self.degraded.as_deref() != Some(why.as_str()) {
+            error!(error = %e, "degraded: outputs cannot be written; retrying from the last checkpoint");
+        }
+        self.degraded = Some(why);
+        self.report_progress();
+        Ok(())
+    }
+
+    /// Start again from the last checkpoint, as a restart would: the pipeline (and its state
+    /// directory lock) is dropped and rebuilt; the forwarder and watchers carry on.
+    async fn resume(&mut self) -> Result<(), ServiceError> {
+        drop(std::mem::replace(&mut self.pipeline, Pipeline::empty()));
+        let site = self.site.clone();
+        let rebuilt = tokio::task::spawn_blocking(move || Pipeline::new(&site, &Mode::Live))
+            .await
+            .map_err(|e| ServiceError::Internal(e.to_string()))?;
+        match rebuilt {
+            Ok(mut p) => {
+                if let Some(f) = &self.forwarder {
+                    p.set_forwarder(f);
+                }
+                self.pipeline = p;
+                self.dirty = false;
+            }
+            Err(e) => {
+                // Even the checkpoint cannot be opened: stay degraded with an empty pipeline;
+                // the next pass fails fast and the loop tries again after the pause.
+                warn!(error = %e, "cannot resume from the checkpoint yet");
+                self.degraded = Some(format!("cannot resume from the checkpoint: {e}"));
+            }
+        }
+        Ok(())
     }
 
     /// One pipeline pass at the current monotonic time.
@@ -196,13 +279,8 @@ impl Service {
         let pipeline = std::mem::replace(&mut self.pipeline, Pipeline::empty());
         let (p, res) = blocking(pipeline, move |p| p.pass(now, false)).await?;
         self.pipeline = p;
-        match res {
-            Ok(s) => self.dirty |= s.records > 0 || s.intervals > 0,
-            Err(e) => {
-                error!(error = %e, "stopping: outputs cannot be written; restart resumes from the last checkpoint");
-                return Err(e.into());
-            }
-        }
+        let s = res?;
+        self.dirty |= s.records > 0 || s.intervals > 0;
         self.passes += 1;
         Ok(())
     }
@@ -232,6 +310,7 @@ impl Service {
             watcher_errors: counter(|w| &*w.errors),
             syslog: self.forwarder.as_ref().map(|f| f.stats()),
             passes: self.passes,
+            degraded: self.degraded.clone(),
             last_pass_ms: Some(jiff::Timestamp::now().as_millisecond()),
             ready_within_ms: i64::try_from(self.site.service.reconcile_ms.max(1_000) * 3).unwrap_or(i64::MAX),
         };

@@ -242,6 +242,79 @@ async fn live_with_restart_equals_replay() {
     assert_eq!(live, batch);
 }
 
+/// Outputs that cannot be written (here the unit's output folder is replaced by a file just
+/// before the day's new soft-tag file is due, as a full or vanished file system would do) do not
+/// stop the service: it runs degraded, says why on `/healthz` and `/readyz`, retries from its
+/// last checkpoint, and once the folder is back it writes every interval exactly once (the same
+/// soft tags as a replay of the files).
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn outputs_that_cannot_be_written_degrade_the_service_and_lose_nothing() {
+    let plant = TestPlant::new("");
+    let site = Arc::new({
+        let mut s = SiteConfig::load(&plant.config).unwrap();
+        for u in &mut s.units {
+            u.spec.max_wait_ms = 1_500;
+        }
+        s
+    });
+    let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+    let addr = listener.local_addr().unwrap();
+    let limits = efftemp::app::http::HttpLimits::default();
+    tokio::spawn(efftemp::app::http::serve(listener, snap_rx.clone(), std::future::pending(), limits));
+    let notify = Arc::new(Notify::new());
+    let (tx, rx) = tokio::sync::oneshot::channel::<()>();
+    let svc = tokio::spawn(service::run(
+        site,
+        Wake::External(notify.clone()),
+        async move {
+            let _ = rx.await;
+        },
+        None,
+        Some(snap_tx),
+    ));
+    // The last quarter hour of 1 December.
+    plant.append("plant_20261201.csv", &TestPlant::rows(85_500, 86_400));
+    notify.notify_one();
+    wait_for("day 1 rows", Duration::from_secs(10), || rows_in(&TestPlant::soft_tags(&plant.output)) >= 14)
+        .await
+        .unwrap();
+    // The unit's output folder is gone and a file sits in its place: day 2's files cannot be made.
+    let (unit_dir, away) = (plant.output.join("T-1"), plant.output.join("T-1.away"));
+    std::fs::rename(&unit_dir, &away).unwrap();
+    std::fs::write(&unit_dir, "not a folder").unwrap();
+    plant.append("plant_20261202.csv", &TestPlant::rows(86_400, 87_600));
+    notify.notify_one();
+    let degraded =
+        |rx: &tokio::sync::watch::Receiver<efftemp::app::http::Snapshot>| rx.borrow().degraded.clone();
+    wait_for("degraded", Duration::from_secs(10), || degraded(&snap_rx).is_some()).await.unwrap();
+    let why = degraded(&snap_rx).unwrap();
+    assert!(why.contains("outputs cannot be written"), "{why}");
+    let (code, body) = tokio::task::spawn_blocking(move || http_get(addr, "/healthz")).await.unwrap();
+    assert_eq!(code, 503, "{body}");
+    assert!(body.contains("degraded: outputs cannot be written"), "{body}");
+    let (code, body) = tokio::task::spawn_blocking(move || http_get(addr, "/readyz")).await.unwrap();
+    assert_eq!(code, 503, "{body}");
+    assert!(!svc.is_finished(), "the service must keep running");
+
+    // The folder comes back: the service resumes from its checkpoint and catches up.
+    std::fs::remove_file(&unit_dir).unwrap();
+    std::fs::rename(&away, &unit_dir).unwrap();
+    notify.notify_one();
+    wait_for("recovered", Duration::from_secs(40), || {
+        degraded(&snap_rx).is_none() && rows_in(&TestPlant::soft_tags(&plant.output)) >= 35
+    })
+    .await
+    .unwrap_or_else(|()| panic!("{:?}\n{}", degraded(&snap_rx), TestPlant::soft_tags(&plant.output)));
+    let (code, _) = tokio::task::spawn_blocking(move || http_get(addr, "/healthz")).await.unwrap();
+    assert_eq!(code, 200);
+    let _ = tx.send(());
+    svc.await.unwrap().unwrap();
+    let live = TestPlant::soft_tags(&plant.output);
+    let out = tempfile::tempdir().unwrap();
+    assert_eq!(live, replay(&plant, out.path()), "nothing lost, nothing repeated");
+}
+
 #[test]
 fn rejected_rows_are_counted_and_logged_with_file_line_and_reason() {
     let plant = TestPlant::new("");
