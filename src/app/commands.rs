@@ -73,6 +73,9 @@ pub fn calc(path: &Path, json: bool, strict: bool) -> Result<(), Failure> {
 pub fn check(path: &Path) -> Result<(), Failure> {
     let site = load_site(path)?;
     say(format_args!("configuration OK: site \"{}\", {} unit(s)", site.name, site.units.len()))?;
+    for note in &site.notes {
+        say(format_args!("  note: {note}"))?;
+    }
     for u in &site.units {
         say(unit_summary(u))?;
         for note in &u.notes {
@@ -122,6 +125,9 @@ fn layout_text(layout: &crate::ingest::settings::Layout) -> String {
 pub fn run(path: &Path, format: LogFormat, level: &str) -> Result<(), Failure> {
     logging(format, level)?;
     let site = Arc::new(load_site(path)?);
+    for note in &site.notes {
+        tracing::warn!(note = %note, "configuration note");
+    }
     for note in site.units.iter().flat_map(|u| &u.notes) {
         tracing::info!(note = %note, "configuration note");
     }

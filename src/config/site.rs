@@ -64,6 +64,8 @@ pub struct SiteConfig {
     pub syslog: Option<SyslogConfig>,
     /// Atmospheric pressure, Pa, at which gauge-pressure tags are read.
     pub atmospheric_pressure_pa: f64,
+    /// Site-wide notes for `check` and the service log (located, not errors).
+    pub notes: Vec<LocatedError>,
 }
 
 /// The standard atmosphere, Pa (the default `atmospheric_pressure`).
@@ -104,6 +106,11 @@ impl SiteConfig {
         if let Some(problem) = state_dir_problem(&state_dir) {
             ck.err(&KeyPath::keys("site.state_dir"), problem);
         }
+        for (key, dir) in [("site.state_dir", &state_dir), ("site.output_dir", &output_dir)] {
+            if let Some(problem) = system_dir_problem(dir) {
+                ck.err(&KeyPath::keys(key), problem);
+            }
+        }
         let service = check_service(&mut ck, &raw.service);
         let syslog = raw.forward.syslog.as_ref().and_then(|s| check_syslog(&mut ck, s, &state_dir));
         let library = site_library(&mut ck, &raw.site, &main, &base)?;
@@ -122,6 +129,19 @@ impl SiteConfig {
         if state_dir == output_dir {
             ck.err(&KeyPath::keys("site.output_dir"), "the output and state directories must differ");
         }
+        let notes = service
+            .http_address
+            .filter(|a| !a.ip().is_loopback())
+            .map(|a| {
+                main.error_at(
+                    &KeyPath::keys("service.http_address"),
+                    format!(
+                        "{a} is reachable beyond this machine: anyone who can reach it reads the metrics; keep loopback and put a reverse proxy with its own authentication in front (docs/operation.md)"
+                    ),
+                )
+            })
+            .into_iter()
+            .collect();
         let site = SiteUnits {
             library: &library,
             tz: &site_tz,
@@ -149,6 +169,7 @@ impl SiteConfig {
             units: checked,
             syslog,
             atmospheric_pressure_pa: atmosphere,
+            notes,
         })
     }
 }
@@ -441,6 +462,34 @@ fn facility(ck: &mut Checker<'_>, key: &KeyPath, raw: Option<&RawFacility>) -> u
         }),
     }
 }
+/// Why `dir` must not hold the service's state or outputs: a system directory (the service
+/// would write among system files, and a mistyped path should not be "accepted"), or a shared
+/// top-level folder itself.
+pub(crate) fn system_dir_problem(dir: &Path) -> Option<String> {
+    let mut norm = PathBuf::new();
+    for c in dir.components() {
+        match c {
+            std::path::Component::ParentDir => {
+                norm.pop();
+            }
+            std::path::Component::CurDir => {}
+            other => norm.push(other),
+        }
+    }
+    const SYSTEM: [&str; 11] =
+        ["/etc", "/usr", "/bin", "/sbin", "/lib", "/lib64", "/boot", "/proc", "/sys", "/dev", "/efi"];
+    const SHARED: [&str; 8] = ["/", "/var", "/var/lib", "/tmp", "/run", "/home", "/srv", "/opt"];
+    let under_system = SYSTEM.iter().any(|s| norm.starts_with(s));
+    let shared = SHARED.iter().any(|s| norm == Path::new(s));
+    (under_system || shared).then(|| {
+        format!(
+            "{} is {}: give the service a folder of its own, e.g. /var/lib/efftemp/output",
+            norm.display(),
+            if under_system { "a system directory" } else { "a shared top-level folder" }
+        )
+    })
+}
+
 /// Why an existing state directory must not be used, if it must not. Requests in it are
 /// obeyed (shelving alerts, re-learning a baseline) and its checkpoint is trusted, so nobody but
 /// the service account may write there: a group- or world-writable directory is refused, the

@@ -200,6 +200,9 @@ fn input(ck: &mut Checker<'_>, ik: &KeyPath, inp: &RawInput, base: &Path, unit_t
         }
     };
     let pattern = inp.pattern.clone().unwrap_or_else(|| "*.csv".to_string());
+    if pattern.trim().is_empty() {
+        ck.err(&ik.key("pattern"), "pattern is empty: give the export file names, e.g. \"plant_*.csv\"");
+    }
     if pattern.contains('/') {
         ck.err(&ik.key("pattern"), "pattern matches file names only; put directories in `directory`");
     }
@@ -1046,6 +1049,14 @@ impl TagTable {
     ) -> Option<(Signal, Quantity)> {
         if tag.is_empty() {
             ck.err(&key.key("tag"), "tag name is empty");
+            return None;
+        }
+        if tag.chars().any(char::is_control) {
+            // A line break in a tag would split every soft-tag row in two for line-based shippers.
+            ck.err(
+                &key.key("tag"),
+                format!("tag name {tag:?} contains a control character (a line break or tab?)"),
+            );
             return None;
         }
         let unit = tag_unit(ck, key, tag, t, quantities, role)?;

@@ -106,6 +106,39 @@ fn a_state_directory_others_can_write_is_refused_by_check_and_run() {
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
 }
 
+/// Settings a reviewer would never let through: outputs into a system directory, an empty file
+/// pattern, a tag name with a line break (it would split every soft-tag row for line-based
+/// shippers); and a health endpoint beyond loopback is pointed out, located, by `check`.
+#[test]
+fn check_refuses_system_output_folders_empty_patterns_and_control_characters_in_tags() {
+    let plant = TestPlant::new("");
+    let text = std::fs::read_to_string(&plant.config).unwrap();
+    let bad = text
+        .replace("output_dir = \"output\"", "output_dir = \"/etc\"")
+        .replace("pattern = \"plant_*.csv\"", "pattern = \"\"")
+        .replace("tag = \"TI-109\"", "tag = \"TI-\\n109\"");
+    std::fs::write(&plant.config, &bad).unwrap();
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&plant.config).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    for (key, what) in [
+        ("`site.output_dir`", "a system directory"),
+        ("`unit[1].input.pattern`", "pattern is empty"),
+        ("`unit[1].effluent.temperature.tag`", "control character"),
+    ] {
+        assert!(err.contains(key) && err.contains(what), "{key}: {err}");
+    }
+    let open = text.replace("[service]", "[service]\nhttp_address = \"0.0.0.0:9464\"");
+    std::fs::write(&plant.config, open).unwrap();
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&plant.config).output().unwrap();
+    let said = String::from_utf8_lossy(&out.stdout);
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        said.contains("`service.http_address`") && said.contains("reachable beyond this machine"),
+        "{said}"
+    );
+}
+
 #[test]
 fn includes_are_followed_and_located() {
     let dir = tempfile::tempdir().unwrap();
