@@ -401,10 +401,13 @@ fn check_syslog(ck: &mut Checker<'_>, raw: &RawSyslog, state_dir: &Path) -> Opti
     let transport = match raw.transport.as_deref().map(str::trim) {
         None | Some("tcp") => Transport::Tcp,
         Some("udp") => Transport::Udp,
+        Some("relp") => Transport::Relp,
         Some(other) => {
             ck.err(
                 &key.key("transport"),
-                format!("unknown transport `{other}`; use \"tcp\" (framed, queued and resent) or \"udp\""),
+                format!(
+                    "unknown transport `{other}`; use \"tcp\" (framed, queued and resent), \"relp\" (acknowledged by the collector) or \"udp\""
+                ),
             );
             Transport::Tcp
         }

@@ -52,16 +52,28 @@ struct Collector {
     dir: PathBuf,
     tcp_port: u16,
     udp_port: u16,
+    /// The RELP input's port, when the collector has one (needs `rsyslog-relp`).
+    relp_port: Option<u16>,
     child: Option<Child>,
 }
 
 impl Collector {
     fn new(bin: PathBuf, dir: &Path) -> Collector {
+        Collector::with_inputs(bin, dir, false)
+    }
+
+    /// A collector with a RELP input (`imrelp`) besides TCP and UDP.
+    fn with_relp(bin: PathBuf, dir: &Path) -> Collector {
+        Collector::with_inputs(bin, dir, true)
+    }
+
+    fn with_inputs(bin: PathBuf, dir: &Path, relp: bool) -> Collector {
         let dir = dir.join("collector");
         std::fs::create_dir_all(dir.join("work")).unwrap();
         let (tcp_port, udp_port) = (free_tcp_port(), free_udp_port());
+        let relp_port = relp.then(free_tcp_port);
         let d = dir.display();
-        let conf = format!(
+        let mut conf = format!(
             r#"global(workDirectory="{d}/work" maxMessageSize="64k")
 module(load="imtcp")
 module(load="imudp")
@@ -73,8 +85,13 @@ input(type="imtcp" port="{tcp_port}" address="127.0.0.1" ruleset="efftemp-test")
 input(type="imudp" port="{udp_port}" address="127.0.0.1" ruleset="efftemp-test")
 "#
         );
+        if let Some(p) = relp_port {
+            conf.push_str(&format!(
+                "module(load=\"imrelp\")\ninput(type=\"imrelp\" port=\"{p}\" address=\"127.0.0.1\" ruleset=\"efftemp-test\")\n"
+            ));
+        }
         std::fs::write(dir.join("rsyslog.conf"), conf).unwrap();
-        Collector { bin, dir, tcp_port, udp_port, child: None }
+        Collector { bin, dir, tcp_port, udp_port, relp_port, child: None }
     }
 
     /// Start and wait until the TCP input accepts connections.
@@ -93,7 +110,8 @@ input(type="imudp" port="{udp_port}" address="127.0.0.1" ruleset="efftemp-test")
             .unwrap();
         self.child = Some(child);
         let start = Instant::now();
-        while std::net::TcpStream::connect(("127.0.0.1", self.tcp_port)).is_err() {
+        let port = self.relp_port.unwrap_or(self.tcp_port);
+        while std::net::TcpStream::connect(("127.0.0.1", port)).is_err() {
             if let Some(status) = self.child.as_mut().unwrap().try_wait().unwrap() {
                 panic!("rsyslogd exited ({status}): {}", self.stderr());
             }
@@ -355,6 +373,43 @@ fn udp_smoke() {
     assert_eq!(p.element(SD_ID_ALERT).unwrap().get("truncated"), Some("evidence"), "{line}");
     assert!(p.element(SD_ID_EVIDENCE).is_none());
     assert_eq!(p.msg, big.message);
+}
+
+/// RELP against rsyslogd's `imrelp`: every event is acknowledged by the collector before it
+/// leaves the queue, so events sent while the collector is stopped wait, and after its restart
+/// all arrive intact, in order, and the queue is empty.
+#[test]
+#[ignore = "needs rsyslogd and its RELP input (apt-get install rsyslog rsyslog-relp); .ci/run runs it"]
+fn relp_delivers_every_event_acknowledged_across_a_collector_restart() {
+    let bin = rsyslogd();
+    let tmp = tempfile::tempdir().unwrap();
+    let mut col = Collector::with_relp(bin, tmp.path());
+    col.start();
+    let port = col.relp_port.unwrap();
+    let f = Forwarder::start(config(port, Transport::Relp, &tmp.path().join("queue"))).unwrap();
+    for seq in 1..=10 {
+        f.send(&alert(seq));
+    }
+    wait_until("ten acknowledged", Duration::from_secs(20), || f.stats().sent >= 10);
+    col.stop();
+    for seq in 11..=20 {
+        f.send(&alert(seq));
+    }
+    std::thread::sleep(Duration::from_millis(500));
+    assert!(f.stats().queued >= 9, "unacknowledged events stay queued: {:?}", f.stats());
+    col.start();
+    wait_until("all acknowledged", Duration::from_secs(30), || f.stats().queued == 0);
+    let s = f.stats();
+    f.shutdown(Duration::from_secs(1));
+    col.stop();
+    let lines = col.received();
+    let got = by_sequence(&lines);
+    assert_eq!(got.keys().copied().collect::<Vec<_>>(), (1..=20).collect::<Vec<_>>(), "{lines:?}");
+    for (seq, copies) in &got {
+        let (p, line) = &copies[0];
+        check_intact(p, &alert(*seq), line);
+    }
+    assert_eq!(s.dropped, 0, "{s:?}");
 }
 
 /// `[forward.syslog]` in the site configuration: defaults, names, and located errors.

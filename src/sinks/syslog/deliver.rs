@@ -19,6 +19,7 @@ const IO_TIMEOUT: Duration = Duration::from_secs(2);
 enum Link {
     Tcp(TcpStream),
     Udp(UdpSocket),
+    Relp(super::relp::Session),
 }
 
 impl Link {
@@ -31,6 +32,11 @@ impl Link {
                     s.set_nodelay(true)?;
                     s.set_write_timeout(Some(IO_TIMEOUT))?;
                     Ok(Link::Tcp(s))
+                }),
+                Transport::Relp => TcpStream::connect_timeout(&addr, timeout).and_then(|s| {
+                    s.set_nodelay(true)?;
+                    s.set_write_timeout(Some(IO_TIMEOUT))?;
+                    Ok(Link::Relp(super::relp::Session::open(s, Duration::from_millis(cfg.ack_timeout_ms))?))
                 }),
                 Transport::Udp => {
                     let local: SocketAddr =
@@ -53,6 +59,7 @@ impl Link {
     fn write(&mut self, msg: &str) -> io::Result<()> {
         match self {
             Link::Tcp(s) => s.write_all(&frame_octet_counted(msg)),
+            Link::Relp(r) => r.send(msg.as_bytes()),
             Link::Udp(s) => {
                 let n = s.send(msg.as_bytes())?;
                 if n == msg.len() { Ok(()) } else { Err(io::Error::other("short datagram")) }
@@ -85,6 +92,7 @@ impl Link {
                 s.set_nonblocking(false)?;
                 r
             }
+            Link::Relp(r) => r.check(),
             Link::Udp(s) => loop {
                 match s.recv(&mut buf) {
                     Ok(_) => continue,
@@ -264,12 +272,15 @@ pub(super) fn deliver(shared: &Shared, cfg: &SyslogConfig, hostname: &str) {
             break;
         }
         let msg = match cfg.transport {
-            Transport::Tcp => format_rfc5424(&rec.event, cfg, hostname, rec.procid, rec.emit_time),
+            Transport::Tcp | Transport::Relp => {
+                format_rfc5424(&rec.event, cfg, hostname, rec.procid, rec.emit_time)
+            }
             Transport::Udp => format_datagram(&rec.event, cfg, hostname, rec.procid, rec.emit_time),
         };
         let Some(link) = d.link.as_mut() else { continue };
         let mut sent = link.write(&msg);
-        if sent.is_ok() {
+        // RELP's answer is the confirmation; plain TCP can only wait and see the link survive.
+        if sent.is_ok() && cfg.transport != Transport::Relp {
             std::thread::sleep(Duration::from_millis(cfg.confirm_ms));
             sent = link.check();
         }

@@ -79,6 +79,7 @@
 mod deliver;
 mod format;
 mod queue;
+mod relp;
 mod sink;
 
 use std::io;
@@ -110,8 +111,13 @@ pub enum Transport {
     /// One datagram per message (RFC 5426): simple, lossy, truncated to [`UDP_MAX_BYTES`].
     Udp,
     /// A stream with octet-counting framing (RFC 6587 §3.4.1): reliable enough to queue and
-    /// resend, and safe for messages that contain line breaks.
+    /// resend, and safe for messages that contain line breaks. An event counts as sent once it
+    /// is written and the connection survives `confirm_ms`: a collector that accepts but never
+    /// reads, then resets, loses what its kernel had buffered (use RELP where that matters).
     Tcp,
+    /// RELP over TCP: each event is acknowledged by the collector (`rsp 200`) before it leaves
+    /// the queue; a collector that does not answer within 5 s is treated as down.
+    Relp,
 }
 
 /// Where and how alert events are forwarded.
@@ -141,6 +147,9 @@ pub struct SyslogConfig {
     /// value protects better against a collector that stops right after reading, and slows a
     /// backlog's drain to about one event per `confirm_ms`.
     pub confirm_ms: u64,
+    /// RELP: how long the collector may take to acknowledge one event, ms (default 5000); no
+    /// answer means a hung collector, and the event stays queued.
+    pub ack_timeout_ms: u64,
 }
 
 impl SyslogConfig {
@@ -158,6 +167,7 @@ impl SyslogConfig {
             reconnect_min_ms: 500,
             reconnect_max_ms: 60_000,
             confirm_ms: 20,
+            ack_timeout_ms: 5_000,
         }
     }
 
@@ -757,5 +767,79 @@ mod tests {
         assert_eq!(seqs.len(), 3);
         assert_eq!(&seqs[1..], &[4, 5]);
         assert!((1..=3).contains(&seqs[0]), "{seqs:?}");
+    }
+
+    /// A RELP collector that accepts but never reads or answers (hung), then resets: nothing is
+    /// counted as sent and every event stays queued; once a collector that answers is back, all
+    /// are delivered in order. (A fake collector speaking the RELP frames; `forward.rs` checks
+    /// against rsyslogd's `imrelp`.)
+    #[test]
+    fn relp_events_leave_the_queue_only_when_the_collector_acknowledges_them() {
+        use std::io::Write as _;
+        let listener = std::net::TcpListener::bind("127.0.0.1:0").unwrap();
+        let port = listener.local_addr().unwrap().port();
+        let (release_tx, release_rx) = std::sync::mpsc::channel::<()>();
+        let collector = std::thread::spawn(move || {
+            // Hung: hold the connection, read nothing, then reset.
+            let (hung, _) = listener.accept().unwrap();
+            let _ = release_rx.recv();
+            drop(hung);
+            // Healthy: answer every transaction.
+            let mut got = Vec::new();
+            while got.len() < 13 {
+                let (mut conn, _) = listener.accept().unwrap();
+                conn.set_read_timeout(Some(Duration::from_secs(10))).unwrap();
+                let mut buf = Vec::new();
+                let mut chunk = [0u8; 4096];
+                'session: loop {
+                    while let Some((f, used)) = super::relp::parse(&buf).unwrap() {
+                        buf.drain(..used);
+                        let answer = match f.command.as_str() {
+                            "open" => "200 OK\nrelp_version=0\ncommands=syslog".to_string(),
+                            "syslog" => {
+                                got.push(String::from_utf8(f.data).unwrap());
+                                "200 OK".to_string()
+                            }
+                            _ => break 'session,
+                        };
+                        conn.write_all(&super::relp::frame(f.txnr, "rsp", answer.as_bytes())).unwrap();
+                        if got.len() == 13 {
+                            break 'session;
+                        }
+                    }
+                    match conn.read(&mut chunk) {
+                        Ok(0) | Err(_) => break,
+                        Ok(n) => buf.extend_from_slice(&chunk[..n]),
+                    }
+                }
+            }
+            got
+        });
+        let dir = tempfile::tempdir().unwrap();
+        let c = SyslogConfig {
+            reconnect_min_ms: 10,
+            reconnect_max_ms: 100,
+            ack_timeout_ms: 300,
+            ..SyslogConfig::new(format!("127.0.0.1:{port}"), Transport::Relp, dir.path())
+        };
+        let f = Forwarder::start(c).unwrap();
+        for seq in 1..=13 {
+            let mut ev = event(Severity::Medium, Cause::HeatLoss);
+            ev.sequence = seq;
+            f.send(&ev);
+        }
+        std::thread::sleep(Duration::from_millis(1_000));
+        let s = f.stats();
+        assert_eq!((s.sent, s.queued), (0, 13), "a hung collector acknowledges nothing: {s:?}");
+        release_tx.send(()).unwrap();
+        let start = Instant::now();
+        while f.stats().queued > 0 && start.elapsed() < Duration::from_secs(20) {
+            std::thread::sleep(Duration::from_millis(10));
+        }
+        let s = f.stats();
+        let got: Vec<u64> = collector.join().unwrap().iter().map(|m| sequence_of(m)).collect();
+        assert_eq!(got, (1..=13).collect::<Vec<_>>(), "in order, none lost, none twice");
+        assert_eq!((s.sent, s.queued, s.dropped), (13, 0, 0), "{s:?}");
+        f.shutdown(Duration::from_secs(1));
     }
 }
