@@ -53,6 +53,21 @@ pub struct RawService {
     pub checkpoint_interval: Option<String>,
     /// Address of the health and metrics endpoint ("127.0.0.1:9464"; "off" to disable).
     pub http_address: Option<String>,
+    /// How long outputs are kept.
+    #[serde(default)]
+    pub retention: RawRetention,
+}
+
+/// `[service.retention]`: days of each output kind to keep, e.g. "400d", or "forever".
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawRetention {
+    /// Soft-tag files (and the ingest counts of the same days).
+    pub soft_tags: Option<String>,
+    /// Alert logs.
+    pub alerts: Option<String>,
+    /// Shift reports.
+    pub reports: Option<String>,
 }
 
 /// A signal: a tag with its engineering unit, or a fixed value.

@@ -39,6 +39,8 @@ pub struct ServiceConfig {
     pub checkpoint_ms: u64,
     /// Health and metrics endpoint, if enabled.
     pub http_address: Option<std::net::SocketAddr>,
+    /// How long outputs are kept.
+    pub retention: crate::sinks::retention::Retention,
 }
 
 /// A checked site configuration.
@@ -284,6 +286,41 @@ fn check_service(ck: &mut Checker<'_>, s: &RawService) -> ServiceConfig {
         alerts_to_stdout: s.alerts_to_stdout.unwrap_or(false),
         checkpoint_ms: u64::try_from(checkpoint_ms).unwrap_or(5_000),
         http_address: http_address(ck, s.http_address.as_deref()),
+        retention: retention(ck, &s.retention),
+    }
+}
+
+/// `[service.retention]`: each kind "forever" or a whole number of days, at least a week.
+fn retention(
+    ck: &mut Checker<'_>,
+    r: &crate::config::raw::RawRetention,
+) -> crate::sinks::retention::Retention {
+    use crate::sinks::retention::{MIN_DAYS, Retention};
+    let default = Retention::default();
+    let mut days = |name: &str, text: Option<&String>, fallback: Option<u32>| -> Option<u32> {
+        let key = KeyPath::keys("service.retention").key(name);
+        match text.map(|t| t.trim()) {
+            None => fallback,
+            Some("forever") => None,
+            Some(t) => {
+                let ms = ck.duration(&key, Some(&t.to_string()), 0);
+                let d = u32::try_from(ms / 86_400_000).unwrap_or(u32::MAX);
+                if ms % 86_400_000 != 0 || d < MIN_DAYS {
+                    ck.err(
+                        &key,
+                        format!(
+                            "`{t}`: give whole days, at least {MIN_DAYS} (e.g. \"400d\"), or \"forever\""
+                        ),
+                    );
+                }
+                Some(d.max(MIN_DAYS))
+            }
+        }
+    };
+    Retention {
+        soft_tags_days: days("soft_tags", r.soft_tags.as_ref(), default.soft_tags_days),
+        alerts_days: days("alerts", r.alerts.as_ref(), default.alerts_days),
+        reports_days: days("reports", r.reports.as_ref(), default.reports_days),
     }
 }
 

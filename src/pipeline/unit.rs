@@ -49,6 +49,9 @@ pub struct UnitRuntime {
     last_data_mono: Option<u64>,
     /// Whether a pass has run since this runtime was created.
     started: bool,
+    /// How long outputs are kept, and the data day they were last pruned for.
+    retention: crate::sinks::retention::Retention,
+    pruned_day: Option<jiff::civil::Date>,
 }
 
 /// What the reader's records and the closed intervals flow through in one pass.
@@ -200,6 +203,8 @@ impl UnitRuntime {
             new_reports: Vec::new(),
             last_data_mono: None,
             started: false,
+            retention: service.retention,
+            pruned_day: None,
         })
     }
 
@@ -255,7 +260,31 @@ impl UnitRuntime {
         }
         // Make what this pass wrote visible to readers at once (fsync waits for the checkpoint).
         self.sinks.flush()?;
+        self.prune_when_the_day_changed();
         Ok(stats.records)
+    }
+
+    /// Delete outputs past their retention, once per new data day of the unit.
+    fn prune_when_the_day_changed(&mut self) {
+        let Some(ms) = self.assembler.max_event() else { return };
+        let Ok(day) =
+            crate::core::calendar::day_of(ms, &self.cfg.spec.time_zone).parse::<jiff::civil::Date>()
+        else {
+            return;
+        };
+        if self.pruned_day == Some(day) {
+            return;
+        }
+        self.pruned_day = Some(day);
+        match crate::sinks::retention::prune(&self.dir, &self.cfg.spec.name, day, &self.retention) {
+            Ok(0) => {}
+            Ok(n) => {
+                tracing::info!(unit = %self.cfg.spec.name, files = n, "outputs past their retention deleted")
+            }
+            Err(e) => {
+                tracing::warn!(unit = %self.cfg.spec.name, error = %e, "cannot delete outputs past their retention")
+            }
+        }
     }
 
     /// The unit's figures for `/metrics`.

@@ -19,6 +19,7 @@ pub mod checkpoint;
 pub mod daily;
 pub mod ingest_counts;
 pub mod report;
+pub mod retention;
 pub mod softtags;
 pub mod syslog;
 

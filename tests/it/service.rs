@@ -139,6 +139,57 @@ fn check_refuses_system_output_folders_empty_patterns_and_control_characters_in_
     );
 }
 
+/// Outputs past their retention are deleted as the data days go by (counted from the unit's
+/// newest data day): with a week for soft tags and reports, 11 days of the demo plant leave the
+/// last 8 days' soft-tag files and reports, and all alert logs (kept forever by default).
+#[test]
+fn outputs_past_their_retention_are_deleted() {
+    let tmp = tempfile::tempdir().unwrap();
+    let scenario = efftemp::app::sim::Scenario::demo(3, 11.0);
+    efftemp::app::sim::write_exports(&scenario, &tmp.path().join("exports")).unwrap();
+    let site = efftemp::app::sim::site_config("exports", "state", "output", false, "10m", 100)
+        + "\n[service.retention]\nsoft_tags = \"7d\"\nreports = \"7d\"\n";
+    std::fs::write(tmp.path().join("site.toml"), site).unwrap();
+    let cfg = SiteConfig::load(&tmp.path().join("site.toml")).unwrap();
+    efftemp::app::replay::replay(&cfg, None).unwrap();
+    let dir = tmp.path().join("output/R-204");
+    let names = |d: &Path, prefix: &str| -> Vec<String> {
+        let mut v: Vec<String> = std::fs::read_dir(d)
+            .unwrap()
+            .flatten()
+            .map(|e| e.file_name().into_string().unwrap())
+            .filter(|n| n.starts_with(prefix))
+            .collect();
+        v.sort();
+        v
+    };
+    let soft = names(&dir, "softtags-");
+    // The data run 2026-11-21 .. 2026-12-01 (Europe/London); the newest day is 12-01 (or 12-02
+    // for the interval ending at midnight), so 11-24 and later are within 7 days.
+    assert!(soft.len() == 8 || soft.len() == 9, "{soft:?}");
+    assert!(soft.iter().all(|n| n.as_str() >= "softtags-R-204-2026-11-24.csv"), "{soft:?}");
+    let ingest = names(&dir, "ingest-");
+    assert!(ingest.iter().all(|n| n.as_str() >= "ingest-R-204-2026-11-24.json"), "{ingest:?}");
+    assert!(
+        names(&dir, "alerts-").iter().any(|n| n.as_str() < "alerts-R-204-2026-11-24.jsonl"),
+        "alerts kept"
+    );
+    let reports = names(&dir.join("reports"), "shift-");
+    assert!(
+        !reports.is_empty() && reports.iter().all(|n| n.as_str() >= "shift-R-204-20261124"),
+        "{reports:?}"
+    );
+    // A retention shorter than a week, or not in whole days, is refused where it is written.
+    std::fs::write(
+        tmp.path().join("site.toml"),
+        efftemp::app::sim::site_config("exports", "state", "output", false, "10m", 100)
+            + "\n[service.retention]\nsoft_tags = \"3d\"\nalerts = \"36h\"\n",
+    )
+    .unwrap();
+    let err = SiteConfig::load(&tmp.path().join("site.toml")).unwrap_err().to_string();
+    assert!(err.contains("service.retention.soft_tags") && err.contains("service.retention.alerts"), "{err}");
+}
+
 #[test]
 fn includes_are_followed_and_located() {
     let dir = tempfile::tempdir().unwrap();
