@@ -60,9 +60,7 @@ pub fn expired<'a>(names: &'a [String], unit: &str, today: Date, r: &Retention) 
         .filter(|n| {
             dated(n, unit, r).is_some_and(|(day, keep)| {
                 keep.is_some_and(|k| {
-                    today
-                        .since(day)
-                        .map_or(false, |span| span.get_days() > i32::try_from(k).unwrap_or(i32::MAX))
+                    today.since(day).is_ok_and(|span| span.get_days() > i32::try_from(k).unwrap_or(i32::MAX))
                 })
             })
         })
