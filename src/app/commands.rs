@@ -161,9 +161,11 @@ pub fn replay(
 fn redirect_inputs(site: &mut SiteConfig, paths: &[PathBuf]) {
     for u in &mut site.units {
         let hit = paths.iter().find(|p| {
-            std::fs::read_dir(p).into_iter().flatten().flatten().any(|e| {
-                e.file_name().to_str().is_some_and(|n| crate::ingest::glob::name_matches(&u.input.pattern, n))
-            })
+            std::fs::read_dir(p)
+                .into_iter()
+                .flatten()
+                .flatten()
+                .any(|e| e.file_name().to_str().is_some_and(|n| u.input.selects(n)))
         });
         match hit {
             Some(p) => u.input.directory = p.clone(),

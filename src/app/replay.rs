@@ -6,7 +6,6 @@ use std::path::PathBuf;
 use std::time::Duration;
 
 use crate::config::SiteConfig;
-use crate::ingest::glob::name_matches;
 use crate::pipeline::{Mode, Pipeline, PipelineError};
 
 /// What a replay did.
@@ -31,7 +30,7 @@ fn input_bytes(site: &SiteConfig) -> u64 {
                 .into_iter()
                 .flatten()
                 .flatten()
-                .filter(|e| e.file_name().to_str().is_some_and(|n| name_matches(&u.input.pattern, n)))
+                .filter(|e| e.file_name().to_str().is_some_and(|n| u.input.selects(n)))
                 .filter_map(|e| e.metadata().ok().map(|m| m.len()))
                 .collect::<Vec<_>>()
         })
