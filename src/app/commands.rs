@@ -84,7 +84,16 @@ pub fn check(path: &Path) -> Result<(), Failure> {
             comps.join(", ")
         ))?;
     }
-    say(format_args!("  state: {}; output: {}", site.state_dir.display(), site.output_dir.display()))
+    say(format_args!("  state: {}; output: {}", site.state_dir.display(), site.output_dir.display()))?;
+    warn_inputs(&site);
+    Ok(())
+}
+
+/// Print a located warning for each unit whose export directory cannot be read now.
+fn warn_inputs(site: &SiteConfig) {
+    for w in site.units.iter().filter_map(UnitConfig::directory_warning) {
+        eprintln!("warning: {w}");
+    }
 }
 
 /// `efftemp run`: the service until SIGTERM/SIGINT; SIGHUP reloads a validated configuration.
@@ -337,7 +346,11 @@ pub fn identify(path: &Path, unit_name: &str, max_dead_time: &str) -> Result<(),
     let max_delay = usize::try_from(ms / interval).unwrap_or(30).max(1);
     site.shift_reports = false;
     let scratch = std::env::temp_dir().join(format!("efftemp-identify-{}", std::process::id()));
-    crate::app::replay::replay(&site, Some(scratch.clone())).map_err(|e| Failure::Runtime(e.to_string()))?;
+    // Nothing read (no export directory, no files, every row rejected) says why.
+    if let Err(e) = crate::app::replay::replay(&site, Some(scratch.clone())) {
+        let _ = std::fs::remove_dir_all(&scratch);
+        return Err(Failure::Runtime(e.to_string()));
+    }
     let rows = crate::sinks::report::load_rows(&scratch.join(unit_name), unit_name, 0, i64::MAX, &tz);
     let _ = std::fs::remove_dir_all(&scratch);
     let (pred, meas) = longest_contiguous(&rows, interval);

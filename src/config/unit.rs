@@ -20,7 +20,7 @@ use crate::core::monitor::settings::MonitorConfig;
 use crate::core::spec::{ConversionConfig, FeedConfig, Signal, TagConfig, Uncertainty, UnitSpec};
 use crate::core::vocabulary::TagKind;
 use crate::ingest::settings::{InputConfig, Layout, TimestampFormat};
-use crate::source::{KeyPath, SourceText};
+use crate::source::{KeyPath, LocatedError, SourceText};
 use crate::thermo::Component;
 use crate::thermo::balance::{Basis, DEFAULT_BOUNDS, PathChoice, Reaction, System};
 use crate::thermo::component::{Library, Origin, normalize_id};
@@ -34,12 +34,40 @@ pub struct UnitConfig {
     pub description: String,
     /// The file that defined it.
     pub source: Arc<SourceText>,
+    /// Its key path in that file (`unit[2]`), for located messages.
+    pub key: KeyPath,
     /// The time zone's name.
     pub time_zone_name: String,
     /// Input files.
     pub input: InputConfig,
     /// The unit as the core sees it.
     pub spec: UnitSpec,
+}
+
+impl UnitConfig {
+    /// A located warning when the unit's export directory cannot be read now: not an error,
+    /// since a site may create it after the configuration, but nothing is read until then.
+    pub fn directory_warning(&self) -> Option<LocatedError> {
+        let dir = &self.input.directory;
+        let problem = match std::fs::metadata(dir) {
+            Ok(m) if m.is_dir() => match std::fs::read_dir(dir) {
+                Ok(_) => return None,
+                Err(e) => format!("cannot be read ({e})"),
+            },
+            Ok(_) => "is not a directory".to_string(),
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => "does not exist".to_string(),
+            Err(e) => format!("cannot be read ({e})"),
+        };
+        let key = self.key.key("input").key("directory");
+        Some(self.source.error_at(
+            &key,
+            format!(
+                "unit {}: export directory {} {problem}; nothing is read (and `run` is not ready) until it exists",
+                self.spec.name,
+                dir.display()
+            ),
+        ))
+    }
 }
 
 /// Check one unit; None when it has errors (they are in `ck`).
@@ -100,6 +128,7 @@ pub(crate) fn check_unit(
     Some(UnitConfig {
         description: raw.description.clone().unwrap_or_default(),
         source: src.clone(),
+        key: key.clone(),
         time_zone_name,
         input,
         spec: UnitSpec {

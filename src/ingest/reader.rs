@@ -146,7 +146,7 @@ impl ExportReader {
                 // The directory could not be listed (missing, or a share briefly unmounted).
                 let why = unavailable_reason(self.tailer.dir(), &e);
                 if self.unavailable.as_deref() != Some(why.as_str()) {
-                    warn!(unit = %self.unit, dir = %self.tailer.dir().display(), error = %e, "{why}; nothing is read until it can be (retrying at every pass)");
+                    warn!(unit = %self.unit, dir = %self.tailer.dir().display(), error = %e, "{why}; nothing is read from it until it can be");
                 }
                 self.unavailable = Some(why);
                 PollStats::default()

@@ -146,4 +146,6 @@ pub struct UnitSnapshot {
     pub monitor_state: String,
     /// Bytes read from export files.
     pub bytes: u64,
+    /// Why the export directory could not be read at the last pass (the unit is blind).
+    pub input_problem: Option<String>,
 }

@@ -316,6 +316,11 @@ impl UnitRuntime {
         Ok(stats.records)
     }
 
+    /// Why the unit's export directory could not be read at the last pass (`None`: it could).
+    pub fn input_problem(&self) -> Option<&str> {
+        self.reader.unavailable()
+    }
+
     /// The unit's figures for `/metrics`.
     pub(super) fn snapshot(&self) -> UnitSnapshot {
         let mut active: BTreeMap<String, u64> = BTreeMap::new();
@@ -336,6 +341,7 @@ impl UnitRuntime {
             last_data_ms: self.assembler.max_event(),
             monitor_state: self.core.monitor().state.as_str().to_string(),
             bytes: c.bytes,
+            input_problem: self.reader.unavailable().map(|w| format!("unit {}: {w}", self.cfg.spec.name)),
         }
     }
 

@@ -10,6 +10,7 @@ mod demo;
 mod forward;
 mod handbook;
 mod hostile;
+mod ingest;
 mod layout;
 mod monitor;
 mod physics;
