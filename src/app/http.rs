@@ -112,16 +112,7 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
             let _ = writeln!(o, "efftemp_last_data_age_seconds{{unit=\"{unit}\"}} {age:.3}");
         }
     }
-    family(
-        &mut o,
-        "efftemp_export_directory_readable",
-        "gauge",
-        "1 when the unit's export directory could be read at the last pass, else 0.",
-    );
-    for (u, unit) in s.units.iter().zip(&names) {
-        let ok = u8::from(u.input_problem.is_none());
-        let _ = writeln!(o, "efftemp_export_directory_readable{{unit=\"{unit}\"}} {ok}");
-    }
+    readable(&mut o, s, &names);
     family(&mut o, "efftemp_monitor_state", "gauge", "1 for the unit's current monitor state.");
     for (u, unit) in s.units.iter().zip(&names) {
         let _ = writeln!(o, "efftemp_monitor_state{{unit=\"{unit}\",state=\"{}\"}} 1", esc(&u.monitor_state));
@@ -169,6 +160,19 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
     family(&mut o, "efftemp_passes_total", "counter", "Pipeline passes completed.");
     let _ = writeln!(o, "efftemp_passes_total {}", s.passes);
     o
+}
+
+/// `efftemp_export_directory_readable`: whether each unit could read its export directory.
+fn readable(o: &mut String, s: &Snapshot, names: &[String]) {
+    let name = "efftemp_export_directory_readable";
+    let _ = writeln!(
+        o,
+        "# HELP {name} 1 when the unit's export directory could be read at the last pass, else 0."
+    );
+    let _ = writeln!(o, "# TYPE {name} gauge");
+    for (u, unit) in s.units.iter().zip(names) {
+        let _ = writeln!(o, "{name}{{unit=\"{unit}\"}} {}", u8::from(u.input_problem.is_none()));
+    }
 }
 
 async fn healthz() -> impl IntoResponse {
