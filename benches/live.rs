@@ -99,13 +99,15 @@ fn latency_and_idle() {
     let cfg = site(dir.path(), &unit_block("L-1", "exports", "1s"), "auto");
     let file = exports.join("plant_20261201.csv");
     let mut f = std::fs::OpenOptions::new().create(true).append(true).open(&file).unwrap();
-    write!(f, "{HEADER}\n{}", row(0)).unwrap();
+    // With the default reorder window (one interval, 1 s here) a row closes the interval
+    // before the previous one: start with two rows so that every appended row closes one.
+    write!(f, "{HEADER}\n{}{}", row(0), row(1)).unwrap();
     let mut child = spawn(&cfg);
     let out = dir.path().join("output/L-1/softtags-L-1-2026-12-01.csv");
     std::thread::sleep(Duration::from_millis(500));
     let mut lat = Vec::new();
-    for t in 1..=300 {
-        // Each row closes the previous 1-s interval: its soft-tag row must appear.
+    for t in 2..=301 {
+        // Each row closes the 1-s interval that ended a reorder window before it.
         let before = count_lines(&out);
         let start = Instant::now();
         f.write_all(row(t).as_bytes()).unwrap();

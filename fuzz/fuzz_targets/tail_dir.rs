@@ -85,6 +85,7 @@ fuzz_target!(|input: &[u8]| {
     let max = if h % 3 == 0 { 4096 } else { 24 + (h % 100) as usize };
     let opts = TailOptions {
         pattern: "*.csv".to_owned(),
+        exclude: Vec::new(),
         max_record_bytes: max,
         fingerprint_bytes: 1 + (h >> 8) as usize % 32,
         marker_bytes: 1 + (h >> 16) as usize % 16,

@@ -82,7 +82,16 @@ pub fn check(path: &Path) -> Result<(), Failure> {
             say(format_args!("  note: {note}"))?;
         }
     }
-    say(format_args!("  state: {}; output: {}", site.state_dir.display(), site.output_dir.display()))
+    say(format_args!("  state: {}; output: {}", site.state_dir.display(), site.output_dir.display()))?;
+    warn_inputs(&site);
+    Ok(())
+}
+
+/// Print a located warning for each unit whose export directory cannot be read now.
+fn warn_inputs(site: &SiteConfig) {
+    for w in site.units.iter().filter_map(UnitConfig::directory_warning) {
+        eprintln!("warning: {w}");
+    }
 }
 
 /// One unit's line in the `check` summary.
@@ -206,9 +215,11 @@ pub fn replay(
 fn redirect_inputs(site: &mut SiteConfig, paths: &[PathBuf]) {
     for u in &mut site.units {
         let hit = paths.iter().find(|p| {
-            std::fs::read_dir(p).into_iter().flatten().flatten().any(|e| {
-                e.file_name().to_str().is_some_and(|n| crate::ingest::glob::name_matches(&u.input.pattern, n))
-            })
+            std::fs::read_dir(p)
+                .into_iter()
+                .flatten()
+                .flatten()
+                .any(|e| e.file_name().to_str().is_some_and(|n| u.input.selects(n)))
         });
         match hit {
             Some(p) => u.input.directory = p.clone(),
@@ -437,7 +448,11 @@ pub fn identify(path: &Path, unit_name: &str, max_dead_time: &str) -> Result<(),
     let max_delay = usize::try_from(ms / interval).unwrap_or(30).max(1);
     site.shift_reports = false;
     let scratch = std::env::temp_dir().join(format!("efftemp-identify-{}", std::process::id()));
-    crate::app::replay::replay(&site, Some(scratch.clone())).map_err(|e| Failure::Runtime(e.to_string()))?;
+    // Nothing read (no export directory, no files, every row rejected) says why.
+    if let Err(e) = crate::app::replay::replay(&site, Some(scratch.clone())) {
+        let _ = std::fs::remove_dir_all(&scratch);
+        return Err(Failure::Runtime(e.to_string()));
+    }
     let rows = crate::sinks::report::load_rows(&scratch.join(unit_name), unit_name, 0, i64::MAX, &tz);
     let _ = std::fs::remove_dir_all(&scratch);
     let (pred, meas) = longest_contiguous(&rows, interval);

@@ -1,6 +1,6 @@
 //! Health and metrics over HTTP (loopback by default): `/healthz` (the process is alive),
-//! `/readyz` (the pipeline has completed a pass recently) and `/metrics` in the Prometheus text
-//! exposition format (version 0.0.4).
+//! `/readyz` (the pipeline has completed a pass recently and every unit can read its export
+//! directory) and `/metrics` in the Prometheus text exposition format (version 0.0.4).
 //!
 //! The service publishes a [`Snapshot`] after every pass through a `watch` channel; the HTTP
 //! side only renders the latest one, so scraping never touches the pipeline.
@@ -115,6 +115,7 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
             let _ = writeln!(o, "efftemp_last_data_age_seconds{{unit=\"{unit}\"}} {age:.3}");
         }
     }
+    readable(&mut o, s, &names);
     family(&mut o, "efftemp_monitor_state", "gauge", "1 for the unit's current monitor state.");
     for (u, unit) in s.units.iter().zip(&names) {
         let _ = writeln!(o, "efftemp_monitor_state{{unit=\"{unit}\",state=\"{}\"}} 1", esc(&u.monitor_state));
@@ -171,6 +172,19 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
     o
 }
 
+/// `efftemp_export_directory_readable`: whether each unit could read its export directory.
+fn readable(o: &mut String, s: &Snapshot, names: &[String]) {
+    let name = "efftemp_export_directory_readable";
+    let _ = writeln!(
+        o,
+        "# HELP {name} 1 when the unit's export directory could be read at the last pass, else 0."
+    );
+    let _ = writeln!(o, "# TYPE {name} gauge");
+    for (u, unit) in s.units.iter().zip(names) {
+        let _ = writeln!(o, "{name}{{unit=\"{unit}\"}} {}", u8::from(u.input_problem.is_none()));
+    }
+}
+
 async fn healthz(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
     match rx.borrow().degraded.clone() {
         None => (StatusCode::OK, "ok\n".to_string()),
@@ -180,9 +194,18 @@ async fn healthz(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoRespon
 
 async fn readyz(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
     let s = rx.borrow().clone();
-    let now = jiff::Timestamp::now().as_millisecond();
+    readiness(&s, jiff::Timestamp::now().as_millisecond())
+}
+
+/// `/readyz`: ready when a pass ran recently and no unit is blind (an export directory that
+/// cannot be read makes the service not ready, with the reason in the body).
+fn readiness(s: &Snapshot, now: i64) -> (StatusCode, String) {
     if let Some(why) = &s.degraded {
         return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: degraded: {why}\n"));
+    }
+    let blind: Vec<&str> = s.units.iter().filter_map(|u| u.input_problem.as_deref()).collect();
+    if s.last_pass_ms.is_some() && !blind.is_empty() {
+        return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: {}\n", blind.join("; ")));
     }
     match s.last_pass_ms {
         Some(t) if now - t <= s.ready_within_ms => {
@@ -375,5 +398,24 @@ mod tests {
         assert!(ready.starts_with("HTTP/1.1 503") && ready.contains("not ready"), "{ready}");
         let _ = stop_tx.send(());
         server.await.unwrap().unwrap();
+    }
+
+    /// A unit whose export directory cannot be read makes the service not ready, with the reason.
+    #[test]
+    fn a_blind_unit_makes_the_service_not_ready() {
+        let mut u = UnitSnapshot { name: "R-204".into(), ..Default::default() };
+        u.input_problem = Some("unit R-204: export directory /x does not exist".into());
+        let mut s = Snapshot {
+            units: vec![u],
+            last_pass_ms: Some(1_000),
+            ready_within_ms: 5_000,
+            ..Default::default()
+        };
+        let (code, body) = readiness(&s, 2_000);
+        assert_eq!(code, StatusCode::SERVICE_UNAVAILABLE);
+        assert!(body.contains("export directory /x does not exist"), "{body}");
+        assert!(render(&s, 2_000).contains("efftemp_export_directory_readable{unit=\"R-204\"} 0"));
+        s.units[0].input_problem = None;
+        assert_eq!(readiness(&s, 2_000).0, StatusCode::OK);
     }
 }

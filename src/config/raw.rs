@@ -108,6 +108,8 @@ pub struct RawInput {
     pub directory: Option<String>,
     /// File-name pattern with `*` and `?`.
     pub pattern: Option<String>,
+    /// File-name patterns of files not to read although `pattern` matches them.
+    pub exclude: Option<Vec<String>>,
     /// `wide` or `long`.
     pub layout: Option<String>,
     /// Name of the timestamp column.
@@ -137,6 +139,9 @@ pub struct RawTiming {
     pub interval: Option<String>,
     /// How long to wait for late data, in event time and in wall time of a stalled stream.
     pub max_wait: Option<String>,
+    /// How far data must have passed an interval's end before it closes (rows out of order by
+    /// less are still used); "0s" closes as soon as every tag has passed the end.
+    pub reorder_window: Option<String>,
     /// Default staleness of continuous tags.
     pub stale_after: Option<String>,
     /// Default staleness of analyzer tags.

@@ -12,7 +12,7 @@ use jiff::tz::TimeZone;
 
 use indexmap::IndexMap;
 
-use super::check::{Checker, Percent, Range, parse_time_zone, resolve_path};
+use super::check::{Checker, Percent, Range, parse_duration_ms, parse_time_zone, resolve_path};
 use super::raw::{
     RawAlerts, RawEffluent, RawFeed, RawHeater, RawInput, RawMonitor, RawSignal, RawSignalTable, RawSsd,
     RawTiming, RawUnit, RawUnitModel, RawUnitReaction,
@@ -36,6 +36,8 @@ pub struct UnitConfig {
     pub description: String,
     /// The file that defined it.
     pub source: Arc<SourceText>,
+    /// Its key path in that file (`unit[2]`), for located messages.
+    pub key: KeyPath,
     /// The time zone's name.
     pub time_zone_name: String,
     /// Input files.
@@ -44,6 +46,32 @@ pub struct UnitConfig {
     pub spec: UnitSpec,
     /// Located remarks that are not errors (`check` prints them), e.g. an unset dead time.
     pub notes: Vec<LocatedError>,
+}
+
+impl UnitConfig {
+    /// A located warning when the unit's export directory cannot be read now: not an error,
+    /// since a site may create it after the configuration, but nothing is read until then.
+    pub fn directory_warning(&self) -> Option<LocatedError> {
+        let dir = &self.input.directory;
+        let problem = match std::fs::metadata(dir) {
+            Ok(m) if m.is_dir() => match std::fs::read_dir(dir) {
+                Ok(_) => return None,
+                Err(e) => format!("cannot be read ({e})"),
+            },
+            Ok(_) => "is not a directory".to_string(),
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => "does not exist".to_string(),
+            Err(e) => format!("cannot be read ({e})"),
+        };
+        let key = self.key.key("input").key("directory");
+        Some(self.source.error_at(
+            &key,
+            format!(
+                "unit {}: export directory {} {problem}; nothing is read (and `run` is not ready) until it exists",
+                self.spec.name,
+                dir.display()
+            ),
+        ))
+    }
 }
 
 /// Check one unit; None when it has errors (they are in `ck`).
@@ -64,7 +92,7 @@ pub(crate) fn check_unit(
         Some(z) => unit_time_zone(ck, &key.key("time_zone"), z),
     };
     let input = input(ck, &key.key("input"), &raw.input, &base, &time_zone);
-    let (interval_ms, max_wait_ms, mut tags) = timing(ck, &key.key("timing"), &raw.timing);
+    let (interval_ms, max_wait_ms, reorder_ms, mut tags) = timing(ck, &key.key("timing"), &raw.timing);
     let comps = components(ck, raw, src, key, site_library);
     let feeds = feeds(ck, &mut tags, key, &raw.feed, &comps);
     let (duty, heat_loss) = heater(ck, &mut tags, &key.key("heater"), &raw.heater);
@@ -109,6 +137,7 @@ pub(crate) fn check_unit(
         notes,
         description: raw.description.clone().unwrap_or_default(),
         source: src.clone(),
+        key: key.clone(),
         time_zone_name,
         input,
         spec: UnitSpec {
@@ -116,6 +145,7 @@ pub(crate) fn check_unit(
             time_zone,
             interval_ms,
             max_wait_ms,
+            reorder_ms,
             system,
             tags: tags.tags,
             feeds,
@@ -206,6 +236,17 @@ fn input(ck: &mut Checker<'_>, ik: &KeyPath, inp: &RawInput, base: &Path, unit_t
     if pattern.contains('/') {
         ck.err(&ik.key("pattern"), "pattern matches file names only; put directories in `directory`");
     }
+    let exclude = inp.exclude.clone().unwrap_or_default();
+    for (i, x) in exclude.iter().enumerate() {
+        let k = ik.key("exclude").index(i);
+        if x.trim().is_empty() {
+            ck.err(&k, "an empty pattern excludes nothing; remove it");
+        } else if x.contains('/') {
+            ck.err(&k, "exclude patterns match file names only, like `pattern`");
+        } else if x.chars().all(|c| c == '*') || *x == pattern {
+            ck.err(&k, format!("`{x}` excludes every file that `pattern = \"{pattern}\"` matches"));
+        }
+    }
     let layout = match inp.layout.as_deref().unwrap_or("wide") {
         "wide" => Layout::Wide,
         "long" => Layout::Long {
@@ -237,6 +278,7 @@ fn input(ck: &mut Checker<'_>, ik: &KeyPath, inp: &RawInput, base: &Path, unit_t
     InputConfig {
         directory,
         pattern,
+        exclude,
         layout,
         timestamp_column: inp.timestamp_column.clone().unwrap_or_else(|| "timestamp".into()),
         timestamp_format,
@@ -269,7 +311,7 @@ fn timestamp_format(ck: &mut Checker<'_>, key: &KeyPath, format: Option<&str>) -
 
 /// `[unit.timing]`: the interval, the longest wait for late data, and an empty tag table with
 /// the default staleness of its tags.
-fn timing(ck: &mut Checker<'_>, tk: &KeyPath, t: &RawTiming) -> (i64, i64, TagTable) {
+fn timing(ck: &mut Checker<'_>, tk: &KeyPath, t: &RawTiming) -> (i64, i64, i64, TagTable) {
     let interval_ms = ck.duration(&tk.key("interval"), t.interval.as_ref(), 60_000);
     if interval_ms < 1_000 || 86_400_000 % interval_ms != 0 {
         ck.err(
@@ -278,6 +320,8 @@ fn timing(ck: &mut Checker<'_>, tk: &KeyPath, t: &RawTiming) -> (i64, i64, TagTa
         );
     }
     let max_wait_ms = ck.duration(&tk.key("max_wait"), t.max_wait.as_ref(), 5 * interval_ms.max(60_000));
+    let reorder_ms =
+        reorder_window(ck, &tk.key("reorder_window"), t.reorder_window.as_ref(), interval_ms, max_wait_ms);
     let tags = TagTable {
         tags: Vec::new(),
         default_stale_ms: ck.duration(
@@ -291,7 +335,45 @@ fn timing(ck: &mut Checker<'_>, tk: &KeyPath, t: &RawTiming) -> (i64, i64, TagTa
             45 * 60_000,
         ),
     };
-    (interval_ms, max_wait_ms, tags)
+    (interval_ms, max_wait_ms, reorder_ms, tags)
+}
+
+/// Default reorder window: one interval, at most 2 minutes (and never beyond `max_wait`).
+const REORDER_DEFAULT_MAX_MS: i64 = 2 * 60_000;
+
+/// `[unit.timing] reorder_window`: a duration (or "0s") not longer than `max_wait`.
+fn reorder_window(
+    ck: &mut Checker<'_>,
+    key: &KeyPath,
+    v: Option<&String>,
+    interval_ms: i64,
+    max_wait_ms: i64,
+) -> i64 {
+    let Some(text) = v else {
+        return interval_ms.min(REORDER_DEFAULT_MAX_MS).min(max_wait_ms).max(0);
+    };
+    let zero = text.trim().trim_end_matches(|c: char| c.is_ascii_alphabetic()).trim();
+    let ms = if zero.chars().all(|c| c == '0') && !zero.is_empty() {
+        0
+    } else {
+        match parse_duration_ms(text) {
+            Ok(ms) => ms,
+            Err(e) => {
+                ck.err(key, e);
+                return 0;
+            }
+        }
+    };
+    if ms > max_wait_ms {
+        ck.err(
+            key,
+            format!(
+                "reorder_window `{text}` is longer than max_wait ({} s): intervals would close after max_wait anyway; make max_wait at least as long",
+                max_wait_ms / 1000
+            ),
+        );
+    }
+    ms.min(max_wait_ms)
 }
 
 /// The components of a unit, in order of first use.

@@ -2,17 +2,19 @@
 //! complete, aggregated (time-weighted mean for continuous tags, last value for analyzers),
 //! with staleness, quality and range marked.
 //!
-//! Closing rules for the earliest open interval `[start, end)`:
-//! * every required tag has a sample at or after `end` (the normal case);
-//! * or the newest sample of any tag is at least `max_wait` past `end` (a tag has gone quiet:
-//!   event-time lateness, identical live and in replay);
+//! Closing rules for the earliest open interval `[start, end)`, with the reorder window
+//! `reorder` (rows a little out of order are still used):
+//! * every required tag has a sample at or after `end + reorder` (the normal case);
+//! * or the newest sample of any tag is at least `max(max_wait, reorder)` past `end` (a tag has
+//!   gone quiet: event-time lateness, identical live and in replay);
 //! * or the caller says the stream is quiet (no new data for `max_wait` of monotonic wall time
 //!   in the live service, or the end of the input in replay): intervals up to the newest sample
 //!   are closed.
 //!
-//! A sample for an interval already closed is *late*: it is counted, never silently used or
-//! dropped. Duplicates (same tag and time) are idempotent: the first value wins and a
-//! conflicting duplicate is counted. Pure and deterministic; the state serializes into the
+//! A sample for an interval already closed is *late* (it arrived more than the reorder window
+//! out of order): it is counted, never silently used or dropped. Duplicates (same tag and time)
+//! are idempotent: the first value wins, and [`Assembler::add`] says so (conflicting or not)
+//! for the caller to count and log. Pure and deterministic; the state serializes into the
 //! checkpoint.
 
 use serde::{Deserialize, Serialize};
@@ -56,6 +58,11 @@ pub enum Added {
     Accepted,
     /// Its interval was already closed.
     Late,
+    /// A sample of the same tag and time is already buffered: the first value is kept.
+    Duplicate {
+        /// The values differ.
+        conflicting: bool,
+    },
 }
 
 /// Status of a tag in a closed interval.
@@ -135,6 +142,10 @@ struct TagBuf {
 pub struct Assembler {
     interval_ms: i64,
     max_wait_ms: i64,
+    /// How far data must have passed an interval's end before it closes (set from the unit's
+    /// settings at every start, like `max_wait_ms`).
+    #[serde(default)]
+    reorder_ms: i64,
     #[serde(skip)]
     rules: Vec<TagRule>,
     bufs: Vec<TagBuf>,
@@ -150,9 +161,10 @@ fn floor_to(t: i64, step: i64) -> i64 {
 
 impl Assembler {
     /// A new assembler.
-    pub fn new(interval_ms: i64, max_wait_ms: i64, rules: Vec<TagRule>) -> Assembler {
+    pub fn new(interval_ms: i64, max_wait_ms: i64, reorder_ms: i64, rules: Vec<TagRule>) -> Assembler {
         let bufs = vec![TagBuf::default(); rules.len()];
-        Assembler { interval_ms, max_wait_ms, rules, bufs, open_from: None, max_event: None }
+        let reorder_ms = reorder_ms.max(0);
+        Assembler { interval_ms, max_wait_ms, reorder_ms, rules, bufs, open_from: None, max_event: None }
     }
 
     /// Restore from a checkpoint with the current rules (tags must match by count; otherwise
@@ -161,15 +173,17 @@ impl Assembler {
         mut saved: Assembler,
         interval_ms: i64,
         max_wait_ms: i64,
+        reorder_ms: i64,
         rules: Vec<TagRule>,
     ) -> Assembler {
         if saved.bufs.len() != rules.len() || saved.interval_ms != interval_ms {
-            let mut fresh = Assembler::new(interval_ms, max_wait_ms, rules);
+            let mut fresh = Assembler::new(interval_ms, max_wait_ms, reorder_ms, rules);
             fresh.open_from = saved.open_from.map(|t| floor_to(t, interval_ms));
             return fresh;
         }
         saved.rules = rules;
         saved.max_wait_ms = max_wait_ms;
+        saved.reorder_ms = reorder_ms.max(0);
         saved
     }
 
@@ -196,6 +210,11 @@ impl Assembler {
             return Added::Late;
         }
         let Some(buf) = self.bufs.get_mut(s.tag) else { return Added::Late };
+        // Duplicates are usually next to each other: search from the newest.
+        if let Some(&(_, v, q)) = buf.samples.iter().rev().find(|x| x.0 == s.t_ms) {
+            let same = (v == s.value || (v.is_nan() && s.value.is_nan())) && q == s.quality;
+            return Added::Duplicate { conflicting: !same };
+        }
         buf.samples.push((s.t_ms, s.value, s.quality));
         buf.latest = Some(buf.latest.map_or(s.t_ms, |l| l.max(s.t_ms)));
         self.max_event = Some(self.max_event.map_or(s.t_ms, |m| m.max(s.t_ms)));
@@ -220,14 +239,15 @@ impl Assembler {
         if quiet && start <= max_event {
             return true;
         }
-        if max_event >= end + self.max_wait_ms {
+        if max_event >= end + self.max_wait_ms.max(self.reorder_ms) {
             return true;
         }
+        let passed = end + self.reorder_ms;
         let mut any_required = false;
         for (rule, buf) in self.rules.iter().zip(&self.bufs) {
             if rule.required {
                 any_required = true;
-                if buf.latest.is_none_or(|l| l < end) {
+                if buf.latest.is_none_or(|l| l < passed) {
                     return false;
                 }
             }
@@ -372,7 +392,7 @@ mod tests {
 
     #[test]
     fn time_weighted_mean_with_sample_and_hold() {
-        let mut a = Assembler::new(MIN, 5 * MIN, vec![rule(TagKind::Continuous, true)]);
+        let mut a = Assembler::new(MIN, 5 * MIN, 0, vec![rule(TagKind::Continuous, true)]);
         // 10 for the first 15 s, 20 for the remaining 45 s: mean 17.5.
         a.add(&s(0, 0, 10.0));
         a.add(&s(0, 15_000, 20.0));
@@ -394,22 +414,21 @@ mod tests {
 
     #[test]
     fn duplicates_are_idempotent_and_conflicts_counted() {
-        let mut a = Assembler::new(MIN, 5 * MIN, vec![rule(TagKind::Continuous, true)]);
-        a.add(&s(0, 0, 10.0));
-        a.add(&s(0, 0, 10.0));
-        a.add(&s(0, 30_000, 20.0));
-        a.add(&s(0, 30_000, 99.0));
+        let mut a = Assembler::new(MIN, 5 * MIN, 0, vec![rule(TagKind::Continuous, true)]);
+        assert_eq!(a.add(&s(0, 0, 10.0)), Added::Accepted);
+        assert_eq!(a.add(&s(0, 0, 10.0)), Added::Duplicate { conflicting: false });
+        assert_eq!(a.add(&s(0, 30_000, 20.0)), Added::Accepted);
+        assert_eq!(a.add(&s(0, 30_000, 99.0)), Added::Duplicate { conflicting: true });
         a.add(&s(0, MIN, 1.0));
         let c = a.close_next(false).unwrap();
-        assert!((c.tags[0].value.unwrap() - 15.0).abs() < 1e-12);
-        assert_eq!(c.conflicting_duplicates, 1);
+        assert!((c.tags[0].value.unwrap() - 15.0).abs() < 1e-12, "the first value is kept");
         assert_eq!(c.tags[0].samples, 2);
     }
 
     #[test]
     fn analyzer_last_value_staleness_and_bad_quality() {
         let rules = vec![rule(TagKind::Continuous, true), rule(TagKind::Analyzer, false)];
-        let mut a = Assembler::new(MIN, 5 * MIN, rules);
+        let mut a = Assembler::new(MIN, 5 * MIN, 0, rules);
         a.add(&s(1, 0, 0.3));
         for m in 0..=8 {
             a.add(&s(0, m * MIN, 1.0));
@@ -423,7 +442,7 @@ mod tests {
         assert_eq!(out[3].tags[1].status, TagStatus::Ok);
         assert_eq!(out[5].tags[1].status, TagStatus::Stale, "6 min old > 5 min");
         // A bad sample is not used, and a value outside the range counts as out of range.
-        let mut b = Assembler::new(MIN, 5 * MIN, vec![rule(TagKind::Continuous, true)]);
+        let mut b = Assembler::new(MIN, 5 * MIN, 0, vec![rule(TagKind::Continuous, true)]);
         b.add(&Sample { tag: 0, t_ms: 0, value: 5.0, quality: Quality::Bad });
         b.add(&s(0, 20_000, 5000.0));
         b.add(&s(0, MIN, 1.0));
@@ -434,7 +453,7 @@ mod tests {
     #[test]
     fn quiet_tag_and_quiet_stream_close_intervals() {
         let rules = vec![rule(TagKind::Continuous, true), rule(TagKind::Continuous, true)];
-        let mut a = Assembler::new(MIN, 3 * MIN, rules);
+        let mut a = Assembler::new(MIN, 3 * MIN, 0, rules);
         // Tag 1 stops after the first minute; tag 0 keeps going.
         a.add(&s(1, 0, 5.0));
         for m in 0..=3 {
@@ -452,15 +471,39 @@ mod tests {
         assert_eq!(n, 5);
     }
 
+    /// A row that arrives out of order by less than the reorder window is used; an interval
+    /// closes only once the required tags have passed its end by the window.
+    #[test]
+    fn rows_out_of_order_within_the_reorder_window_are_used() {
+        let mut a = Assembler::new(MIN, 5 * MIN, MIN, vec![rule(TagKind::Continuous, true)]);
+        for t in [0, 30_000, MIN, MIN + 30_000] {
+            a.add(&s(0, t, 10.0));
+        }
+        assert!(a.close_next(false).is_none(), "data has not passed the end by the window yet");
+        a.add(&s(0, 2 * MIN, 10.0));
+        // The row of 00:00:50 comes a minute late, after the row of 00:01:50.
+        a.add(&s(0, MIN + 50_000, 10.0));
+        assert_eq!(a.add(&s(0, 50_000, 40.0)), Added::Accepted, "within the window: used");
+        let c = a.close_next(false).unwrap();
+        assert_eq!(c.end_ms, MIN);
+        // 10 for 50 s, 40 for 10 s.
+        assert!((c.tags[0].value.unwrap() - 15.0).abs() < 1e-12, "{:?}", c.tags[0]);
+        assert!(a.close_next(false).is_none());
+        assert_eq!(a.add(&s(0, 55_000, 1.0)), Added::Late, "beyond the window: late");
+        // A quiet tag still closes after max_wait, and the end of input closes the rest.
+        a.add(&s(0, 7 * MIN, 10.0));
+        assert_eq!(a.close_next(false).unwrap().end_ms, 2 * MIN);
+    }
+
     #[test]
     fn checkpoint_round_trip() {
         let rules = vec![rule(TagKind::Continuous, true)];
-        let mut a = Assembler::new(MIN, 5 * MIN, rules.clone());
+        let mut a = Assembler::new(MIN, 5 * MIN, 0, rules.clone());
         a.add(&s(0, 0, 1.0));
         a.add(&s(0, MIN, 2.0));
         a.close_next(false);
         let json = serde_json::to_string(&a).unwrap();
-        let b = Assembler::restore(serde_json::from_str(&json).unwrap(), MIN, 5 * MIN, rules);
+        let b = Assembler::restore(serde_json::from_str(&json).unwrap(), MIN, 5 * MIN, 0, rules);
         assert_eq!(a, b);
     }
 }

@@ -21,6 +21,9 @@ pub struct UnitSpec {
     pub interval_ms: i64,
     /// Lateness allowance, ms.
     pub max_wait_ms: i64,
+    /// Reorder window, ms: an interval closes only once data has passed its end by this, so
+    /// rows this much out of order are still used (at most `max_wait_ms`).
+    pub reorder_ms: i64,
     /// Components, paths, reactions.
     pub system: System,
     /// Every tag the unit reads.

@@ -25,6 +25,11 @@ pub fn name_matches(pattern: &str, name: &str) -> bool {
     pat[p..].iter().all(|&c| c == '*')
 }
 
+/// Whether an export file name is read: it matches `pattern` and none of the `exclude` patterns.
+pub fn selects(pattern: &str, exclude: &[String], name: &str) -> bool {
+    name_matches(pattern, name) && !exclude.iter().any(|x| name_matches(x, name))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -35,5 +40,10 @@ mod tests {
         assert!(!name_matches("sru_*.csv", "sru_2026-12-01.csv.tmp"));
         assert!(name_matches("a?c", "abc"));
         assert!(name_matches("*", "anything"));
+        let exclude = vec!["*_long.csv".to_string(), "sru_2026-12-02.csv".to_string()];
+        assert!(selects("sru_*.csv", &exclude, "sru_2026-12-01.csv"));
+        assert!(!selects("sru_*.csv", &exclude, "sru_2026-12-01_long.csv"));
+        assert!(!selects("sru_*.csv", &exclude, "sru_2026-12-02.csv"));
+        assert!(!selects("sru_*.csv", &[], "other.csv"));
     }
 }

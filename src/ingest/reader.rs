@@ -1,12 +1,14 @@
 //! One unit's export files as a stream of parsed records: the [`Tailer`] delivers complete CSV
 //! records, the [`RowParser`] turns them into samples, and everything either of them cannot
-//! use is logged with its file, line and reason (the caller counts it).
+//! use is logged with its file, line and reason (the caller counts it). Repeated reasons in a
+//! file are logged once and then summed up per pass ([`RepeatLog`]).
 
 use std::path::{Path, PathBuf};
 
 use tracing::{debug, info, warn};
 
 use crate::core::vocabulary::Sample;
+use crate::ingest::repeat::{RepeatLog, warn_summary};
 use crate::ingest::rows::{HeaderInfo, Reject, RowParser};
 use crate::ingest::settings::{InputConfig, Layout};
 use crate::ingest::tail::{
@@ -18,8 +20,10 @@ use crate::ingest::tail::{
 pub enum Read<'a> {
     /// A data record: its samples and what of it was rejected.
     Record {
-        /// The file.
+        /// The file (its name now).
         file: &'a Path,
+        /// The file's generation id (stable across renames and restarts).
+        id: u64,
         /// Its line.
         line: u64,
         /// The values it carries.
@@ -42,6 +46,10 @@ pub struct ExportReader {
     parser: RowParser,
     /// Links refused at the last poll (warned about when the set changes).
     refused_links: Vec<PathBuf>,
+    /// Why the export directory could not be listed at the last poll.
+    unavailable: Option<String>,
+    /// Repeated rejections, logged once per file and reason, then summed up.
+    repeats: RepeatLog,
     samples: Vec<Sample>,
     rejects: Vec<Reject>,
 }
@@ -61,6 +69,8 @@ impl ExportReader {
             tailer: Tailer::new(input.directory.clone(), options, saved),
             parser: RowParser::new(input, tag_names),
             refused_links: Vec::new(),
+            unavailable: None,
+            repeats: RepeatLog::default(),
             samples: Vec::new(),
             rejects: Vec::new(),
         }
@@ -71,24 +81,40 @@ impl ExportReader {
         self.tailer.state()
     }
 
-    /// Read what is new. A directory that cannot be listed is logged and retried at the next
-    /// poll (its state is kept).
+    /// Why the export directory could not be read at the last poll (`None`: it could).
+    pub fn unavailable(&self) -> Option<&str> {
+        self.unavailable.as_deref()
+    }
+
+    /// Read what is new. A directory that cannot be listed is logged (once, until it can be
+    /// listed again) and retried at the next poll (its state is kept).
     pub fn poll(&mut self, now_mono: u64, on: &mut dyn FnMut(Read<'_>)) -> PollStats {
-        let ExportReader { unit, wide, tailer, parser, samples, rejects, .. } = self;
+        let ExportReader { unit, wide, tailer, parser, samples, rejects, repeats, .. } = self;
         let stats = tailer.poll(now_mono, &mut |event| match event {
-            TailEvent::Header { file, fields } => header(unit, *wide, file.path, parser.header(file.id, fields)),
+            TailEvent::Header { file, fields } => {
+                let info = parser.header(file.id, fields);
+                if let HeaderInfo::Unusable(r) = &info {
+                    repeats.logged(file.id, file.path, r.code());
+                }
+                header(unit, *wide, file.path, info);
+            }
             TailEvent::Record { file, record } => {
                 samples.clear();
                 rejects.clear();
                 parser.record(file.id, record.len(), &|i| record.field(i), &mut |s| samples.push(s), rejects);
                 for r in rejects.iter() {
-                    warn!(unit = %unit, file = %file.path.display(), line = record.line, reason = r.code(), "rejected: {r}");
+                    let line = record.line;
+                    if repeats.first(file.id, file.path, r.code(), line, || format!("rejected: {r}")) {
+                        warn!(unit = %unit, file = %file.path.display(), line, reason = r.code(), "rejected: {r}");
+                    }
                 }
-                on(Read::Record { file: file.path, line: record.line, samples, rejects });
+                on(Read::Record { file: file.path, id: file.id, line: record.line, samples, rejects });
             }
             TailEvent::Rejected { file, line, reason } => {
                 let (code, text) = describe_reject(&reason);
-                warn!(unit = %unit, file = %file.path.display(), line, reason = code, "rejected: {text}");
+                if repeats.first(file.id, file.path, code, line, || format!("rejected: {text}")) {
+                    warn!(unit = %unit, file = %file.path.display(), line, reason = code, "rejected: {text}");
+                }
                 on(Read::Rejected { code });
             }
             TailEvent::Notice { file, notice } => {
@@ -100,14 +126,32 @@ impl ExportReader {
                 }
                 if matches!(notice, Notice::Sealed { .. } | Notice::Ended { .. }) {
                     parser.forget(file.id);
+                    for s in repeats.finish(file.id) {
+                        warn_summary(unit, &s);
+                    }
                 }
             }
         });
-        let stats = stats.unwrap_or_else(|e| {
-            // The directory could not be listed (e.g. a share briefly unmounted).
-            warn!(unit = %self.unit, error = %e, "export directory unavailable; retrying at the next pass");
-            PollStats::default()
-        });
+        for s in self.repeats.take() {
+            warn_summary(&self.unit, &s);
+        }
+        let stats = match stats {
+            Ok(stats) => {
+                if self.unavailable.take().is_some() {
+                    info!(unit = %self.unit, dir = %self.tailer.dir().display(), "export directory available again");
+                }
+                stats
+            }
+            Err(e) => {
+                // The directory could not be listed (missing, or a share briefly unmounted).
+                let why = unavailable_reason(self.tailer.dir(), &e);
+                if self.unavailable.as_deref() != Some(why.as_str()) {
+                    warn!(unit = %self.unit, dir = %self.tailer.dir().display(), error = %e, "{why}; nothing is read from it until it can be");
+                }
+                self.unavailable = Some(why);
+                PollStats::default()
+            }
+        };
         if self.tailer.refused_links() != self.refused_links.as_slice() {
             for l in self.tailer.refused_links().iter().filter(|l| !self.refused_links.contains(l)) {
                 warn!(unit = %self.unit, file = %l.display(), "symbolic link to a file outside the export directory: not read (set `links_outside = true` under [unit.input] to allow)");
@@ -115,6 +159,17 @@ impl ExportReader {
             self.refused_links = self.tailer.refused_links().to_vec();
         }
         stats
+    }
+}
+
+/// The sentence for an export directory that cannot be listed.
+fn unavailable_reason(dir: &Path, e: &crate::ingest::tail::TailError) -> String {
+    match std::fs::metadata(dir) {
+        Err(m) if m.kind() == std::io::ErrorKind::NotFound => {
+            format!("export directory {} does not exist", dir.display())
+        }
+        Ok(m) if !m.is_dir() => format!("export directory {} is not a directory", dir.display()),
+        _ => format!("export directory {} cannot be read: {e}", dir.display()),
     }
 }
 
@@ -127,7 +182,7 @@ fn header(unit: &str, wide: bool, file: &Path, info: HeaderInfo) {
             debug!(unit = %unit, file = %file.display(), ignored_columns, "header read");
         }
         HeaderInfo::Unusable(r) => {
-            warn!(unit = %unit, file = %file.display(), reason = r.code(), "export file cannot be used: {r}; its rows are rejected");
+            warn!(unit = %unit, file = %file.display(), line = 1, reason = r.code(), "export file cannot be used: {r}; its rows are rejected and counted (one summary per pass)");
         }
     }
 }

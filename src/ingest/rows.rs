@@ -42,6 +42,23 @@ pub enum Reject {
     MissingColumn(String),
     /// The file's header names a mapped tag twice (which column is right is unknowable).
     DuplicateColumn(String),
+    /// The file's header does not fit the unit's layout (a long export matched by a wide unit's
+    /// pattern, or the reverse): the whole file is not used.
+    WrongLayout {
+        /// The unit's layout (`wide` or `long`).
+        layout: &'static str,
+        /// What the header lacks for that layout.
+        lacks: String,
+        /// The layout the header looks like, if any.
+        looks_like: Option<&'static str>,
+    },
+    /// Fields of the row are empty: no value for them (the rest of the row is used).
+    EmptyField {
+        /// The first empty column (tag or column name).
+        column: String,
+        /// How many more fields of the row are empty.
+        more: usize,
+    },
     /// A record longer than the configured limit.
     TooLong,
     /// Not valid UTF-8.
@@ -60,6 +77,8 @@ impl Reject {
             Reject::BadQuality(_) => "bad_quality",
             Reject::MissingColumn(_) => "missing_column",
             Reject::DuplicateColumn(_) => "duplicate_column",
+            Reject::WrongLayout { .. } => "wrong_layout",
+            Reject::EmptyField { .. } => "empty_field",
             Reject::TooLong => "line_too_long",
             Reject::NotUtf8 => "not_utf8",
         }
@@ -84,6 +103,22 @@ impl fmt::Display for Reject {
             Reject::MissingColumn(c) => write!(f, "the file's header has no column `{c}`"),
             Reject::DuplicateColumn(c) => {
                 write!(f, "the file's header has the column `{c}` twice; the file is not used")
+            }
+            Reject::WrongLayout { layout, lacks, looks_like } => {
+                write!(f, "the file's header does not fit the unit's `{layout}` layout ({lacks})")?;
+                match looks_like {
+                    Some(other) => write!(
+                        f,
+                        "; it looks like a `{other}` export: set `layout = \"{other}\"` for it, or keep it out with `exclude` under [unit.input]; the file is not used"
+                    ),
+                    None => f.write_str("; the file is not used"),
+                }
+            }
+            Reject::EmptyField { column, more: 0 } => {
+                write!(f, "empty field `{column}`: no value in this row")
+            }
+            Reject::EmptyField { column, more } => {
+                write!(f, "empty fields `{column}` and {more} more: no value for them in this row")
             }
             Reject::TooLong => f.write_str("record longer than the configured limit"),
             Reject::NotUtf8 => f.write_str("record is not valid UTF-8"),
@@ -114,6 +149,14 @@ struct Clock {
 const FOLD_TOLERANCE_MS: i64 = 15 * 60_000;
 
 impl Clock {
+    /// The timestamp field of column `column` (an empty one is an empty field).
+    fn read_field(&mut self, text: &str, column: &str) -> Result<i64, Reject> {
+        if text.trim().is_empty() {
+            return Err(Reject::EmptyField { column: column.to_string(), more: 0 });
+        }
+        self.read(text)
+    }
+
     fn read(&mut self, text: &str) -> Result<i64, Reject> {
         let text = text.trim();
         if text == self.last_text && !text.is_empty() {
@@ -159,6 +202,28 @@ impl Clock {
     }
 }
 
+/// The column `name` of a header: the exact (trimmed) match, else the one column whose name
+/// differs only in case. Two columns that both differ only in case are ambiguous.
+fn find_column(fields: &[String], name: &str) -> Result<Option<usize>, Reject> {
+    let name = name.trim();
+    if let Some(i) = fields.iter().position(|f| f.trim() == name) {
+        return Ok(Some(i));
+    }
+    let folded = name.to_lowercase();
+    let mut hits = fields.iter().enumerate().filter(|(_, f)| f.trim().to_lowercase() == folded);
+    match (hits.next(), hits.next()) {
+        (None, _) => Ok(None),
+        (Some((i, _)), None) => Ok(Some(i)),
+        (Some(_), Some(_)) => Err(Reject::DuplicateColumn(name.to_string())),
+    }
+}
+
+/// Whether a header looks like a long export: it has `tag` and `value` columns (any case).
+fn looks_long(fields: &[String]) -> bool {
+    let has = |n: &str| fields.iter().any(|f| f.trim().eq_ignore_ascii_case(n));
+    has("tag") && has("value")
+}
+
 /// Turns records of the files of one unit into samples.
 #[derive(Debug, Clone)]
 pub struct RowParser {
@@ -166,6 +231,8 @@ pub struct RowParser {
     ts_column: String,
     reject_unknown: bool,
     tags: HashMap<String, usize>,
+    /// Tags by lower-case name (only names that stay distinct), for headers in another case.
+    tags_folded: HashMap<String, usize>,
     tag_names: Vec<String>,
     /// Per file id: the plan and the clock.
     files: HashMap<u64, (Plan, Clock)>,
@@ -190,7 +257,18 @@ pub enum HeaderInfo {
 impl RowParser {
     /// A parser for a unit's input settings and tag names.
     pub fn new(input: &InputConfig, tag_names: &[String]) -> RowParser {
+        let mut tags_folded: HashMap<String, usize> = HashMap::new();
+        let mut clash = Vec::new();
+        for (i, n) in tag_names.iter().enumerate() {
+            if tags_folded.insert(n.trim().to_lowercase(), i).is_some() {
+                clash.push(n.trim().to_lowercase());
+            }
+        }
+        for c in clash {
+            tags_folded.remove(&c);
+        }
         RowParser {
+            tags_folded,
             layout: input.layout.clone(),
             ts_column: input.timestamp_column.clone(),
             reject_unknown: input.reject_unknown_tags,
@@ -207,9 +285,9 @@ impl RowParser {
         self.files.remove(&file);
     }
 
-    /// Read a file's header row and build its column plan.
+    /// Read a file's header row and build its column plan. Column names are compared trimmed
+    /// and without regard to case (an exact match wins over one that differs only in case).
     pub fn header(&mut self, file: u64, fields: &[String]) -> HeaderInfo {
-        let find = |name: &str| fields.iter().position(|f| f.trim() == name.trim());
         // The tailer sends a file's header again when it re-attaches to the same file (a
         // continuation): its clock keeps where the file had got to in a repeated local hour.
         let clock = self.files.remove(&file).map(|(_, c)| c).unwrap_or_else(|| Clock {
@@ -219,74 +297,89 @@ impl RowParser {
             last_ms: 0,
             latest_ms: None,
         });
-        let (plan, info) = match find(&self.ts_column) {
-            None => {
-                let r = Reject::MissingColumn(self.ts_column.clone());
-                (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
-            }
-            Some(ts) => match &self.layout {
-                Layout::Wide => {
-                    let mut cols = Vec::new();
-                    let mut ignored = 0;
-                    for (i, f) in fields.iter().enumerate() {
-                        if i == ts {
-                            continue;
-                        }
-                        match self.tags.get(f.trim()) {
-                            Some(&t) => cols.push((i, t)),
-                            None => ignored += 1,
-                        }
-                    }
-                    let missing_tags: Vec<String> = self
-                        .tag_names
-                        .iter()
-                        .enumerate()
-                        .filter(|(t, _)| !cols.iter().any(|(_, c)| c == t))
-                        .map(|(_, n)| n.clone())
-                        .collect();
-                    let twice = cols
-                        .iter()
-                        .enumerate()
-                        .find(|(k, (_, t))| cols[..*k].iter().any(|(_, u)| u == t))
-                        .map(|(_, (_, t))| self.tag_names[*t].clone());
-                    match twice {
-                        Some(name) => {
-                            let r = Reject::DuplicateColumn(name);
-                            (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
-                        }
-                        None => (
-                            Plan::Wide { ts, cols, width: fields.len() },
-                            HeaderInfo::Mapped { missing_tags, ignored_columns: ignored },
-                        ),
-                    }
-                }
-                Layout::Long { tag, value, quality } => match (find(tag), find(value)) {
-                    (Some(tc), Some(vc)) => {
-                        let qc = quality.as_deref().and_then(find);
-                        if let (Some(q), None) = (quality, qc) {
-                            let r = Reject::MissingColumn(q.clone());
-                            (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
-                        } else {
-                            let width = fields.len();
-                            (
-                                Plan::Long { ts, tag: tc, value: vc, quality: qc, width },
-                                HeaderInfo::Mapped { missing_tags: Vec::new(), ignored_columns: 0 },
-                            )
-                        }
-                    }
-                    (None, _) => {
-                        let r = Reject::MissingColumn(tag.clone());
-                        (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
-                    }
-                    (_, None) => {
-                        let r = Reject::MissingColumn(value.clone());
-                        (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r))
-                    }
-                },
-            },
+        let (plan, info) = match self.plan(fields) {
+            Ok(x) => x,
+            Err(r) => (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r)),
         };
         self.files.insert(file, (plan, clock));
         info
+    }
+
+    /// The unit's tag a header field names (exactly, else ignoring case).
+    fn tag_of(&self, field: &str) -> Option<usize> {
+        let f = field.trim();
+        self.tags.get(f).or_else(|| self.tags_folded.get(&f.to_lowercase())).copied()
+    }
+
+    /// The column plan of a header, or why the file cannot be used.
+    fn plan(&self, fields: &[String]) -> Result<(Plan, HeaderInfo), Reject> {
+        let ts = find_column(fields, &self.ts_column)?;
+        let width = fields.len();
+        let mapped = HeaderInfo::Mapped { missing_tags: Vec::new(), ignored_columns: 0 };
+        match &self.layout {
+            Layout::Wide => {
+                let Some(ts) = ts else {
+                    return Err(self.wrong_or_missing(fields, &self.ts_column));
+                };
+                let mut cols = Vec::new();
+                let mut ignored = 0;
+                for (i, f) in fields.iter().enumerate().filter(|(i, _)| *i != ts) {
+                    match self.tag_of(f) {
+                        Some(t) => cols.push((i, t)),
+                        None => ignored += 1,
+                    }
+                }
+                if cols.is_empty() {
+                    return Err(Reject::WrongLayout {
+                        layout: "wide",
+                        lacks: format!("no column names one of the unit's {} tags", self.tag_names.len()),
+                        looks_like: looks_long(fields).then_some("long"),
+                    });
+                }
+                if let Some((_, (_, t))) =
+                    cols.iter().enumerate().find(|(k, (_, t))| cols[..*k].iter().any(|(_, u)| u == t))
+                {
+                    return Err(Reject::DuplicateColumn(self.tag_names[*t].clone()));
+                }
+                let missing_tags: Vec<String> = (0..self.tag_names.len())
+                    .filter(|t| !cols.iter().any(|(_, c)| c == t))
+                    .map(|t| self.tag_names[t].clone())
+                    .collect();
+                let info = HeaderInfo::Mapped { missing_tags, ignored_columns: ignored };
+                Ok((Plan::Wide { ts, cols, width }, info))
+            }
+            Layout::Long { tag, value, quality } => {
+                let (tc, vc) = (find_column(fields, tag)?, find_column(fields, value)?);
+                let qc = match quality {
+                    Some(q) => Some(find_column(fields, q)?.ok_or_else(|| Reject::MissingColumn(q.clone()))?),
+                    None => None,
+                };
+                match (ts, tc, vc) {
+                    (Some(ts), Some(tag), Some(value)) => {
+                        Ok((Plan::Long { ts, tag, value, quality: qc, width }, mapped))
+                    }
+                    (None, _, _) => Err(self.wrong_or_missing(fields, &self.ts_column)),
+                    (_, None, _) => Err(self.wrong_or_missing(fields, tag)),
+                    (_, _, None) => Err(self.wrong_or_missing(fields, value)),
+                }
+            }
+        }
+    }
+
+    /// A header without the column `name`: the wrong layout if it looks like the other one.
+    fn wrong_or_missing(&self, fields: &[String], name: &str) -> Reject {
+        let (layout, other) = match self.layout {
+            Layout::Wide => ("wide", looks_long(fields)),
+            Layout::Long { .. } => ("long", fields.iter().any(|f| self.tag_of(f).is_some())),
+        };
+        if !other {
+            return Reject::MissingColumn(name.to_string());
+        }
+        Reject::WrongLayout {
+            layout,
+            lacks: format!("no column `{name}`"),
+            looks_like: Some(if layout == "wide" { "long" } else { "wide" }),
+        }
     }
 
     /// Parse one record. Samples go to `out`; the returned list holds the rejections (a wide
@@ -305,39 +398,21 @@ impl RowParser {
             return;
         };
         let text = |i: usize| std::str::from_utf8(field(i)).map_err(|_| Reject::NotUtf8);
+        let ts_column = self.ts_column.as_str();
         match plan {
             Plan::Unusable(r) => rejects.push(r.clone()),
             Plan::Wide { ts, cols, width } => {
-                if n_fields <= *ts || n_fields < *width {
-                    rejects.push(Reject::ShortRow { found: n_fields, expected: *width });
-                    return;
-                }
-                let t_ms = match text(*ts).and_then(|t| clock.read(t)) {
-                    Ok(t) => t,
-                    Err(r) => {
-                        rejects.push(r);
-                        return;
-                    }
-                };
-                for &(col, tag) in cols.iter() {
-                    let raw = match text(col) {
-                        Ok(t) => t.trim(),
-                        Err(r) => {
-                            rejects.push(r);
-                            continue;
-                        }
-                    };
-                    if raw.is_empty() {
-                        continue;
-                    }
-                    match raw.parse::<f64>() {
-                        Ok(v) if v.is_finite() => out(Sample { tag, t_ms, value: v, quality: Quality::Good }),
-                        _ => rejects.push(Reject::NonNumeric {
-                            column: self.tag_names[tag].clone(),
-                            text: raw.chars().take(40).collect(),
-                        }),
-                    }
-                }
+                let (ts, width) = (*ts, *width);
+                wide_record(
+                    clock,
+                    ts_column,
+                    &self.tag_names,
+                    (ts, cols, width),
+                    n_fields,
+                    &text,
+                    out,
+                    rejects,
+                );
             }
             Plan::Long { ts, tag, value, quality, width } => {
                 if n_fields < *width {
@@ -351,13 +426,21 @@ impl RowParser {
                         return;
                     }
                 };
+                if name.is_empty() {
+                    let column = match &self.layout {
+                        Layout::Long { tag, .. } => tag.clone(),
+                        Layout::Wide => String::new(),
+                    };
+                    rejects.push(Reject::EmptyField { column, more: 0 });
+                    return;
+                }
                 let Some(&tag_idx) = self.tags.get(name) else {
                     if self.reject_unknown {
                         rejects.push(Reject::UnknownTag(name.chars().take(60).collect()));
                     }
                     return;
                 };
-                let t_ms = match text(*ts).and_then(|t| clock.read(t)) {
+                let t_ms = match text(*ts).and_then(|t| clock.read_field(t, ts_column)) {
                     Ok(t) => t,
                     Err(r) => {
                         rejects.push(r);
@@ -389,6 +472,10 @@ impl RowParser {
                     out(Sample { tag: tag_idx, t_ms, value: f64::NAN, quality: Quality::Bad });
                     return;
                 }
+                if raw.is_empty() {
+                    rejects.push(Reject::EmptyField { column: name.to_string(), more: 0 });
+                    return;
+                }
                 match raw.parse::<f64>() {
                     Ok(v) if v.is_finite() => out(Sample { tag: tag_idx, t_ms, value: v, quality: q }),
                     _ => rejects.push(Reject::NonNumeric {
@@ -401,6 +488,56 @@ impl RowParser {
     }
 }
 
+/// One record of a wide file: a sample per mapped column, empty cells counted once per row.
+#[allow(clippy::too_many_arguments)]
+fn wide_record<'a>(
+    clock: &mut Clock,
+    ts_column: &str,
+    tag_names: &[String],
+    (ts, cols, width): (usize, &[(usize, usize)], usize),
+    n_fields: usize,
+    text: &dyn Fn(usize) -> Result<&'a str, Reject>,
+    out: &mut dyn FnMut(Sample),
+    rejects: &mut Vec<Reject>,
+) {
+    if n_fields <= ts || n_fields < width {
+        rejects.push(Reject::ShortRow { found: n_fields, expected: width });
+        return;
+    }
+    let t_ms = match text(ts).and_then(|t| clock.read_field(t, ts_column)) {
+        Ok(t) => t,
+        Err(r) => {
+            rejects.push(r);
+            return;
+        }
+    };
+    let mut empty: Option<(usize, usize)> = None;
+    for &(col, tag) in cols.iter() {
+        let raw = match text(col) {
+            Ok(t) => t.trim(),
+            Err(r) => {
+                rejects.push(r);
+                continue;
+            }
+        };
+        if raw.is_empty() {
+            // Counted once per row, naming the first empty column.
+            empty = Some(empty.map_or((tag, 0), |(first, more)| (first, more + 1)));
+            continue;
+        }
+        match raw.parse::<f64>() {
+            Ok(v) if v.is_finite() => out(Sample { tag, t_ms, value: v, quality: Quality::Good }),
+            _ => rejects.push(Reject::NonNumeric {
+                column: tag_names[tag].clone(),
+                text: raw.chars().take(40).collect(),
+            }),
+        }
+    }
+    if let Some((first, more)) = empty {
+        rejects.push(Reject::EmptyField { column: tag_names[first].clone(), more });
+    }
+}
+
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
 mod tests {
@@ -410,6 +547,7 @@ mod tests {
         InputConfig {
             directory: ".".into(),
             pattern: "*.csv".into(),
+            exclude: Vec::new(),
             layout,
             timestamp_column: "time".into(),
             timestamp_format: format,
@@ -525,5 +663,87 @@ mod tests {
         // Source: IANA tz database, Europe/London: BST ends at 02:00 BST = 01:00 GMT on
         // 2026-10-25, so the second 01:30 is 01:30 UTC.
         assert_eq!(got, "2026-10-25T01:30:00Z".parse::<Timestamp>().unwrap().as_millisecond());
+    }
+
+    fn strings(v: &[&str]) -> Vec<String> {
+        v.iter().map(|s| s.to_string()).collect()
+    }
+
+    /// Header names match trimmed and in any case: the default `tag`/`value` columns of a long
+    /// export that writes `Tag`, `VALUE`, and the timestamp column in another case.
+    #[test]
+    fn header_names_match_in_any_case_and_trimmed() {
+        let tags = strings(&["FI-1"]);
+        let layout =
+            Layout::Long { tag: "tag".into(), value: "value".into(), quality: Some("quality".into()) };
+        let mut p = RowParser::new(&input(layout, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let info = p.header(1, &strings(&[" TIME ", "Tag", "VALUE", "Quality "]));
+        assert!(matches!(info, HeaderInfo::Mapped { .. }), "{info:?}");
+        let (s, r) = parse(&mut p, 1, "2026-12-01T10:00:00Z,FI-1,3.5,good");
+        assert!(r.is_empty(), "{r:?}");
+        assert_eq!(s.len(), 1);
+        // Wide: tag columns in another case are the unit's tags.
+        let tags = strings(&["FI-1", "TI-2"]);
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let info = p.header(2, &strings(&["Time", "fi-1", " ti-2 "]));
+        assert_eq!(info, HeaderInfo::Mapped { missing_tags: vec![], ignored_columns: 0 });
+        // Two columns that differ only in case from the name are ambiguous.
+        let info = p.header(3, &strings(&["TIME", "Time", "FI-1"]));
+        assert_eq!(info, HeaderInfo::Unusable(Reject::DuplicateColumn("time".into())));
+    }
+
+    /// A long export matched by a wide unit (and the reverse) is refused as a whole, with a
+    /// reason that names the layout it looks like.
+    #[test]
+    fn a_header_of_the_other_layout_makes_the_file_unusable() {
+        let tags = strings(&["FI-1", "TI-2"]);
+        let mut wide = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let HeaderInfo::Unusable(r) = wide.header(1, &strings(&["time", "tag", "value", "quality"])) else {
+            panic!("a long header was accepted by a wide unit");
+        };
+        assert_eq!(r.code(), "wrong_layout");
+        assert!(r.to_string().contains("looks like a `long` export"), "{r}");
+        let (s, rj) = parse(&mut wide, 1, "2026-12-01T10:00:00Z,FI-1,3.5,good");
+        assert!(s.is_empty());
+        assert_eq!(rj, vec![r]);
+        // Without the timestamp column as well.
+        let HeaderInfo::Unusable(r) = wide.header(2, &strings(&["Timestamp", "Tag", "Value"])) else {
+            panic!()
+        };
+        assert!(r.to_string().contains("no column `time`") && r.to_string().contains("`long`"), "{r}");
+        // A wide header naming none of the unit's tags is not used either.
+        let HeaderInfo::Unusable(r) = wide.header(3, &strings(&["time", "XX-1"])) else { panic!() };
+        assert_eq!(r.code(), "wrong_layout");
+        let layout = Layout::Long { tag: "tag".into(), value: "value".into(), quality: None };
+        let mut long = RowParser::new(&input(layout, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let HeaderInfo::Unusable(r) = long.header(1, &strings(&["time", "FI-1", "TI-2"])) else { panic!() };
+        assert!(r.to_string().contains("`long` layout (no column `tag`)"), "{r}");
+        assert!(r.to_string().contains("looks like a `wide` export"), "{r}");
+        // A long header that merely lacks its value column is a missing column.
+        let HeaderInfo::Unusable(r) = long.header(2, &strings(&["time", "tag", "val"])) else { panic!() };
+        assert_eq!(r, Reject::MissingColumn("value".into()));
+    }
+
+    /// Empty fields are counted (once per row, naming the first) and the rest of the row used.
+    #[test]
+    fn empty_fields_are_reported() {
+        let tags = strings(&["FI-1", "TI-2", "AI-3"]);
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        p.header(1, &strings(&["time", "FI-1", "TI-2", "AI-3"]));
+        let (s, r) = parse(&mut p, 1, "2026-12-01T10:00:00Z,1.5,,");
+        assert_eq!(s.len(), 1);
+        assert_eq!(r, vec![Reject::EmptyField { column: "TI-2".into(), more: 1 }]);
+        assert_eq!(r[0].code(), "empty_field");
+        assert!(r[0].to_string().contains("`TI-2` and 1 more"), "{}", r[0]);
+        let (s, r) = parse(&mut p, 1, " ,1,2,3");
+        assert!(s.is_empty());
+        assert_eq!(r, vec![Reject::EmptyField { column: "time".into(), more: 0 }]);
+        let layout = Layout::Long { tag: "tag".into(), value: "value".into(), quality: None };
+        let mut p = RowParser::new(&input(layout, TimestampFormat::Rfc3339, "UTC"), &tags);
+        p.header(2, &strings(&["time", "tag", "value"]));
+        let (_, r) = parse(&mut p, 2, "2026-12-01T10:00:00Z,FI-1,");
+        assert_eq!(r, vec![Reject::EmptyField { column: "FI-1".into(), more: 0 }]);
+        let (_, r) = parse(&mut p, 2, "2026-12-01T10:00:00Z,,1");
+        assert_eq!(r, vec![Reject::EmptyField { column: "tag".into(), more: 0 }]);
     }
 }

@@ -49,6 +49,8 @@ pub struct InputConfig {
     pub directory: PathBuf,
     /// File-name pattern.
     pub pattern: String,
+    /// File-name patterns of files not to read although `pattern` matches them.
+    pub exclude: Vec<String>,
     /// Row layout.
     pub layout: Layout,
     /// Timestamp column.
@@ -61,4 +63,11 @@ pub struct InputConfig {
     pub reject_unknown_tags: bool,
     /// Follow symbolic links out of the export directory.
     pub links_outside: bool,
+}
+
+impl InputConfig {
+    /// Whether the file called `name` is one of this input's export files.
+    pub fn selects(&self, name: &str) -> bool {
+        crate::ingest::glob::selects(&self.pattern, &self.exclude, name)
+    }
 }

@@ -35,19 +35,22 @@ pub struct Counters {
     pub bytes: u64,
 }
 
-/// The ingest counters by local day: records go to the day of the newest data (none before any
-/// data was seen), intervals to the day they end in.
+/// The ingest counters by local day: records go to the day of the newest data, intervals to
+/// the day they end in. What is counted before any data time is known (a file refused at its
+/// header, rows with unreadable timestamps) goes to the first day data arrive.
 #[derive(Debug, Clone, Default)]
 pub struct Tally {
     /// Counters by local date (`YYYY-MM-DD`).
     pub days: BTreeMap<String, IngestDay>,
+    /// Counted before any data time was known.
+    pending: IngestDay,
     cache: DayCache,
 }
 
 impl Tally {
     /// Resume from saved counters.
     pub fn new(days: BTreeMap<String, IngestDay>) -> Tally {
-        Tally { days, cache: DayCache::default() }
+        Tally { days, pending: IngestDay::default(), cache: DayCache::default() }
     }
 
     fn day_at(&mut self, t_ms: i64, tz: &TimeZone) -> &mut IngestDay {
@@ -55,13 +58,29 @@ impl Tally {
         if !self.days.contains_key(day) {
             self.days.insert(day.to_owned(), IngestDay::default());
         }
-        self.days.get_mut(day).expect("inserted above")
+        let d = self.days.get_mut(day).expect("inserted above");
+        if self.pending != IngestDay::default() {
+            let p = std::mem::take(&mut self.pending);
+            d.records += p.records;
+            d.late += p.late;
+            for (k, v) in p.rejected {
+                *d.rejected.entry(k).or_default() += v;
+            }
+        }
+        d
+    }
+
+    /// The day of the newest data, or the counters waiting for one.
+    fn day_or_pending(&mut self, newest: Option<i64>, tz: &TimeZone) -> &mut IngestDay {
+        match newest {
+            Some(t) => self.day_at(t, tz),
+            None => &mut self.pending,
+        }
     }
 
     /// A record read, with its late samples and rejections; `newest` is the newest data time.
     pub fn record(&mut self, newest: Option<i64>, tz: &TimeZone, late: u64, rejects: &[Reject]) {
-        let Some(t) = newest else { return };
-        let d = self.day_at(t, tz);
+        let d = self.day_or_pending(newest, tz);
         d.records += 1;
         d.late += late;
         for r in rejects {
@@ -69,10 +88,14 @@ impl Tally {
         }
     }
 
+    /// `n` samples not used for reason `code` (duplicates).
+    pub fn count(&mut self, newest: Option<i64>, tz: &TimeZone, code: &str, n: u64) {
+        *self.day_or_pending(newest, tz).rejected.entry(code.to_string()).or_default() += n;
+    }
+
     /// A record the tailer rejected.
     pub fn rejected(&mut self, newest: Option<i64>, tz: &TimeZone, code: &str) {
-        let Some(t) = newest else { return };
-        *self.day_at(t, tz).rejected.entry(code.to_string()).or_default() += 1;
+        *self.day_or_pending(newest, tz).rejected.entry(code.to_string()).or_default() += 1;
     }
 
     /// An interval closed (and whether its prediction was computed).
@@ -123,4 +146,6 @@ pub struct UnitSnapshot {
     pub monitor_state: String,
     /// Bytes read from export files.
     pub bytes: u64,
+    /// Why the export directory could not be read at the last pass (the unit is blind).
+    pub input_problem: Option<String>,
 }

@@ -151,7 +151,7 @@ mod tests {
     #[test]
     fn what_is_written_is_what_is_read() {
         let s = UnitState::default();
-        let a = Assembler::new(60_000, 180_000, Vec::new());
+        let a = Assembler::new(60_000, 180_000, 60_000, Vec::new());
         let m = Monitor::new(&crate::core::monitor::settings::MonitorConfig::default(), 60_000);
         let r = UnitStateRef {
             tail: s.tail.clone(),

@@ -17,6 +17,7 @@ use crate::core::flags::{Flag, FlagNames};
 use crate::core::model::Evaluation;
 use crate::core::{Note, UnitCore};
 use crate::ingest::reader::{ExportReader, Read};
+use crate::ingest::repeat::{RepeatLog, warn_summary};
 use crate::ingest::tail::TailOptions;
 use crate::sinks::alert_log::AlertWriter;
 use crate::sinks::report::ReportUnit;
@@ -25,6 +26,9 @@ use crate::sinks::softtags::{SoftTagWriter, info_columns};
 use crate::sinks::syslog::Forwarder;
 use crate::sinks::syslog::SyslogSink;
 use crate::sinks::{Sinks, ingest_counts};
+
+/// The reason code under which duplicate samples (same tag and time) are counted.
+const DUPLICATE: &str = "duplicate";
 
 /// One unit's runtime.
 pub struct UnitRuntime {
@@ -45,6 +49,8 @@ pub struct UnitRuntime {
     pub new_events: Vec<AlertEvent>,
     /// Shift reports written in the last pass: (path, text summary).
     pub new_reports: Vec<(PathBuf, String)>,
+    /// Late and duplicate samples, logged once per file and reason, then summed up per pass.
+    repeats: RepeatLog,
     /// Monotonic time of the last accepted sample.
     last_data_mono: Option<u64>,
     /// Whether a pass has run since this runtime was created.
@@ -64,35 +70,81 @@ struct Downstream<'a> {
     last: &'a mut Option<Evaluation>,
     new_events: &'a mut Vec<AlertEvent>,
     new_reports: &'a mut Vec<(PathBuf, String)>,
+    repeats: &'a mut RepeatLog,
     got_data: bool,
     error: Option<io::Error>,
 }
 
 impl Downstream<'_> {
     /// A record from the reader: its samples into the assembler, intervals closed when ready.
+    /// Late and duplicate samples are counted exactly (late apart, duplicates as a rejection
+    /// reason) and logged with file and line, once per file and reason and then summed up.
     fn read(&mut self, read: Read<'_>) {
         let spec = self.core.spec();
         match read {
-            Read::Record { file, line, samples, rejects } => {
+            Read::Record { file, id, line, samples, rejects } => {
                 self.counters.records += 1;
-                let mut late = 0;
+                let (mut late, mut dup, mut conflicting) = (Vec::new(), Vec::new(), 0u64);
                 for s in samples {
                     match self.assembler.add(s) {
                         Added::Accepted => {
                             self.counters.samples += 1;
                             self.got_data = true;
                         }
-                        Added::Late => {
-                            self.counters.late += 1;
-                            late += 1;
-                            warn!(unit = %spec.name, file = %file.display(), line, tag = %spec.tags[s.tag].name, "late sample for an interval already closed: counted, not used");
+                        Added::Late => late.push(s.tag),
+                        Added::Duplicate { conflicting: c } => {
+                            dup.push(s.tag);
+                            conflicting += u64::from(c);
                         }
                     }
                 }
+                self.counters.late += late.len() as u64;
+                self.counters.conflicting_duplicates += conflicting;
                 for r in rejects {
                     *self.counters.rejected.entry(r.code()).or_default() += 1;
                 }
-                self.tally.record(self.assembler.max_event(), &spec.time_zone, late, rejects);
+                let newest = self.assembler.max_event();
+                self.tally.record(newest, &spec.time_zone, late.len() as u64, rejects);
+                if !dup.is_empty() {
+                    *self.counters.rejected.entry(DUPLICATE).or_default() += dup.len() as u64;
+                    self.tally.count(newest, &spec.time_zone, DUPLICATE, dup.len() as u64);
+                }
+                let names = |tags: &[usize]| {
+                    let mut v: Vec<&str> = tags.iter().take(3).map(|&t| spec.tags[t].name.as_str()).collect();
+                    if tags.len() > 3 {
+                        v.push("...");
+                    }
+                    v.join(", ")
+                };
+                if !late.is_empty() {
+                    let text = || {
+                        format!(
+                            "late: {} sample(s) ({}) for an interval already closed (more than the reorder window out of order): counted, not used",
+                            late.len(),
+                            names(&late)
+                        )
+                    };
+                    if self.repeats.first(id, file, "late", line, text) {
+                        warn!(unit = %spec.name, file = %file.display(), line, reason = "late", "{}", text());
+                    }
+                }
+                if !dup.is_empty() {
+                    let text = || {
+                        format!(
+                            "duplicate: {} sample(s) ({}) with a tag and time already read{}: the first value is kept",
+                            dup.len(),
+                            names(&dup),
+                            if conflicting > 0 {
+                                format!(", {conflicting} with a different value")
+                            } else {
+                                String::new()
+                            }
+                        )
+                    };
+                    if self.repeats.first(id, file, DUPLICATE, line, text) {
+                        warn!(unit = %spec.name, file = %file.display(), line, reason = DUPLICATE, "{}", text());
+                    }
+                }
                 if self.assembler.ready(false) {
                     self.close(false);
                 }
@@ -116,6 +168,7 @@ impl Downstream<'_> {
     }
 
     fn interval(&mut self, closed: &Closed) -> io::Result<()> {
+        // Duplicates are normally reported by `Assembler::add`; these are strays found at close.
         self.counters.conflicting_duplicates += u64::from(closed.conflicting_duplicates);
         let o = self.core.step(closed);
         let spec = self.core.spec();
@@ -161,6 +214,7 @@ impl UnitRuntime {
         let spec = Arc::new(cfg.spec.clone());
         let options = TailOptions {
             pattern: cfg.input.pattern.clone(),
+            exclude: cfg.input.exclude.clone(),
             max_record_bytes: service.max_record_bytes,
             seal_after_ms: service.seal_after_ms,
             links_outside: cfg.input.links_outside,
@@ -170,8 +224,8 @@ impl UnitRuntime {
         let reader = ExportReader::new(&spec.name, &cfg.input, options, &names, Some(saved.tail));
         let rules = TagRule::of(&spec);
         let assembler = match saved.assembler {
-            Some(a) => Assembler::restore(a, spec.interval_ms, spec.max_wait_ms, rules),
-            None => Assembler::new(spec.interval_ms, spec.max_wait_ms, rules),
+            Some(a) => Assembler::restore(a, spec.interval_ms, spec.max_wait_ms, spec.reorder_ms, rules),
+            None => Assembler::new(spec.interval_ms, spec.max_wait_ms, spec.reorder_ms, rules),
         };
         let dir = out.dir.join(&spec.name);
         let (tz, unit) = (spec.time_zone.clone(), spec.temperature_unit());
@@ -201,6 +255,7 @@ impl UnitRuntime {
             last: None,
             new_events: Vec::new(),
             new_reports: Vec::new(),
+            repeats: RepeatLog::default(),
             last_data_mono: None,
             started: false,
             retention: service.retention,
@@ -232,10 +287,14 @@ impl UnitRuntime {
             last: &mut self.last,
             new_events: &mut self.new_events,
             new_reports: &mut self.new_reports,
+            repeats: &mut self.repeats,
             got_data: false,
             error: None,
         };
         let stats = self.reader.poll(now_mono, &mut |read| down.read(read));
+        for s in down.repeats.take() {
+            warn_summary(&down.core.spec().name, &s);
+        }
         down.counters.bytes += stats.bytes_read;
         if down.got_data {
             self.last_data_mono = Some(now_mono);
@@ -287,6 +346,11 @@ impl UnitRuntime {
         }
     }
 
+    /// Why the unit's export directory could not be read at the last pass (`None`: it could).
+    pub fn input_problem(&self) -> Option<&str> {
+        self.reader.unavailable()
+    }
+
     /// The unit's figures for `/metrics`.
     pub(super) fn snapshot(&self) -> UnitSnapshot {
         let mut active: BTreeMap<String, u64> = BTreeMap::new();
@@ -307,6 +371,7 @@ impl UnitRuntime {
             last_data_ms: self.assembler.max_event(),
             monitor_state: self.core.monitor().state.as_str().to_string(),
             bytes: c.bytes,
+            input_problem: self.reader.unavailable().map(|w| format!("unit {}: {w}", self.cfg.spec.name)),
         }
     }
 

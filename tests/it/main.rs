@@ -11,6 +11,7 @@ mod docs;
 mod forward;
 mod handbook;
 mod hostile;
+mod ingest;
 mod layout;
 mod monitor;
 mod physics;

@@ -413,6 +413,7 @@ impl World {
 fn options(chunk: usize, fp: usize, marker: usize) -> TailOptions {
     TailOptions {
         pattern: "plant_*.csv".into(),
+        exclude: Vec::new(),
         max_record_bytes: 4096,
         fingerprint_bytes: fp,
         marker_bytes: marker,

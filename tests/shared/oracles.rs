@@ -61,6 +61,7 @@ pub fn input_config(
     InputConfig {
         directory: ".".into(),
         pattern: "*.csv".into(),
+        exclude: Vec::new(),
         layout,
         timestamp_column: "Timestamp".into(),
         timestamp_format: format,

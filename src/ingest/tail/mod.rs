@@ -73,6 +73,9 @@ pub struct TailOptions {
     /// Glob on the file *name* (not the path): `*` matches any run of characters, `?` one
     /// character, everything else itself. Temporary files of atomic writers must not match.
     pub pattern: String,
+    /// Names matching one of these globs are not read although `pattern` matches them (a
+    /// second export stream in the same directory, e.g. a long-layout file beside wide ones).
+    pub exclude: Vec<String>,
     /// Largest raw record, terminator included; longer ones are rejected and skipped. Bounds the
     /// memory a broken file (an unclosed quote) can take.
     pub max_record_bytes: usize,
@@ -98,6 +101,7 @@ impl Default for TailOptions {
     fn default() -> Self {
         TailOptions {
             pattern: "*.csv".to_owned(),
+            exclude: Vec::new(),
             max_record_bytes: 1 << 20,
             fingerprint_bytes: 1024,
             marker_bytes: 64,
@@ -124,6 +128,9 @@ fn last_bytes(a: &[u8], b: &[u8], n: usize) -> Vec<u8> {
 struct Tracked {
     cp: FileCheckpoint,
     path: PathBuf,
+    /// The name the file has now when it was renamed out of the pattern (it is still read
+    /// through its handle): what events show, while `path` stays the matching hint.
+    shown: Option<PathBuf>,
     /// Header fields (empty while the header is pending).
     fields: Vec<String>,
     handle: Option<File>,
@@ -153,6 +160,7 @@ impl Tracked {
     fn from_checkpoint(cp: FileCheckpoint, dir: &Path) -> Tracked {
         Tracked {
             path: dir.join(&cp.name),
+            shown: None,
             read_end: cp.resume.offset,
             cp,
             fields: Vec::new(),
@@ -171,7 +179,7 @@ impl Tracked {
     }
 
     fn file_ref(&self) -> FileRef<'_> {
-        FileRef { path: &self.path, id: self.cp.id }
+        FileRef { path: self.shown.as_deref().unwrap_or(&self.path), id: self.cp.id }
     }
 
     /// Start reading `file` at the checkpoint, with the bytes a content check read.
@@ -248,6 +256,7 @@ struct Opened {
 
 /// Per-poll context: options, the read buffer, the sink, the directory's header and counters.
 struct Ctx<'s> {
+    dir: &'s Path,
     opts: &'s TailOptions,
     buf: &'s mut Vec<u8>,
     sink: &'s mut dyn for<'a> FnMut(TailEvent<'a>),
@@ -364,8 +373,8 @@ impl Tailer {
     pub fn poll(&mut self, now_ms: u64, sink: &mut dyn FnMut(TailEvent<'_>)) -> Result<PollStats, TailError> {
         let (mut entries, refused) = self.list()?;
         self.refused = refused;
-        let Tailer { dir: _, opts, next_id, last_header, tracked, twins, buf, refused } = self;
-        let mut cx = Ctx { opts, buf, sink, last_header, stats: PollStats::default(), now: now_ms };
+        let Tailer { dir, opts, next_id, last_header, tracked, twins, buf, refused } = self;
+        let mut cx = Ctx { dir, opts, buf, sink, last_header, stats: PollStats::default(), now: now_ms };
         for t in tracked.iter_mut() {
             t.present = false;
             t.detached = false;
@@ -399,7 +408,7 @@ impl Tailer {
         for de in fs::read_dir(&self.dir).map_err(err)? {
             let de = de.map_err(err)?;
             let name = de.file_name().to_string_lossy().into_owned();
-            if !crate::ingest::glob::name_matches(&self.opts.pattern, &name) {
+            if !crate::ingest::glob::selects(&self.opts.pattern, &self.opts.exclude, &name) {
                 continue;
             }
             let path = de.path();
@@ -481,14 +490,21 @@ fn phase_handles(tracked: &mut [Tracked], entries: &mut [Entry], cx: &mut Ctx<'_
         if let Some(i) = idx {
             entries[i].claimed = true;
             t.present = true;
-            if entries[i].path != t.path {
-                let from = std::mem::replace(&mut t.path, entries[i].path.clone());
+            let shown = t.shown.take();
+            if entries[i].path != t.path || shown.is_some() {
+                let from = shown.unwrap_or_else(|| t.path.clone());
+                t.path = entries[i].path.clone();
                 t.cp.name = entries[i].name.clone();
                 cx.notice(t, Notice::Renamed { from });
             }
         }
         if !t.stale && m.size == t.cp.size && m.mtime_ns == t.cp.mtime_ns && m.id == t.cp.file_id {
             continue;
+        }
+        if idx.is_none() {
+            // Renamed out of the pattern (or away): rows still read from it are shown under
+            // the name it has now.
+            locate(t, cx);
         }
         match refresh(t, m, cx) {
             Ok(true) => {}
@@ -508,6 +524,46 @@ fn phase_handles(tracked: &mut [Tracked], entries: &mut [Entry], cx: &mut Ctx<'_
             }
         }
     }
+}
+
+/// Find the name a tracked file that left the listing has now, and show its rows under it
+/// (with a [`Notice::Renamed`] when it changes). A deleted file keeps its last name.
+fn locate(t: &mut Tracked, cx: &mut Ctx<'_>) {
+    let Some(file) = t.handle.as_ref() else { return };
+    let Some(now) = current_path(file, cx.dir, t.cp.file_id) else { return };
+    let shown = t.shown.as_deref().unwrap_or(&t.path);
+    if now != shown {
+        let from = shown.to_path_buf();
+        t.shown = Some(now);
+        cx.notice(t, Notice::Renamed { from });
+    }
+}
+
+/// The path of an open file: on Linux from `/proc/self/fd`, elsewhere by looking for its file
+/// id among the directory's entries. `None` when it was deleted or cannot be found.
+fn current_path(file: &File, dir: &Path, id: Option<FileId>) -> Option<PathBuf> {
+    #[cfg(target_os = "linux")]
+    {
+        use std::os::fd::AsRawFd;
+        if let Ok(p) = fs::read_link(format!("/proc/self/fd/{}", file.as_raw_fd())) {
+            if p.to_string_lossy().ends_with(" (deleted)") {
+                return None;
+            }
+            // Still in the directory: under the directory as configured.
+            let inside = p.parent().is_some_and(|d| fs::canonicalize(dir).is_ok_and(|c| c == d));
+            return Some(match p.file_name() {
+                Some(name) if inside => dir.join(name),
+                _ => p,
+            });
+        }
+    }
+    let _ = file;
+    let id = id?;
+    fs::read_dir(dir)
+        .ok()?
+        .flatten()
+        .map(|de| de.path())
+        .find(|p| fs::metadata(p).ok().and_then(|m| Meta::of(&m).id) == Some(id))
 }
 
 /// Validate a generation against its own (changed) file and read it. `Ok(false)`: the file
@@ -618,6 +674,7 @@ fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
     let Tracked {
         cp,
         path,
+        shown,
         fields,
         handle,
         split,
@@ -630,7 +687,7 @@ fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
         ..
     } = t;
     let (Some(file), Some(split)) = (handle.as_ref(), split.as_mut()) else { return Ok(()) };
-    let file_ref = FileRef { path: path.as_path(), id: cp.id };
+    let file_ref = FileRef { path: shown.as_deref().unwrap_or(path.as_path()), id: cp.id };
     let fields: &[String] = fields;
     let m = cx.opts.marker_bytes;
     let fp_end = cp.data_start + cx.opts.fingerprint_bytes as u64;
@@ -842,7 +899,8 @@ fn seek(t: &Tracked, entries: &mut [Entry], cx: &mut Ctx<'_>) -> Option<(usize, 
 fn take_over(t: &mut Tracked, e: &mut Entry, proof: Option<Proof>, cx: &mut Ctx<'_>) -> io::Result<()> {
     e.claimed = true;
     t.present = true;
-    let old_path = std::mem::replace(&mut t.path, e.path.clone());
+    let old_path = t.shown.take().unwrap_or_else(|| t.path.clone());
+    t.path = e.path.clone();
     t.cp.name = e.name.clone();
     let Some(o) = e.opened.take() else {
         // Fast path: an unchanged sealed file.
@@ -974,6 +1032,9 @@ fn phase_seal(tracked: &mut Vec<Tracked>, cx: &mut Ctx<'_>) {
         if t.handle.is_none() || !quiet || (t.present && t.cp.id >= newest_present) {
             i += 1;
             continue;
+        }
+        if !t.present {
+            locate(t, cx);
         }
         let fragment = seal(t, cx);
         if t.present {

@@ -27,6 +27,7 @@ fn rows(r: std::ops::Range<u32>) -> String {
 fn opts() -> TailOptions {
     TailOptions {
         pattern: "plant_*.csv".into(),
+        exclude: Vec::new(),
         max_record_bytes: 256,
         fingerprint_bytes: 100,
         marker_bytes: 16,
@@ -594,6 +595,44 @@ fn file_renamed_out_of_the_pattern_is_read_to_its_end_then_closed() {
     let evs = fx.poll_after(1000);
     assert_eq!(notes(&evs), vec!["1:Ended(Removed,0)"]);
     assert_eq!(fx.tailer.state().files.len(), 0);
+}
+
+/// Rows (and rejections) of a file renamed out of the pattern while it is still being read are
+/// reported under the name it has now, not under its old name (which a new file may have).
+#[test]
+fn a_file_renamed_out_of_the_pattern_is_reported_under_its_new_name() {
+    let mut fx = Fixture::new();
+    fx.write("plant_x.csv", &format!("{HEADER}{}", rows(0..1)));
+    assert_eq!(recs(&fx.poll()), want(1, 0..1));
+    fx.rename("plant_x.csv", "plant_x.csv.1");
+    fx.append("plant_x.csv.1", &format!("{}\n{}", "x".repeat(300), row(1)));
+    fx.append("plant_x.csv.1", "2026-12-01T00:00:02Z,FI-2011,unterminated");
+    fx.write("plant_x.csv", HEADER);
+    let mut seen: Vec<(u64, String, PathBuf)> = Vec::new();
+    let mut collect = |fx: &mut Fixture, advance: u64| {
+        fx.now += advance;
+        fx.tailer
+            .poll(fx.now, &mut |e| {
+                let (file, what) = match &e {
+                    TailEvent::Record { file, .. } => (file, "record".to_string()),
+                    TailEvent::Rejected { file, reason, .. } => (file, format!("{reason:?}")),
+                    TailEvent::Notice { file, notice } => (file, short(notice)),
+                    TailEvent::Header { file, .. } => (file, "header".to_string()),
+                };
+                seen.push((file.id, what, file.path.to_path_buf()));
+            })
+            .unwrap();
+    };
+    collect(&mut fx, 10);
+    collect(&mut fx, 1000);
+    let of_first: Vec<&(u64, String, PathBuf)> = seen.iter().filter(|(id, _, _)| *id == 1).collect();
+    assert!(of_first.iter().any(|(_, w, _)| w.starts_with("TooLong")), "{seen:?}");
+    assert!(of_first.iter().any(|(_, w, _)| w == "record"), "{seen:?}");
+    assert!(of_first.iter().any(|(_, w, _)| w.starts_with("Unterminated")), "{seen:?}");
+    for (_, what, path) in of_first.iter().filter(|(_, w, _)| w != "Renamed") {
+        assert!(path.ends_with("plant_x.csv.1"), "{what} reported under {}", path.display());
+    }
+    assert!(of_first.iter().any(|(_, w, p)| w == "Renamed" && p.ends_with("plant_x.csv.1")), "{seen:?}");
 }
 
 #[test]
