@@ -275,8 +275,13 @@ pub fn demo(
 /// How the user can call this binary again: `efftemp` when that name on the PATH is this very
 /// binary (after `cargo install`), else its full path (e.g. under `cargo run`).
 fn own_command() -> String {
-    let me = std::env::current_exe().ok().and_then(|p| std::fs::canonicalize(p).ok());
-    let on_path = std::env::var_os("PATH").and_then(|paths| {
+    own_command_in(std::env::current_exe().ok(), std::env::var_os("PATH"))
+}
+
+/// [`own_command`] for a given executable and PATH.
+fn own_command_in(exe: Option<PathBuf>, path: Option<std::ffi::OsString>) -> String {
+    let me = exe.and_then(|p| std::fs::canonicalize(p).ok());
+    let on_path = path.and_then(|paths| {
         std::env::split_paths(&paths)
             .map(|d| d.join("efftemp"))
             .find(|p| p.is_file())
@@ -542,5 +547,21 @@ mod tests {
         assert_eq!(layout_text(&Layout::Wide), "wide");
         let long = Layout::Long { tag: "tag".into(), value: "value".into(), quality: Some("q".into()) };
         assert_eq!(layout_text(&long), "long: columns tag, value, q");
+    }
+
+    /// The demo tells the user how to call the binary again: the bare name only when `efftemp`
+    /// on the PATH is this binary, else its full path (nothing put it on the PATH yet).
+    #[test]
+    fn the_demo_names_the_binary_as_the_user_can_call_it() {
+        let dir = tempfile::tempdir().unwrap();
+        let bin = dir.path().join("efftemp");
+        std::fs::write(&bin, "").unwrap();
+        let other = tempfile::tempdir().unwrap();
+        std::fs::write(other.path().join("efftemp"), "").unwrap();
+        let path = |d: &Path| Some(std::ffi::OsString::from(d));
+        assert_eq!(own_command_in(Some(bin.clone()), path(dir.path())), "efftemp");
+        let full = std::fs::canonicalize(&bin).unwrap().display().to_string();
+        assert_eq!(own_command_in(Some(bin.clone()), path(other.path())), full);
+        assert_eq!(own_command_in(Some(bin), None), full);
     }
 }
