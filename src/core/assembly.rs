@@ -63,7 +63,17 @@ pub enum Added {
         /// The values differ.
         conflicting: bool,
     },
+    /// Far ahead of the data's own time: held until more data confirm the jump (then used),
+    /// or until the data carry on at their old time (then counted as implausible).
+    Held,
 }
+
+/// The least jump ahead of the data's newest time that is held for confirmation, ms: a stray
+/// row dated months ahead must not close every interval up to it.
+const MIN_JUMP_MS: i64 = 15 * 60_000;
+/// Distinct sample times at the new time that confirm a jump (and that make the data's first
+/// times trustworthy).
+const CONFIRM_TIMES: u32 = 3;
 
 /// Status of a tag in a closed interval.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -153,6 +163,23 @@ pub struct Assembler {
     open_from: Option<i64>,
     /// Newest sample time of any tag.
     max_event: Option<i64>,
+    /// Samples far ahead of `max_event`, held until confirmed: (tag, time, value, quality).
+    #[serde(default)]
+    held: Vec<(usize, i64, f64, Quality)>,
+    /// Distinct times accepted since the data started or last jumped (up to CONFIRM_TIMES).
+    #[serde(default = "confirmed_times")]
+    epoch_times: u32,
+    /// Samples found implausible and not used, not yet taken by the caller.
+    #[serde(default)]
+    implausible: u64,
+    /// A long stretch without any data that was skipped (start, end), not yet taken.
+    #[serde(default)]
+    gap: Option<(i64, i64)>,
+}
+
+/// Checkpoints of earlier builds had trusted data.
+fn confirmed_times() -> u32 {
+    CONFIRM_TIMES
 }
 
 fn floor_to(t: i64, step: i64) -> i64 {
@@ -164,7 +191,40 @@ impl Assembler {
     pub fn new(interval_ms: i64, max_wait_ms: i64, reorder_ms: i64, rules: Vec<TagRule>) -> Assembler {
         let bufs = vec![TagBuf::default(); rules.len()];
         let reorder_ms = reorder_ms.max(0);
-        Assembler { interval_ms, max_wait_ms, reorder_ms, rules, bufs, open_from: None, max_event: None }
+        Assembler {
+            interval_ms,
+            max_wait_ms,
+            reorder_ms,
+            rules,
+            bufs,
+            open_from: None,
+            max_event: None,
+            held: Vec::new(),
+            epoch_times: 0,
+            implausible: 0,
+            gap: None,
+        }
+    }
+
+    /// How far ahead of the data's newest time a sample is held for confirmation, ms.
+    fn jump_ms(&self) -> i64 {
+        MIN_JUMP_MS.max(3 * self.max_wait_ms).max(15 * self.interval_ms)
+    }
+
+    /// Samples found implausible since the last call (counted, not used).
+    pub fn take_implausible(&mut self) -> u64 {
+        std::mem::take(&mut self.implausible)
+    }
+
+    /// A long stretch without data skipped since the last call: (from, to), ms.
+    pub fn take_gap(&mut self) -> Option<(i64, i64)> {
+        self.gap.take()
+    }
+
+    /// The end of the input (replay): held samples were never confirmed; they are implausible.
+    pub fn drop_held(&mut self) {
+        self.implausible += self.held.len() as u64;
+        self.held.clear();
     }
 
     /// Restore from a checkpoint with the current rules (tags must match by count; otherwise
@@ -204,6 +264,52 @@ impl Assembler {
 
     /// Add a sample.
     pub fn add(&mut self, s: &Sample) -> Added {
+        if let Some(max) = self.max_event
+            && s.t_ms > max + self.jump_ms()
+        {
+            return self.hold(s);
+        }
+        if !self.held.is_empty() {
+            // The data carry on at their old time: what was held was a stray.
+            let first_held = self.held.iter().map(|h| h.1).min().unwrap_or(i64::MAX);
+            if s.t_ms >= self.max_event.unwrap_or(s.t_ms) && s.t_ms < first_held {
+                self.drop_held();
+            }
+        }
+        self.accept(s)
+    }
+
+    /// Hold a sample far ahead; once the held samples span enough distinct times, take the
+    /// jump: the data now run at the new time.
+    fn hold(&mut self, s: &Sample) -> Added {
+        self.held.push((s.tag, s.t_ms, s.value, s.quality));
+        let mut times: Vec<i64> = self.held.iter().map(|h| h.1).collect();
+        times.sort_unstable();
+        times.dedup();
+        let spans = times.last().copied().unwrap_or(0) - times.first().copied().unwrap_or(0);
+        if (times.len() as u32) < CONFIRM_TIMES || spans < self.interval_ms {
+            return Added::Held;
+        }
+        // Confirmed. Data of an epoch that never had enough times of its own (a first row
+        // dated years back) are dropped as implausible rather than closed into intervals.
+        if self.epoch_times < CONFIRM_TIMES {
+            let n: usize = self.bufs.iter().map(|b| b.samples.len()).sum();
+            self.implausible += n as u64;
+            for b in &mut self.bufs {
+                *b = TagBuf::default();
+            }
+            self.open_from = None;
+        }
+        self.max_event = None;
+        self.epoch_times = 0;
+        for (tag, t_ms, value, quality) in std::mem::take(&mut self.held) {
+            self.accept(&Sample { tag, t_ms, value, quality });
+        }
+        Added::Accepted
+    }
+
+    /// Buffer a sample (not late, not a jump).
+    fn accept(&mut self, s: &Sample) -> Added {
         if let Some(open) = self.open_from
             && s.t_ms < open
         {
@@ -217,18 +323,22 @@ impl Assembler {
         }
         buf.samples.push((s.t_ms, s.value, s.quality));
         buf.latest = Some(buf.latest.map_or(s.t_ms, |l| l.max(s.t_ms)));
+        if self.max_event.is_none_or(|m| s.t_ms > m) && self.epoch_times < CONFIRM_TIMES {
+            self.epoch_times += 1;
+        }
         self.max_event = Some(self.max_event.map_or(s.t_ms, |m| m.max(s.t_ms)));
         Added::Accepted
     }
 
-    /// The earliest open interval, if there are samples.
+    /// The earliest open interval, if there are samples. A long stretch without any data
+    /// (the next sample at least the jump threshold past the open interval) is skipped in one
+    /// step, not closed as thousands of empty intervals.
     fn earliest(&self) -> Option<(i64, i64)> {
-        let start = match self.open_from {
-            Some(t) => t,
-            None => {
-                let min = self.bufs.iter().flat_map(|b| b.samples.iter().map(|s| s.0)).min()?;
-                floor_to(min, self.interval_ms)
-            }
+        let min = self.bufs.iter().flat_map(|b| b.samples.iter().map(|s| s.0)).min();
+        let start = match (self.open_from, min) {
+            (Some(t), Some(m)) if m >= t + self.interval_ms + self.jump_ms() => floor_to(m, self.interval_ms),
+            (Some(t), _) => t,
+            (None, m) => floor_to(m?, self.interval_ms),
         };
         Some((start, start + self.interval_ms))
     }
@@ -261,6 +371,15 @@ impl Assembler {
             return None;
         }
         let (start, end) = self.earliest()?;
+        if let Some(open) = self.open_from
+            && start > open
+        {
+            // A long stretch without any data, skipped in one step (see `earliest`).
+            self.gap = Some((open, start));
+            for b in &mut self.bufs {
+                b.carry = None;
+            }
+        }
         let mut conflicting = 0u32;
         let tags = self
             .rules
@@ -505,5 +624,77 @@ mod tests {
         let json = serde_json::to_string(&a).unwrap();
         let b = Assembler::restore(serde_json::from_str(&json).unwrap(), MIN, 5 * MIN, 0, rules);
         assert_eq!(a, b);
+    }
+
+    /// Feed a 10-s stream of one tag from minute `m0` to `m1` (exclusive); close what is ready
+    /// after each sample; return the ends of the intervals closed.
+    fn stream(a: &mut Assembler, m0: i64, m1: i64, closed: &mut Vec<i64>) {
+        for k in (m0 * 6)..(m1 * 6) {
+            a.add(&s(0, k * 10_000, 1.0));
+            while let Some(c) = a.close_next(false) {
+                closed.push(c.end_ms);
+            }
+        }
+    }
+
+    /// One row dated a year ahead in the middle of the stream is held, found a stray when the
+    /// data carry on at their own time, counted as implausible, and closes nothing: every
+    /// interval of the real data closes once, in order.
+    #[test]
+    fn a_row_dated_far_ahead_closes_nothing_and_is_counted() {
+        let mut a = Assembler::new(MIN, 3 * MIN, MIN, vec![rule(TagKind::Continuous, true)]);
+        let mut closed = Vec::new();
+        stream(&mut a, 0, 30, &mut closed);
+        assert_eq!(a.add(&s(0, 365 * 1_440 * MIN, 7.0)), Added::Held);
+        stream(&mut a, 30, 60, &mut closed);
+        assert_eq!(a.take_implausible(), 1);
+        while let Some(c) = a.close_next(true) {
+            closed.push(c.end_ms);
+        }
+        let want: Vec<i64> = (1..=60).map(|m| m * MIN).collect();
+        assert_eq!(closed, want);
+        assert_eq!(a.take_gap(), None);
+    }
+
+    /// The first row ever dated 26 years back, then the real data: once the real data confirm
+    /// their time, the lone old row is implausible; no interval of the old date is closed and
+    /// nothing is filled in between.
+    #[test]
+    fn a_first_row_dated_years_back_is_dropped_when_the_real_data_confirm_their_time() {
+        let mut a = Assembler::new(MIN, 3 * MIN, MIN, vec![rule(TagKind::Continuous, true)]);
+        let now = 1_796_083_200_000; // 2026-12-01
+        a.add(&s(0, 946_684_800_000, 1.0)); // 2000-01-01
+        let mut closed = Vec::new();
+        for k in 0..(20 * 6) {
+            a.add(&s(0, now + k * 10_000, 1.0));
+            while let Some(c) = a.close_next(false) {
+                closed.push(c.end_ms);
+            }
+        }
+        assert_eq!(a.take_implausible(), 1);
+        assert!(closed.iter().all(|e| *e > now), "an interval of 2000 was closed: {closed:?}");
+        assert_eq!(closed.first(), Some(&(now + MIN)));
+        assert!(closed.len() >= 17, "{}", closed.len());
+    }
+
+    /// A real outage of two days: the resumed data are held until they confirm their time,
+    /// then used; the silent stretch is skipped in one step (one gap), not closed as 2,880
+    /// empty intervals, and nothing is counted implausible.
+    #[test]
+    fn a_real_outage_is_one_skipped_gap_and_loses_nothing() {
+        let mut a = Assembler::new(MIN, 3 * MIN, MIN, vec![rule(TagKind::Continuous, true)]);
+        let mut closed = Vec::new();
+        stream(&mut a, 0, 10, &mut closed);
+        stream(&mut a, 2 * 1_440, 2 * 1_440 + 10, &mut closed);
+        while let Some(c) = a.close_next(true) {
+            closed.push(c.end_ms);
+        }
+        assert_eq!(a.take_implausible(), 0);
+        let gap = a.take_gap().expect("one skipped gap");
+        assert_eq!(gap, (10 * MIN, 2 * 1_440 * MIN));
+        let mut want: Vec<i64> = (1..=10).map(|m| m * MIN).collect();
+        want.extend((1..=10).map(|m| (2 * 1_440 + m) * MIN));
+        assert_eq!(closed, want);
+        assert!(!a.has_open());
     }
 }

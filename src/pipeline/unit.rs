@@ -29,6 +29,8 @@ use crate::sinks::{Sinks, ingest_counts};
 
 /// The reason code under which duplicate samples (same tag and time) are counted.
 const DUPLICATE: &str = "duplicate";
+/// The rejection reason of samples dated far from the data's own time and never confirmed.
+const IMPLAUSIBLE_TIME: &str = "implausible_time";
 
 /// One unit's runtime.
 pub struct UnitRuntime {
@@ -92,6 +94,7 @@ impl Downstream<'_> {
                             self.got_data = true;
                         }
                         Added::Late => late.push(s.tag),
+                        Added::Held => {}
                         Added::Duplicate { conflicting: c } => {
                             dup.push(s.tag);
                             conflicting += u64::from(c);
@@ -160,11 +163,40 @@ impl Downstream<'_> {
     fn close(&mut self, quiet: bool) {
         while self.error.is_none() {
             let Some(closed) = self.assembler.close_next(quiet) else { break };
+            if let Some((from, to)) = self.assembler.take_gap() {
+                let spec = self.core.spec();
+                info!(
+                    unit = %spec.name,
+                    from = %crate::core::calendar::rfc3339(from, &spec.time_zone),
+                    to = %crate::core::calendar::rfc3339(to, &spec.time_zone),
+                    intervals = (to - from) / spec.interval_ms.max(1),
+                    "no data in this stretch: skipped in one step"
+                );
+            }
             if let Err(e) = self.interval(&closed) {
                 self.error = Some(e);
             }
         }
+        self.implausible();
         self.tally.trim();
+    }
+
+    /// Count and log the samples the assembler found implausible (far from the data's own
+    /// time, never confirmed by more data).
+    fn implausible(&mut self) {
+        let n = self.assembler.take_implausible();
+        if n == 0 {
+            return;
+        }
+        let spec = self.core.spec();
+        *self.counters.rejected.entry(IMPLAUSIBLE_TIME).or_default() += n;
+        self.tally.count(self.assembler.max_event(), &spec.time_zone, IMPLAUSIBLE_TIME, n);
+        warn!(
+            unit = %spec.name,
+            samples = n,
+            reason = IMPLAUSIBLE_TIME,
+            "implausible time: {n} sample(s) dated far from the data's own time and never confirmed by more data: counted, not used"
+        );
     }
 
     fn interval(&mut self, closed: &Closed) -> io::Result<()> {
@@ -309,6 +341,9 @@ impl UnitRuntime {
         }
         let wait = u64::try_from(down.core.spec().max_wait_ms).unwrap_or(u64::MAX);
         let quiet = flush || self.last_data_mono.is_some_and(|t| now_mono.saturating_sub(t) >= wait);
+        if flush {
+            down.assembler.drop_held();
+        }
         down.close(quiet);
         if quiet {
             // Flushed: nothing more to do until new data arrive (no timer keeps firing).

@@ -399,6 +399,47 @@ async fn outputs_that_cannot_be_written_degrade_the_service_and_lose_nothing() {
     assert_eq!(live, replay(&plant, out.path()), "nothing lost, nothing repeated");
 }
 
+/// Wild timestamps in the export: a row dated a year ahead mid-file, and a first row dated
+/// 2000. Replay writes the same soft tags as without them (no interval up to the far date is
+/// closed, no file of 2000 or 2027 appears, nothing of the real data is late), and counts and
+/// logs the samples of the two rows as `implausible_time`.
+#[test]
+fn rows_dated_far_from_the_data_close_nothing_and_are_counted() {
+    let clean = TestPlant::new("");
+    clean.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
+    let out_clean = tempfile::tempdir().unwrap();
+    let want = replay(&clean, out_clean.path());
+
+    let plant = TestPlant::new("");
+    let mut text = String::from("2000-01-01T00:00:00Z,10,30,30,70\n");
+    text.push_str(&TestPlant::rows(0, 900));
+    text.push_str("2027-12-01T00:15:00Z,10,30,30,70\n");
+    text.push_str(&TestPlant::rows(900, 1800));
+    plant.append("plant_20261201.csv", &text);
+    let out = tempfile::tempdir().unwrap();
+    let res = cargo_bin_cmd!("efftemp")
+        .args(["replay", "--log-format", "json", "--log-level", "warn", "--config"])
+        .arg(&plant.config)
+        .arg("--output")
+        .arg(out.path())
+        .output()
+        .unwrap();
+    assert!(res.status.success(), "{}", String::from_utf8_lossy(&res.stderr));
+    assert_eq!(TestPlant::soft_tags(out.path()), want);
+    let files: Vec<String> = std::fs::read_dir(out.path().join("T-1"))
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name().into_string().unwrap())
+        .collect();
+    // (The ingest counts of the first row's day record that one row was read then.)
+    let outputs = files.iter().filter(|f| f.starts_with("softtags-") || f.starts_with("alerts-"));
+    assert!(outputs.clone().all(|f| !f.contains("2000-") && !f.contains("2027-")), "{files:?}");
+    let log = String::from_utf8_lossy(&res.stderr);
+    // Two rows of four tags: two warnings of four samples each.
+    let warned = log.lines().filter(|l| l.contains("\"reason\":\"implausible_time\"")).count();
+    assert!(warned == 2 && log.contains("\"samples\":4"), "{log}");
+}
+
 #[test]
 fn rejected_rows_are_counted_and_logged_with_file_line_and_reason() {
     let plant = TestPlant::new("");
