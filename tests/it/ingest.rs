@@ -1,4 +1,4 @@
-//! What a new user meets first (issue 14): a missing export directory (`check`, `replay`,
+//! What a new user meets first: a missing export directory (`check`, `replay`,
 //! `identify`, `/readyz`), long exports beside wide ones, repeated rejections, rows out of
 //! order, duplicates and empty fields, header names in another case.
 
