@@ -86,6 +86,11 @@ impl ExportReader {
         self.unavailable.as_deref()
     }
 
+    /// The unit's newest data time (see [`RowParser::note_data_time`]).
+    pub fn note_data_time(&mut self, ms: Option<i64>) {
+        self.parser.note_data_time(ms);
+    }
+
     /// Read what is new. A directory that cannot be listed is logged (once, until it can be
     /// listed again) and retried at the next poll (its state is kept).
     pub fn poll(&mut self, now_mono: u64, on: &mut dyn FnMut(Read<'_>)) -> PollStats {

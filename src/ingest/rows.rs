@@ -143,7 +143,14 @@ struct Clock {
     last_ms: i64,
     /// Latest instant read from this file (for folds).
     latest_ms: Option<i64>,
+    /// The unit's newest data time when this file was (re)attached: a file that starts inside
+    /// a repeated local hour (the second hourly file of it, or a restart) takes the right one.
+    unit_hint: Option<i64>,
 }
+
+/// How long after a repeated local hour the unit's data time still decides it for a file that
+/// starts there (a file of an earlier day read late decides by its own rows).
+const FOLD_HINT_MS: i64 = 2 * 3_600_000;
 
 /// Out-of-order tolerance when choosing between the two instants of a repeated local time.
 const FOLD_TOLERANCE_MS: i64 = 15 * 60_000;
@@ -186,7 +193,8 @@ impl Clock {
                         let (early, late) = (early.as_millisecond(), late.as_millisecond());
                         // The repeated hour: rows are in time order in the export, so once the
                         // file has passed the first occurrence, the same wall time is the second.
-                        match self.latest_ms {
+                        let hint = self.unit_hint.filter(|u| *u <= late + FOLD_HINT_MS);
+                        match self.latest_ms.or(hint) {
                             Some(latest) if early < latest - FOLD_TOLERANCE_MS => late,
                             _ => early,
                         }
@@ -238,6 +246,8 @@ pub struct RowParser {
     files: HashMap<u64, (Plan, Clock)>,
     format: TimestampFormat,
     tz: TimeZone,
+    /// The unit's newest data time as the pipeline last said (restored from the checkpoint).
+    data_clock: Option<i64>,
 }
 
 /// What a header said about a file.
@@ -277,7 +287,14 @@ impl RowParser {
             files: HashMap::new(),
             format: input.timestamp_format.clone(),
             tz: input.time_zone.clone(),
+            data_clock: None,
         }
+    }
+
+    /// The unit's newest data time (the assembler's, kept in the checkpoint): files attached
+    /// from now on resolve a repeated local hour against it.
+    pub fn note_data_time(&mut self, ms: Option<i64>) {
+        self.data_clock = self.data_clock.max(ms);
     }
 
     /// Forget a file (it was finished or replaced).
@@ -290,12 +307,14 @@ impl RowParser {
     pub fn header(&mut self, file: u64, fields: &[String]) -> HeaderInfo {
         // The tailer sends a file's header again when it re-attaches to the same file (a
         // continuation): its clock keeps where the file had got to in a repeated local hour.
+        let unit_hint = self.files.values().filter_map(|(_, c)| c.latest_ms).max().max(self.data_clock);
         let clock = self.files.remove(&file).map(|(_, c)| c).unwrap_or_else(|| Clock {
             format: self.format.clone(),
             tz: self.tz.clone(),
             last_text: String::new(),
             last_ms: 0,
             latest_ms: None,
+            unit_hint,
         });
         let (plan, info) = match self.plan(fields) {
             Ok(x) => x,

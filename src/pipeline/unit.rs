@@ -323,6 +323,7 @@ impl UnitRuntime {
             got_data: false,
             error: None,
         };
+        self.reader.note_data_time(down.assembler.max_event());
         let stats = self.reader.poll(now_mono, &mut |read| down.read(read));
         for s in down.repeats.take() {
             warn_summary(&down.core.spec().name, &s);

@@ -500,6 +500,84 @@ fn local_timestamps_through_the_autumn_clock_change() {
     assert_eq!((sum.rejected, sum.intervals), (0, 240));
 }
 
+/// Hourly export files named by local hour through the autumn clock change: the repeated hour
+/// comes in a second file (`…01b.csv`). Its rows are the second 01:00–02:00, not late copies of
+/// the first; and a service restarted in the middle of that second hour (a clean stop) goes on
+/// with the right hour. Every interval is written once and nothing is rejected or late.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn hourly_files_through_the_repeated_autumn_hour_lose_nothing() {
+    let plant = TestPlant::new("");
+    let cfg = std::fs::read_to_string(&plant.config)
+        .unwrap()
+        .replace("timestamp_column = \"Timestamp\"", "timestamp_column = \"Timestamp\"\ntimestamp_format = \"%Y-%m-%d %H:%M:%S\"\ntime_zone = \"Europe/London\"");
+    std::fs::write(&plant.config, cfg).unwrap();
+    let tz = jiff::tz::TimeZone::get("Europe/London").unwrap();
+    let start = "2026-10-24T23:00:00Z".parse::<jiff::Timestamp>().unwrap().as_second();
+    // (file, rows) in the order the exporter writes them: one file per local hour.
+    let mut files: Vec<(String, String)> = Vec::new();
+    for k in 0..(4 * 360) {
+        let t = start + k * 10;
+        let local = jiff::Timestamp::from_second(t).unwrap().to_zoned_datetime(tz.clone());
+        let hour = local.strftime("%Y%m%d%H").to_string();
+        let second_pass = local.offset().seconds() == 0 && local.hour() == 1;
+        let name = format!("plant_{hour}{}.csv", if second_pass { "b" } else { "" });
+        let row = TestPlant::row(k * 10);
+        let line = format!("{},{}\n", local.strftime("%Y-%m-%d %H:%M:%S"), row.split_once(',').unwrap().1);
+        match files.last_mut() {
+            Some((n, text)) if *n == name => text.push_str(&line),
+            _ => files.push((name, line)),
+        }
+    }
+    assert_eq!(files.iter().map(|f| f.0.as_str()).collect::<Vec<_>>()[2], "plant_2026102501b.csv");
+    let site = Arc::new({
+        let mut s = SiteConfig::load(&plant.config).unwrap();
+        for u in &mut s.units {
+            u.spec.max_wait_ms = 1_500;
+        }
+        s
+    });
+    // Run 1: the first two hours and half of the repeated one; stop; run 2: the rest.
+    let (first_half, second_half) = files[2].1.split_at(files[2].1.len() / 2);
+    let rounds: Vec<Vec<(String, String)>> = vec![
+        vec![files[0].clone(), files[1].clone(), (files[2].0.clone(), first_half.to_string())],
+        vec![(files[2].0.clone(), second_half.to_string()), files[3].clone()],
+    ];
+    for (i, round) in rounds.iter().enumerate() {
+        let notify = Arc::new(Notify::new());
+        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
+        let handle = tokio::spawn(service::run(
+            site.clone(),
+            Wake::External(notify.clone()),
+            async move {
+                let _ = rx.await;
+            },
+            None,
+            None,
+        ));
+        for (name, text) in round {
+            plant.append(name, text);
+            notify.notify_one();
+            tokio::time::sleep(Duration::from_millis(150)).await;
+        }
+        let want = if i == 0 { 150 } else { 240 };
+        wait_for("rows", Duration::from_secs(20), || rows_in(&TestPlant::soft_tags(&plant.output)) >= want)
+            .await
+            .unwrap_or_else(|()| panic!("{} rows", rows_in(&TestPlant::soft_tags(&plant.output))));
+        let _ = tx.send(());
+        handle.await.unwrap().unwrap();
+    }
+    let live = TestPlant::soft_tags(&plant.output);
+    assert_eq!(rows_in(&live), 240, "four hours of 1-minute intervals, each once");
+    let out = tempfile::tempdir().unwrap();
+    let sum = efftemp::app::replay::replay(
+        &SiteConfig::load(&plant.config).unwrap(),
+        Some(out.path().to_path_buf()),
+    )
+    .unwrap();
+    assert_eq!((sum.rejected, sum.intervals), (0, 240), "replay of the hourly files");
+    assert_eq!(live, TestPlant::soft_tags(out.path()));
+}
+
 fn spawn_run(config: &Path) -> Child {
     Command::new(assert_cmd::cargo::cargo_bin!("efftemp"))
         .args(["run", "--log-format", "json", "--log-level", "warn", "--config"])
