@@ -86,6 +86,16 @@ impl ExportReader {
         self.unavailable.as_deref()
     }
 
+    /// Header rows found again mid-file, by file id (kept in the checkpoint).
+    pub fn header_overrides(&self) -> &std::collections::BTreeMap<u64, Vec<String>> {
+        self.parser.overrides()
+    }
+
+    /// Restore the mid-file headers of a checkpoint.
+    pub fn restore_header_overrides(&mut self, saved: std::collections::BTreeMap<u64, Vec<String>>) {
+        self.parser.restore_overrides(saved);
+    }
+
     /// The unit's newest data time (see [`RowParser::note_data_time`]).
     pub fn note_data_time(&mut self, ms: Option<i64>) {
         self.parser.note_data_time(ms);

@@ -59,6 +59,12 @@ pub enum Reject {
         /// How many more fields of the row are empty.
         more: usize,
     },
+    /// A header row again in the middle of the file: the columns are mapped from it for the
+    /// rows that follow (the line itself is no data).
+    HeaderAgain {
+        /// Whether its columns differ from the header before it.
+        changed: bool,
+    },
     /// A record longer than the configured limit.
     TooLong,
     /// Not valid UTF-8.
@@ -79,6 +85,7 @@ impl Reject {
             Reject::DuplicateColumn(_) => "duplicate_column",
             Reject::WrongLayout { .. } => "wrong_layout",
             Reject::EmptyField { .. } => "empty_field",
+            Reject::HeaderAgain { .. } => "header_again",
             Reject::TooLong => "line_too_long",
             Reject::NotUtf8 => "not_utf8",
         }
@@ -120,6 +127,10 @@ impl fmt::Display for Reject {
             Reject::EmptyField { column, more } => {
                 write!(f, "empty fields `{column}` and {more} more: no value for them in this row")
             }
+            Reject::HeaderAgain { changed: true } => f.write_str(
+                "a header row again, with other columns: the rows after it are read by its columns",
+            ),
+            Reject::HeaderAgain { changed: false } => f.write_str("the header row again (the same columns)"),
             Reject::TooLong => f.write_str("record longer than the configured limit"),
             Reject::NotUtf8 => f.write_str("record is not valid UTF-8"),
         }
@@ -127,7 +138,7 @@ impl fmt::Display for Reject {
 }
 
 /// The column plan of one file, built from its header.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, PartialEq)]
 enum Plan {
     Wide { ts: usize, cols: Vec<(usize, usize)>, width: usize },
     Long { ts: usize, tag: usize, value: usize, quality: Option<usize>, width: usize },
@@ -248,6 +259,9 @@ pub struct RowParser {
     tz: TimeZone,
     /// The unit's newest data time as the pipeline last said (restored from the checkpoint).
     data_clock: Option<i64>,
+    /// Per file id: the header row found again in the middle of the file, which maps the rows
+    /// after it (kept in the checkpoint: a restart resumes after it).
+    overrides: std::collections::BTreeMap<u64, Vec<String>>,
 }
 
 /// What a header said about a file.
@@ -288,7 +302,18 @@ impl RowParser {
             format: input.timestamp_format.clone(),
             tz: input.time_zone.clone(),
             data_clock: None,
+            overrides: std::collections::BTreeMap::new(),
         }
+    }
+
+    /// The header rows found again mid-file, by file id (for the checkpoint).
+    pub fn overrides(&self) -> &std::collections::BTreeMap<u64, Vec<String>> {
+        &self.overrides
+    }
+
+    /// Restore the mid-file headers of a checkpoint.
+    pub fn restore_overrides(&mut self, saved: std::collections::BTreeMap<u64, Vec<String>>) {
+        self.overrides = saved;
     }
 
     /// The unit's newest data time (the assembler's, kept in the checkpoint): files attached
@@ -300,6 +325,7 @@ impl RowParser {
     /// Forget a file (it was finished or replaced).
     pub fn forget(&mut self, file: u64) {
         self.files.remove(&file);
+        self.overrides.remove(&file);
     }
 
     /// Read a file's header row and build its column plan. Column names are compared trimmed
@@ -316,12 +342,51 @@ impl RowParser {
             latest_ms: None,
             unit_hint,
         });
-        let (plan, info) = match self.plan(fields) {
+        // A header found again mid-file maps the rows after it, where a re-attach resumes.
+        let fields = self.overrides.get(&file).cloned().unwrap_or_else(|| fields.to_vec());
+        let (plan, info) = match self.plan(&fields) {
             Ok(x) => x,
             Err(r) => (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r)),
         };
         self.files.insert(file, (plan, clock));
         info
+    }
+
+    /// Whether a record is the header row again: its timestamp field holds the timestamp
+    /// column's name. If so, the file's columns are mapped from it from here on.
+    fn header_again<'a>(
+        &mut self,
+        file: u64,
+        n_fields: usize,
+        field: &dyn Fn(usize) -> &'a [u8],
+    ) -> Option<Reject> {
+        let (plan, _) = self.files.get(&file)?;
+        let ts = match plan {
+            Plan::Wide { ts, .. } | Plan::Long { ts, .. } => *ts,
+            Plan::Unusable(_) => return None,
+        };
+        let is_header = ts < n_fields
+            && std::str::from_utf8(field(ts))
+                .is_ok_and(|t| t.trim().eq_ignore_ascii_case(self.ts_column.trim()));
+        if !is_header {
+            return None;
+        }
+        let fields: Vec<String> =
+            (0..n_fields).map(|i| String::from_utf8_lossy(field(i)).trim().to_string()).collect();
+        let before = self.overrides.get(&file).cloned();
+        let (plan, _) = match self.plan(&fields) {
+            Ok(x) => x,
+            Err(r) => (Plan::Unusable(r.clone()), HeaderInfo::Unusable(r)),
+        };
+        let changed = match &before {
+            Some(b) => *b != fields,
+            None => self.files.get(&file).is_none_or(|(p, _)| *p != plan),
+        };
+        if let Some((p, _)) = self.files.get_mut(&file) {
+            *p = plan;
+        }
+        self.overrides.insert(file, fields);
+        Some(Reject::HeaderAgain { changed })
     }
 
     /// The unit's tag a header field names (exactly, else ignoring case).
@@ -412,6 +477,10 @@ impl RowParser {
         out: &mut dyn FnMut(Sample),
         rejects: &mut Vec<Reject>,
     ) {
+        if let Some(r) = self.header_again(file, n_fields, field) {
+            rejects.push(r);
+            return;
+        }
         let Some((plan, clock)) = self.files.get_mut(&file) else {
             rejects.push(Reject::MissingColumn(self.ts_column.clone()));
             return;

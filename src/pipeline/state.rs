@@ -34,6 +34,10 @@ pub struct UnitState {
     /// End of the last interval processed, ms.
     #[serde(default)]
     pub last_end_ms: Option<i64>,
+    /// Header rows found again in the middle of export files, by file id (in decimal: JSON
+    /// object keys are strings).
+    #[serde(default)]
+    pub header_overrides: BTreeMap<String, Vec<String>>,
 }
 
 /// The state of every unit of a site, by unit name.
@@ -105,6 +109,8 @@ pub struct UnitStateRef<'a> {
     pub ingest: &'a BTreeMap<String, IngestDay>,
     /// End of the last interval processed, ms.
     pub last_end_ms: Option<i64>,
+    /// Header rows found again in the middle of export files, by file id (in decimal).
+    pub header_overrides: BTreeMap<String, Vec<String>>,
 }
 
 /// The checkpoint to write, borrowed from the running units, tagged with the current format.
@@ -153,6 +159,8 @@ mod tests {
         let s = UnitState::default();
         let a = Assembler::new(60_000, 180_000, 60_000, Vec::new());
         let m = Monitor::new(&crate::core::monitor::settings::MonitorConfig::default(), 60_000);
+        let overrides =
+            BTreeMap::from([("7".to_string(), vec!["Timestamp".to_string(), "TI-1".to_string()])]);
         let r = UnitStateRef {
             tail: s.tail.clone(),
             assembler: &a,
@@ -160,11 +168,13 @@ mod tests {
             monitor: &m,
             ingest: &s.ingest,
             last_end_ms: Some(5),
+            header_overrides: overrides.clone(),
         };
         let text = serde_json::to_string(&StoredRef::new(BTreeMap::from([("U", r)]))).unwrap();
         assert!(text.starts_with(r#"{"format":"efftemp-units-1","units":"#), "{text}");
         let back = serde_json::from_str::<Stored>(&text).unwrap().into_units();
         assert_eq!(back["U"].last_end_ms, Some(5));
         assert_eq!(back["U"].monitor.as_ref(), Some(&m));
+        assert_eq!(back["U"].header_overrides, overrides);
     }
 }

@@ -253,7 +253,10 @@ impl UnitRuntime {
             ..TailOptions::default()
         };
         let names: Vec<String> = spec.tags.iter().map(|t| t.name.clone()).collect();
-        let reader = ExportReader::new(&spec.name, &cfg.input, options, &names, Some(saved.tail));
+        let mut reader = ExportReader::new(&spec.name, &cfg.input, options, &names, Some(saved.tail));
+        reader.restore_header_overrides(
+            saved.header_overrides.into_iter().filter_map(|(k, v)| Some((k.parse().ok()?, v))).collect(),
+        );
         let rules = TagRule::of(&spec);
         let assembler = match saved.assembler {
             Some(a) => Assembler::restore(a, spec.interval_ms, spec.max_wait_ms, spec.reorder_ms, rules),
@@ -303,6 +306,12 @@ impl UnitRuntime {
             monitor: self.core.monitor(),
             ingest: &self.tally.days,
             last_end_ms: self.sinks.reports.as_ref().and_then(|r| r.last_end_ms),
+            header_overrides: self
+                .reader
+                .header_overrides()
+                .iter()
+                .map(|(k, v)| (k.to_string(), v.clone()))
+                .collect(),
         }
     }
 

@@ -578,6 +578,77 @@ async fn hourly_files_through_the_repeated_autumn_hour_lose_nothing() {
     assert_eq!(live, TestPlant::soft_tags(out.path()));
 }
 
+/// A header row again in the middle of an export file, with the columns in another order: the
+/// rows after it are read by its columns (not by the first header's), also when the service is
+/// stopped right after it and started again; the result equals the same data exported with one
+/// header throughout, and the header line is counted and logged, not taken for data.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_header_again_mid_file_remaps_the_columns_across_a_restart() {
+    let clean = TestPlant::new("");
+    clean.append("plant_20261201.csv", &TestPlant::rows(0, 1800));
+    let want = replay(&clean, tempfile::tempdir().unwrap().path());
+
+    let reorder = |row: &str| {
+        let c: Vec<&str> = row.trim_end().split(',').collect();
+        format!("{},{},{},{},{}\n", c[0], c[4], c[3], c[2], c[1])
+    };
+    let plant = TestPlant::new("");
+    let site = Arc::new({
+        let mut s = SiteConfig::load(&plant.config).unwrap();
+        for u in &mut s.units {
+            u.spec.max_wait_ms = 1_500;
+        }
+        s
+    });
+    let reordered =
+        |a: i64, b: i64| -> String { (a..b).step_by(10).map(|t| reorder(&TestPlant::row(t))).collect() };
+    let rounds = [
+        format!("{}Timestamp,TI-109,JI-103,TI-102,FI-101\n{}", TestPlant::rows(0, 900), reordered(900, 1200)),
+        reordered(1200, 1800),
+    ];
+    for (i, text) in rounds.iter().enumerate() {
+        let notify = Arc::new(Notify::new());
+        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
+        let handle = tokio::spawn(service::run(
+            site.clone(),
+            Wake::External(notify.clone()),
+            async move {
+                let _ = rx.await;
+            },
+            None,
+            None,
+        ));
+        plant.append("plant_20261201.csv", text);
+        notify.notify_one();
+        let rows = if i == 0 { 19 } else { 30 };
+        wait_for("rows", Duration::from_secs(15), || rows_in(&TestPlant::soft_tags(&plant.output)) >= rows)
+            .await
+            .unwrap_or_else(|()| panic!("{}", TestPlant::soft_tags(&plant.output)));
+        // Let the checkpoint catch up with what was read before stopping.
+        tokio::time::sleep(Duration::from_millis(300)).await;
+        let _ = tx.send(());
+        handle.await.unwrap().unwrap();
+        if i == 0 {
+            // The checkpoint keeps the mid-file header: a restart resumes after it.
+            let state = std::fs::read_to_string(plant.state.join("state.json")).unwrap();
+            assert!(state.contains("\"TI-109\",\"JI-103\""), "{}", &state[..state.len().min(2000)]);
+        }
+    }
+    assert_eq!(TestPlant::soft_tags(&plant.output), want);
+    let out = tempfile::tempdir().unwrap();
+    let res = cargo_bin_cmd!("efftemp")
+        .args(["replay", "--log-format", "json", "--log-level", "warn", "--config"])
+        .arg(&plant.config)
+        .arg("--output")
+        .arg(out.path())
+        .output()
+        .unwrap();
+    assert!(res.status.success());
+    assert_eq!(TestPlant::soft_tags(out.path()), want, "replay of the same file");
+    let log = String::from_utf8_lossy(&res.stderr);
+    assert!(log.contains("\"reason\":\"header_again\"") && log.contains("other columns"), "{log}");
+}
+
 fn spawn_run(config: &Path) -> Child {
     Command::new(assert_cmd::cargo::cargo_bin!("efftemp"))
         .args(["run", "--log-format", "json", "--log-level", "warn", "--config"])
