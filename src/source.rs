@@ -243,6 +243,45 @@ impl SourceText {
         if search(&root, offset, &mut path) { Some(path) } else { None }
     }
 
+    /// Deserialize the whole document (stage one), reporting as many problems as it can: after
+    /// each located problem (an unknown key, a value of the wrong type) that line is set aside
+    /// and the document read again, up to 25 problems, as long as setting lines aside leaves
+    /// valid TOML (a multi-line value's line is not set aside; the problems up to it are
+    /// reported).
+    pub fn deserialize_all<T: serde::de::DeserializeOwned>(&self) -> Result<T, Vec<LocatedError>> {
+        let mut text = self.text.clone();
+        let mut errors: Vec<LocatedError> = Vec::new();
+        for _ in 0..25 {
+            let e = match toml::from_str::<T>(&text) {
+                Ok(v) if errors.is_empty() => return Ok(v),
+                Ok(_) => return Err(errors),
+                Err(e) => e,
+            };
+            let span = e.span();
+            errors.push(LocatedError {
+                location: Location {
+                    file: self.path.clone(),
+                    line_col: span.as_ref().map(|s| self.line_col(s.start)),
+                    key: span.as_ref().and_then(|s| self.key_at(s.start)),
+                },
+                message: e.message().trim().to_string(),
+            });
+            // Blank the problem's line (same length, so every offset stays where it was).
+            let Some(at) = span.map(|s| s.start.min(text.len())) else { break };
+            let start = text[..at].rfind('\n').map_or(0, |i| i + 1);
+            let end = text[at..].find('\n').map_or(text.len(), |i| at + i);
+            if text[start..end].trim().is_empty() {
+                break;
+            }
+            let blanked = format!("{}{}{}", &text[..start], " ".repeat(end - start), &text[end..]);
+            if toml::from_str::<toml::Table>(&blanked).is_err() {
+                break;
+            }
+            text = blanked;
+        }
+        Err(errors)
+    }
+
     /// Deserialize the whole document (stage one), turning serde errors into located errors.
     pub fn deserialize<T: serde::de::DeserializeOwned>(&self) -> Result<T, LocatedError> {
         toml::from_str::<T>(&self.text).map_err(|e| {
@@ -288,5 +327,32 @@ mod tests {
         let src = SourceText::new("case.toml", DOC);
         let offset = DOC.find("2.0").unwrap_or_default();
         assert_eq!(src.key_at(offset).map(|k| k.to_string()).as_deref(), Some("feed[2].flow"));
+    }
+
+    /// Stage one reports every unknown key and wrongly typed value it can, each located, not
+    /// only the first.
+    #[test]
+    fn stage_one_reports_several_problems() {
+        #[derive(Debug, serde::Deserialize)]
+        #[serde(deny_unknown_fields)]
+        #[allow(dead_code)]
+        struct Model {
+            enthalpy: Option<String>,
+            pressure: Option<f64>,
+        }
+        #[derive(Debug, serde::Deserialize)]
+        #[serde(deny_unknown_fields)]
+        #[allow(dead_code)]
+        struct Doc {
+            model: Model,
+        }
+        let text = "[model]\nenthalpi = \"auto\"\npressure = \"high\"\nwatsn = 0.38\n";
+        let src = SourceText::new("site.toml", text);
+        let errs = src.deserialize_all::<Doc>().unwrap_err();
+        let lines: Vec<usize> = errs.iter().filter_map(|e| e.location.line_col.map(|(l, _)| l)).collect();
+        assert_eq!(lines, vec![2, 3, 4], "{errs:?}");
+        assert!(errs[0].message.contains("enthalpi"), "{}", errs[0].message);
+        let ok = SourceText::new("site.toml", "[model]\nenthalpy = \"auto\"\n");
+        assert!(ok.deserialize_all::<Doc>().is_ok());
     }
 }

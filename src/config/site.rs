@@ -92,7 +92,7 @@ impl SiteConfig {
     /// Load and check a site configuration with its includes. Every problem is reported.
     pub fn load(path: &Path) -> Result<SiteConfig, LocatedErrors> {
         let main = Arc::new(SourceText::read(path)?);
-        let raw: RawSite = main.deserialize()?;
+        let raw: RawSite = main.deserialize_all().map_err(LocatedErrors)?;
         let mut errors = Vec::new();
         let base = main.path.parent().map(Path::to_path_buf).unwrap_or_default();
         let (files, units) = read_includes(&main, &raw, path, &mut errors);

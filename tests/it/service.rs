@@ -190,6 +190,25 @@ fn outputs_past_their_retention_are_deleted() {
     assert!(err.contains("service.retention.soft_tags") && err.contains("service.retention.alerts"), "{err}");
 }
 
+/// Unknown keys and wrongly typed values (stage one) are all reported, each located, not only
+/// the first one.
+#[test]
+fn check_reports_every_unknown_key_not_only_the_first() {
+    let plant = TestPlant::new("");
+    let text = std::fs::read_to_string(&plant.config)
+        .unwrap()
+        .replace("watch = \"off\"", "watch = \"off\"\nreconcile_intervall = \"1s\"")
+        .replace("max_wait = \"3m\"", "max_wait = \"3m\"\nstale_afterr = \"5m\"\ninterval_ms = 60000");
+    std::fs::write(&plant.config, text).unwrap();
+    let out = cargo_bin_cmd!("efftemp").args(["check", "--config"]).arg(&plant.config).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    for key in ["reconcile_intervall", "stale_afterr", "interval_ms"] {
+        assert!(err.contains(key), "{key}: {err}");
+    }
+    assert!(err.matches("site.toml:").count() >= 3, "{err}");
+}
+
 #[test]
 fn includes_are_followed_and_located() {
     let dir = tempfile::tempdir().unwrap();
