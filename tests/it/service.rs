@@ -680,7 +680,8 @@ fn spawn_run(config: &Path) -> Child {
 
 /// Kill the real binary with SIGKILL at pseudo-random moments while rows (with partial rows
 /// and rotations) are appended; after the final restart the soft tags equal a clean replay.
-/// CI runs 4 kills; `EFFTEMP_KILL_LOOPS=50 cargo test --test integration kill` runs more.
+/// CI runs 4 kills; the slow suite runs 100: `EFFTEMP_KILL_LOOPS=100 cargo test --release --test
+/// integration sigkill` (about a minute on 2 cores; it passed with 100 kills).
 #[test]
 fn sigkill_at_random_moments_loses_and_duplicates_nothing() {
     let loops: usize = std::env::var("EFFTEMP_KILL_LOOPS").ok().and_then(|v| v.parse().ok()).unwrap_or(4);
