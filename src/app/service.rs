@@ -49,6 +49,9 @@ pub enum ServiceError {
     /// A blocking task panicked.
     #[error("internal error: {0}")]
     Internal(String),
+    /// Degraded and not yet able to start again from the checkpoint.
+    #[error("cannot resume from the checkpoint: {0}")]
+    Resume(String),
 }
 
 /// How the service is woken besides its own timers.
@@ -146,6 +149,8 @@ struct Service {
     degraded: Option<String>,
     /// The pause before the next try while degraded.
     retry_ms: u64,
+    /// Why the pipeline could not be rebuilt from the checkpoint (it is empty until it can).
+    resume_error: Option<String>,
 }
 
 /// Run `f` on the pipeline on a blocking thread, and give the pipeline back.
@@ -209,11 +214,20 @@ impl Service {
             dirty: false,
             degraded: None,
             retry_ms: FIRST_RETRY_MS,
+            resume_error: None,
         })
     }
 
     /// A pass, the observer, the progress report and a checkpoint when due.
     async fn pass_and_checkpoint(&mut self, observer: Option<&mut Observer>) -> Result<(), ServiceError> {
+        if self.resume_error.is_some() {
+            // The last rebuild failed: the pipeline is empty; a pass would do nothing and look
+            // healthy. Try the rebuild again first.
+            self.resume().await?;
+            if let Some(e) = &self.resume_error {
+                return Err(ServiceError::Resume(e.clone()));
+            }
+        }
         self.pass().await?;
         if let Some(obs) = observer {
             obs(&self.pipeline);
@@ -262,12 +276,16 @@ impl Service {
                 }
                 self.pipeline = p;
                 self.dirty = false;
+                self.resume_error = None;
             }
             Err(e) => {
-                // Even the checkpoint cannot be opened: stay degraded with an empty pipeline;
-                // the next pass fails fast and the loop tries again after the pause.
-                warn!(error = %e, "cannot resume from the checkpoint yet");
+                // The checkpoint or the outputs cannot be opened yet: stay degraded with an empty
+                // pipeline; the next iteration tries the rebuild again after the pause.
+                if self.resume_error.is_none() {
+                    warn!(error = %e, "cannot resume from the checkpoint yet");
+                }
                 self.degraded = Some(format!("cannot resume from the checkpoint: {e}"));
+                self.resume_error = Some(e.to_string());
             }
         }
         Ok(())

@@ -345,8 +345,8 @@ async fn live_with_restart_equals_replay() {
     assert_eq!(live, batch);
 }
 
-/// Outputs that cannot be written (here the unit's output folder is replaced by a file just
-/// before the day's new soft-tag file is due, as a full or vanished file system would do) do not
+/// Outputs that cannot be written (here a folder sits where the new day's soft-tag file must go,
+/// as a full or read-only file system would refuse it) do not
 /// stop the service: it runs degraded, says why on `/healthz` and `/readyz`, retries from its
 /// last checkpoint, and once the folder is back it writes every interval exactly once (the same
 /// soft tags as a replay of the files).
@@ -382,10 +382,10 @@ async fn outputs_that_cannot_be_written_degrade_the_service_and_lose_nothing() {
     wait_for("day 1 rows", Duration::from_secs(10), || rows_in(&TestPlant::soft_tags(&plant.output)) >= 14)
         .await
         .unwrap();
-    // The unit's output folder is gone and a file sits in its place: day 2's files cannot be made.
-    let (unit_dir, away) = (plant.output.join("T-1"), plant.output.join("T-1.away"));
-    std::fs::rename(&unit_dir, &away).unwrap();
-    std::fs::write(&unit_dir, "not a folder").unwrap();
+    // A folder sits where day 2's soft-tag file must go: it cannot be written (as on a full or
+    // read-only file system).
+    let blocker = plant.output.join("T-1").join("softtags-T-1-2026-12-02.csv");
+    std::fs::create_dir(&blocker).unwrap();
     plant.append("plant_20261202.csv", &TestPlant::rows(86_400, 87_600));
     notify.notify_one();
     let degraded =
@@ -399,10 +399,13 @@ async fn outputs_that_cannot_be_written_degrade_the_service_and_lose_nothing() {
     let (code, body) = tokio::task::spawn_blocking(move || http_get(addr, "/readyz")).await.unwrap();
     assert_eq!(code, 503, "{body}");
     assert!(!svc.is_finished(), "the service must keep running");
+    // Stay broken past the first retries (1 s, 2 s): the service must neither pretend to be
+    // healthy nor stop trying.
+    tokio::time::sleep(Duration::from_millis(2_500)).await;
+    assert!(degraded(&snap_rx).is_some(), "still degraded while the folder is gone");
 
-    // The folder comes back: the service resumes from its checkpoint and catches up.
-    std::fs::remove_file(&unit_dir).unwrap();
-    std::fs::rename(&away, &unit_dir).unwrap();
+    // The fault clears: the service resumes from its checkpoint and catches up.
+    std::fs::remove_dir(&blocker).unwrap();
     notify.notify_one();
     wait_for("recovered", Duration::from_secs(40), || {
         degraded(&snap_rx).is_none() && rows_in(&TestPlant::soft_tags(&plant.output)) >= 35
