@@ -7,12 +7,10 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use assert_cmd::cargo::cargo_bin_cmd;
-use efftemp::app::service::{self, Wake};
 use efftemp::config::SiteConfig;
 use serde_json::Value;
-use tokio::sync::Notify;
 
-use crate::util::{self, TestPlant};
+use crate::util::{self, Running, TestPlant, http_get};
 
 /// `efftemp replay` with JSON logs at warn level: (exit code, stdout, log records, stderr).
 fn replay_cmd(config: &Path, out: &Path) -> (i32, String, Vec<Value>, String) {
@@ -104,18 +102,6 @@ fn identify_says_that_the_export_directory_does_not_exist() {
     assert!(!stderr.contains("not enough contiguous data"), "{stderr}");
 }
 
-fn http_get(addr: std::net::SocketAddr, path: &str) -> (u16, String) {
-    use std::io::{Read, Write};
-    let mut s = std::net::TcpStream::connect(addr).unwrap();
-    s.set_read_timeout(Some(Duration::from_secs(5))).unwrap();
-    write!(s, "GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n").unwrap();
-    let mut buf = String::new();
-    s.read_to_string(&mut buf).unwrap();
-    let status = buf.split(' ').nth(1).and_then(|c| c.parse().ok()).unwrap_or(0);
-    let body = buf.split_once("\r\n\r\n").map(|x| x.1.to_string()).unwrap_or_default();
-    (status, body)
-}
-
 /// `/readyz` fails, with the reason, while a unit's export directory is missing, and passes
 /// once it exists.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -124,25 +110,9 @@ async fn the_service_is_not_ready_while_an_export_directory_is_missing() {
     std::fs::remove_dir_all(&plant.exports).unwrap();
     let site = Arc::new(SiteConfig::load(&plant.config).unwrap());
     let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
-    let addr = listener.local_addr().unwrap();
-    tokio::spawn(efftemp::app::http::serve(
-        listener,
-        snap_rx,
-        std::future::pending(),
-        efftemp::app::http::HttpLimits::default(),
-    ));
-    let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-    let notify = Arc::new(Notify::new());
-    let svc = tokio::spawn(service::run(
-        site,
-        Wake::External(notify.clone()),
-        async move {
-            let _ = rx.await;
-        },
-        None,
-        Some(snap_tx),
-    ));
+    let addr = util::serve_http(snap_rx).await;
+    let svc = Running::start(site, false, Some(snap_tx));
+    let notify = svc.notify.clone();
     let ready = |want: u16| async move {
         let mut last = (0, String::new());
         for _ in 0..100 {
@@ -167,8 +137,7 @@ async fn the_service_is_not_ready_while_an_export_directory_is_missing() {
     notify.notify_one();
     let (code, body) = ready(200).await;
     assert_eq!(code, 200, "{body}");
-    let _ = tx.send(());
-    svc.await.unwrap().unwrap();
+    svc.stop().await;
 }
 
 /// A long export whose name matches a wide unit's pattern is refused once (one located

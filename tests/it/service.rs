@@ -8,12 +8,10 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use assert_cmd::cargo::cargo_bin_cmd;
-use efftemp::app::service::{self, Wake};
 use efftemp::config::SiteConfig;
 use efftemp::sinks::softtags::SOFT_TAG_HEADER;
-use tokio::sync::Notify;
 
-use crate::util::{self, TestPlant};
+use crate::util::{self, Running, TestPlant, http_get, rows_in, wait_for};
 
 #[test]
 fn check_accepts_the_example_site() {
@@ -257,34 +255,12 @@ fn replay_writes_one_row_per_interval() {
     }
 }
 
-async fn wait_for(what: &str, timeout: Duration, mut pred: impl FnMut() -> bool) -> Result<(), ()> {
-    let start = Instant::now();
-    while !pred() {
-        if start.elapsed() > timeout {
-            eprintln!("timed out waiting for {what}");
-            return Err(());
-        }
-        tokio::time::sleep(Duration::from_millis(50)).await;
-    }
-    Ok(())
-}
-
-fn rows_in(text: &str) -> usize {
-    text.lines().filter(|l| !l.starts_with("time,")).count()
-}
-
 /// Live tailing with partial rows and a rotation gives byte-identical soft tags to a replay of
 /// the same files; a restart in the middle resumes without duplicates.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn live_with_restart_equals_replay() {
     let plant = TestPlant::new("");
-    let site = Arc::new({
-        let mut s = SiteConfig::load(&plant.config).unwrap();
-        for u in &mut s.units {
-            u.spec.max_wait_ms = 1_500;
-        }
-        s
-    });
+    let site = Arc::new(util::quick_site(&plant.config));
     let script: Vec<(&str, String)> = vec![
         ("plant_20261201.csv", TestPlant::rows(0, 600)),
         ("plant_20261201.csv", {
@@ -302,17 +278,8 @@ async fn live_with_restart_equals_replay() {
     ];
     let mut step = 0;
     for round in 0..2 {
-        let notify = Arc::new(Notify::new());
-        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-        let handle = tokio::spawn(service::run(
-            site.clone(),
-            Wake::External(notify.clone()),
-            async move {
-                let _ = rx.await;
-            },
-            None,
-            None,
-        ));
+        let svc = Running::start(site.clone(), false, None);
+        let notify = svc.notify.clone();
         let stop_at = if round == 0 { 4 } else { script.len() };
         while step < stop_at {
             let (name, text) = &script[step];
@@ -335,8 +302,7 @@ async fn live_with_restart_equals_replay() {
             .await
             .unwrap_or_else(|()| panic!("rows: {}", TestPlant::soft_tags(&plant.output)));
         }
-        let _ = tx.send(());
-        handle.await.unwrap().unwrap();
+        svc.stop().await;
     }
     let live = TestPlant::soft_tags(&plant.output);
     let out = tempfile::tempdir().unwrap();
@@ -353,29 +319,11 @@ async fn live_with_restart_equals_replay() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn outputs_that_cannot_be_written_degrade_the_service_and_lose_nothing() {
     let plant = TestPlant::new("");
-    let site = Arc::new({
-        let mut s = SiteConfig::load(&plant.config).unwrap();
-        for u in &mut s.units {
-            u.spec.max_wait_ms = 1_500;
-        }
-        s
-    });
+    let site = Arc::new(util::quick_site(&plant.config));
     let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
-    let addr = listener.local_addr().unwrap();
-    let limits = efftemp::app::http::HttpLimits::default();
-    tokio::spawn(efftemp::app::http::serve(listener, snap_rx.clone(), std::future::pending(), limits));
-    let notify = Arc::new(Notify::new());
-    let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-    let svc = tokio::spawn(service::run(
-        site,
-        Wake::External(notify.clone()),
-        async move {
-            let _ = rx.await;
-        },
-        None,
-        Some(snap_tx),
-    ));
+    let addr = util::serve_http(snap_rx.clone()).await;
+    let svc = Running::start(site, false, Some(snap_tx));
+    let notify = svc.notify.clone();
     // The last quarter hour of 1 December.
     plant.append("plant_20261201.csv", &TestPlant::rows(85_500, 86_400));
     notify.notify_one();
@@ -414,8 +362,7 @@ async fn outputs_that_cannot_be_written_degrade_the_service_and_lose_nothing() {
     .unwrap_or_else(|()| panic!("{:?}\n{}", degraded(&snap_rx), TestPlant::soft_tags(&plant.output)));
     let (code, _) = tokio::task::spawn_blocking(move || http_get(addr, "/healthz")).await.unwrap();
     assert_eq!(code, 200);
-    let _ = tx.send(());
-    svc.await.unwrap().unwrap();
+    svc.stop().await;
     let live = TestPlant::soft_tags(&plant.output);
     let out = tempfile::tempdir().unwrap();
     assert_eq!(live, replay(&plant, out.path()), "nothing lost, nothing repeated");
@@ -551,13 +498,7 @@ async fn hourly_files_through_the_repeated_autumn_hour_lose_nothing() {
         }
     }
     assert_eq!(files.iter().map(|f| f.0.as_str()).collect::<Vec<_>>()[2], "plant_2026102501b.csv");
-    let site = Arc::new({
-        let mut s = SiteConfig::load(&plant.config).unwrap();
-        for u in &mut s.units {
-            u.spec.max_wait_ms = 1_500;
-        }
-        s
-    });
+    let site = Arc::new(util::quick_site(&plant.config));
     // Run 1: the first two hours and half of the repeated one; stop; run 2: the rest.
     let (first_half, second_half) = files[2].1.split_at(files[2].1.len() / 2);
     let rounds: Vec<Vec<(String, String)>> = vec![
@@ -565,17 +506,8 @@ async fn hourly_files_through_the_repeated_autumn_hour_lose_nothing() {
         vec![(files[2].0.clone(), second_half.to_string()), files[3].clone()],
     ];
     for (i, round) in rounds.iter().enumerate() {
-        let notify = Arc::new(Notify::new());
-        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-        let handle = tokio::spawn(service::run(
-            site.clone(),
-            Wake::External(notify.clone()),
-            async move {
-                let _ = rx.await;
-            },
-            None,
-            None,
-        ));
+        let svc = Running::start(site.clone(), false, None);
+        let notify = svc.notify.clone();
         for (name, text) in round {
             plant.append(name, text);
             notify.notify_one();
@@ -585,8 +517,7 @@ async fn hourly_files_through_the_repeated_autumn_hour_lose_nothing() {
         wait_for("rows", Duration::from_secs(20), || rows_in(&TestPlant::soft_tags(&plant.output)) >= want)
             .await
             .unwrap_or_else(|()| panic!("{} rows", rows_in(&TestPlant::soft_tags(&plant.output))));
-        let _ = tx.send(());
-        handle.await.unwrap().unwrap();
+        svc.stop().await;
     }
     let live = TestPlant::soft_tags(&plant.output);
     assert_eq!(rows_in(&live), 240, "four hours of 1-minute intervals, each once");
@@ -615,13 +546,7 @@ async fn a_header_again_mid_file_remaps_the_columns_across_a_restart() {
         format!("{},{},{},{},{}\n", c[0], c[4], c[3], c[2], c[1])
     };
     let plant = TestPlant::new("");
-    let site = Arc::new({
-        let mut s = SiteConfig::load(&plant.config).unwrap();
-        for u in &mut s.units {
-            u.spec.max_wait_ms = 1_500;
-        }
-        s
-    });
+    let site = Arc::new(util::quick_site(&plant.config));
     let reordered =
         |a: i64, b: i64| -> String { (a..b).step_by(10).map(|t| reorder(&TestPlant::row(t))).collect() };
     let rounds = [
@@ -629,17 +554,8 @@ async fn a_header_again_mid_file_remaps_the_columns_across_a_restart() {
         reordered(1200, 1800),
     ];
     for (i, text) in rounds.iter().enumerate() {
-        let notify = Arc::new(Notify::new());
-        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-        let handle = tokio::spawn(service::run(
-            site.clone(),
-            Wake::External(notify.clone()),
-            async move {
-                let _ = rx.await;
-            },
-            None,
-            None,
-        ));
+        let svc = Running::start(site.clone(), false, None);
+        let notify = svc.notify.clone();
         plant.append("plant_20261201.csv", text);
         notify.notify_one();
         let rows = if i == 0 { 19 } else { 30 };
@@ -648,8 +564,7 @@ async fn a_header_again_mid_file_remaps_the_columns_across_a_restart() {
             .unwrap_or_else(|()| panic!("{}", TestPlant::soft_tags(&plant.output)));
         // Let the checkpoint catch up with what was read before stopping.
         tokio::time::sleep(Duration::from_millis(300)).await;
-        let _ = tx.send(());
-        handle.await.unwrap().unwrap();
+        svc.stop().await;
         if i == 0 {
             // The checkpoint keeps the mid-file header: a restart resumes after it.
             let state = std::fs::read_to_string(plant.state.join("state.json")).unwrap();
@@ -741,18 +656,6 @@ fn sigkill_at_random_moments_loses_and_duplicates_nothing() {
     let _ = std::io::stdout().flush();
 }
 
-fn http_get(addr: std::net::SocketAddr, path: &str) -> (u16, String) {
-    use std::io::Read;
-    let mut s = std::net::TcpStream::connect(addr).unwrap();
-    s.set_read_timeout(Some(Duration::from_secs(5))).unwrap();
-    write!(s, "GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n").unwrap();
-    let mut buf = String::new();
-    s.read_to_string(&mut buf).unwrap();
-    let status = buf.split(' ').nth(1).and_then(|c| c.parse().ok()).unwrap_or(0);
-    let body = buf.split_once("\r\n\r\n").map(|x| x.1.to_string()).unwrap_or_default();
-    (status, body)
-}
-
 /// Health and metrics are scraped over HTTP while the service runs.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn health_and_metrics_over_http() {
@@ -762,25 +665,9 @@ async fn health_and_metrics_over_http() {
     plant.append("plant_20261201.csv", &text);
     let site = Arc::new(SiteConfig::load(&plant.config).unwrap());
     let (snap_tx, snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
-    let addr = listener.local_addr().unwrap();
-    tokio::spawn(efftemp::app::http::serve(
-        listener,
-        snap_rx,
-        std::future::pending(),
-        efftemp::app::http::HttpLimits::default(),
-    ));
-    let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-    let notify = Arc::new(Notify::new());
-    let svc = tokio::spawn(service::run(
-        site,
-        Wake::External(notify.clone()),
-        async move {
-            let _ = rx.await;
-        },
-        None,
-        Some(snap_tx),
-    ));
+    let addr = util::serve_http(snap_rx).await;
+    let svc = Running::start(site, false, Some(snap_tx));
+    let notify = svc.notify.clone();
     let (code, _) = tokio::task::spawn_blocking(move || http_get(addr, "/healthz")).await.unwrap();
     assert_eq!(code, 200);
     notify.notify_one();
@@ -801,8 +688,7 @@ async fn health_and_metrics_over_http() {
     assert!(body.contains("efftemp_watch_mode{mode=\"off\"} 1"), "{body}");
     let (code, ready) = tokio::task::spawn_blocking(move || http_get(addr, "/readyz")).await.unwrap();
     assert_eq!(code, 200, "{ready}");
-    let _ = tx.send(());
-    svc.await.unwrap().unwrap();
+    svc.stop().await;
 }
 
 fn soft_rows(plant: &TestPlant, unit: &str) -> usize {
@@ -906,10 +792,7 @@ async fn live_file_scenarios_equal_replay(waker: Waker) {
     use efftemp::ingest::settings::WatchMode;
     let plant = TestPlant::new("");
     let site = Arc::new({
-        let mut s = SiteConfig::load(&plant.config).unwrap();
-        for u in &mut s.units {
-            u.spec.max_wait_ms = 1_500;
-        }
+        let mut s = util::quick_site(&plant.config);
         (s.service.watch, s.service.reconcile_ms) = match waker {
             Waker::Test | Waker::Off => (WatchMode::Off, 200),
             Waker::Native => (WatchMode::Native, 60_000),
@@ -946,21 +829,8 @@ async fn live_file_scenarios_equal_replay(waker: Waker) {
         }),
         Box::new(|| plant.append("plant_20261202.csv", &TestPlant::rows(2100, 2400))),
     ];
-    let notify = Arc::new(Notify::new());
-    let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-    let wake = match waker {
-        Waker::Test => Wake::External(notify.clone()),
-        _ => Wake::Watchers,
-    };
-    let handle = tokio::spawn(service::run(
-        site.clone(),
-        wake,
-        async move {
-            let _ = rx.await;
-        },
-        None,
-        None,
-    ));
+    let svc = Running::start(site.clone(), !matches!(waker, Waker::Test), None);
+    let notify = svc.notify.clone();
     // Let the watcher start before the first write.
     tokio::time::sleep(Duration::from_millis(300)).await;
     for op in &ops {
@@ -971,8 +841,7 @@ async fn live_file_scenarios_equal_replay(waker: Waker) {
     let done =
         wait_for("all rows", Duration::from_secs(20), || rows_in(&TestPlant::soft_tags(&plant.output)) >= 40)
             .await;
-    let _ = tx.send(());
-    handle.await.unwrap().unwrap();
+    svc.stop().await;
     let live = TestPlant::soft_tags(&plant.output);
     assert!(done.is_ok(), "{waker:?}: rows {}:\n{live}", rows_in(&live));
     let out = tempfile::tempdir().unwrap();

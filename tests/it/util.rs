@@ -238,3 +238,105 @@ pub fn assert_same_lines(got: &str, want: &str, what: &str) {
         show(&w)
     );
 }
+
+// --- The service running in-process (live tests) ---------------------------------------------
+
+/// The site of `config` with a 1.5 s wait for late data, so that a live test does not wait
+/// minutes for the last interval of a quiet stream.
+pub fn quick_site(config: &Path) -> efftemp::config::SiteConfig {
+    let mut s = efftemp::config::SiteConfig::load(config).expect("site loads");
+    for u in &mut s.units {
+        u.spec.max_wait_ms = 1_500;
+    }
+    s
+}
+
+/// `efftemp run` in-process: woken by `notify` (or by its own watchers), stopped by [`Running::stop`].
+pub struct Running {
+    /// Wakes the service (with `Wake::External`).
+    pub notify: std::sync::Arc<tokio::sync::Notify>,
+    stop: tokio::sync::oneshot::Sender<()>,
+    handle: tokio::task::JoinHandle<Result<(), efftemp::app::service::ServiceError>>,
+}
+
+impl Running {
+    /// Start the service on `site`, woken by the test (`watchers` false) or by its own file
+    /// watchers, publishing snapshots to `snapshots` if given.
+    pub fn start(
+        site: std::sync::Arc<efftemp::config::SiteConfig>,
+        watchers: bool,
+        snapshots: Option<tokio::sync::watch::Sender<efftemp::app::http::Snapshot>>,
+    ) -> Running {
+        use efftemp::app::service::{self, Wake};
+        let notify = std::sync::Arc::new(tokio::sync::Notify::new());
+        let (stop, rx) = tokio::sync::oneshot::channel::<()>();
+        let wake = if watchers { Wake::Watchers } else { Wake::External(notify.clone()) };
+        let handle = tokio::spawn(service::run(
+            site,
+            wake,
+            async move {
+                let _ = rx.await;
+            },
+            None,
+            snapshots,
+        ));
+        Running { notify, stop, handle }
+    }
+
+    /// Whether the service has stopped by itself.
+    pub fn is_finished(&self) -> bool {
+        self.handle.is_finished()
+    }
+
+    /// Stop it and wait for a clean exit.
+    pub async fn stop(self) {
+        let _ = self.stop.send(());
+        self.handle.await.expect("service task").expect("service stops cleanly");
+    }
+}
+
+/// Serve health and metrics of `snapshots` on a free loopback port; its address.
+pub async fn serve_http(
+    snapshots: tokio::sync::watch::Receiver<efftemp::app::http::Snapshot>,
+) -> std::net::SocketAddr {
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
+    let addr = listener.local_addr().expect("address");
+    let limits = efftemp::app::http::HttpLimits::default();
+    tokio::spawn(efftemp::app::http::serve(listener, snapshots, std::future::pending(), limits));
+    addr
+}
+
+/// `GET path` on the health endpoint: status and body (blocking; call from `spawn_blocking`).
+pub fn http_get(addr: std::net::SocketAddr, path: &str) -> (u16, String) {
+    use std::io::{Read, Write};
+    let mut s = std::net::TcpStream::connect(addr).expect("connect");
+    s.set_read_timeout(Some(std::time::Duration::from_secs(5))).expect("timeout");
+    write!(s, "GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n").expect("request");
+    let mut buf = String::new();
+    s.read_to_string(&mut buf).expect("response");
+    let status = buf.split(' ').nth(1).and_then(|c| c.parse().ok()).unwrap_or(0);
+    let body = buf.split_once("\r\n\r\n").map(|x| x.1.to_string()).unwrap_or_default();
+    (status, body)
+}
+
+/// Wait until `pred` holds, up to `timeout` (`Err` after saying what timed out).
+pub async fn wait_for(
+    what: &str,
+    timeout: std::time::Duration,
+    mut pred: impl FnMut() -> bool,
+) -> Result<(), ()> {
+    let start = std::time::Instant::now();
+    while !pred() {
+        if start.elapsed() > timeout {
+            eprintln!("timed out waiting for {what}");
+            return Err(());
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(50)).await;
+    }
+    Ok(())
+}
+
+/// Data rows of soft-tag text (header lines left out).
+pub fn rows_in(text: &str) -> usize {
+    text.lines().filter(|l| !l.starts_with("time,")).count()
+}
