@@ -295,7 +295,7 @@ fn folder_problem(dir: &Path, service_uid: Option<u32>) -> Option<String> {
     {
         use std::os::unix::fs::{MetadataExt as _, PermissionsExt as _};
         let mode = meta.permissions().mode() & 0o7777;
-        if mode & 0o022 != 0 {
+        if crate::sinks::checkpoint::writable_by_others(mode) {
             return Some(format!(
                 "{} is group- or world-writable (mode {mode:04o}); requests are not read until it is 0750 or 0700",
                 dir.display()

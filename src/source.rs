@@ -258,14 +258,7 @@ impl SourceText {
                 Err(e) => e,
             };
             let span = e.span();
-            errors.push(LocatedError {
-                location: Location {
-                    file: self.path.clone(),
-                    line_col: span.as_ref().map(|s| self.line_col(s.start)),
-                    key: span.as_ref().and_then(|s| self.key_at(s.start)),
-                },
-                message: e.message().trim().to_string(),
-            });
+            errors.push(self.located(&e));
             // Blank the problem's line (same length, so every offset stays where it was).
             let Some(at) = span.map(|s| s.start.min(text.len())) else { break };
             let start = text[..at].rfind('\n').map_or(0, |i| i + 1);
@@ -284,17 +277,20 @@ impl SourceText {
 
     /// Deserialize the whole document (stage one), turning serde errors into located errors.
     pub fn deserialize<T: serde::de::DeserializeOwned>(&self) -> Result<T, LocatedError> {
-        toml::from_str::<T>(&self.text).map_err(|e| {
-            let span = e.span();
-            LocatedError {
-                location: Location {
-                    file: self.path.clone(),
-                    line_col: span.as_ref().map(|s| self.line_col(s.start)),
-                    key: span.and_then(|s| self.key_at(s.start)),
-                },
-                message: e.message().trim().to_string(),
-            }
-        })
+        toml::from_str::<T>(&self.text).map_err(|e| self.located(&e))
+    }
+
+    /// A TOML or serde error of this document, located by its span.
+    fn located(&self, e: &toml::de::Error) -> LocatedError {
+        let span = e.span();
+        LocatedError {
+            location: Location {
+                file: self.path.clone(),
+                line_col: span.as_ref().map(|s| self.line_col(s.start)),
+                key: span.and_then(|s| self.key_at(s.start)),
+            },
+            message: e.message().trim().to_string(),
+        }
     }
 }
 

@@ -106,7 +106,7 @@ pub async fn run(
             if let ServiceError::Internal(_) = e {
                 return Err(e);
             }
-            svc.degrade(&e).await?;
+            svc.degrade(&e);
             tokio::select! {
                 biased;
                 () = &mut shutdown => break,
@@ -241,7 +241,7 @@ impl Service {
                 warn!("degraded: {why}; outputs go on, a restart would re-read more data");
             }
             self.degraded = Some(why);
-        } else if self.degraded.is_some() && failures == failures_before {
+        } else if self.degraded.is_some() {
             info!("no longer degraded: outputs and the checkpoint are written again");
             self.degraded = None;
             self.retry_ms = FIRST_RETRY_MS;
@@ -251,14 +251,13 @@ impl Service {
     }
 
     /// Enter (or stay in) the degraded state after `e`: logged once per cause, published.
-    async fn degrade(&mut self, e: &ServiceError) -> Result<(), ServiceError> {
+    fn degrade(&mut self, e: &ServiceError) {
         let why = format!("outputs cannot be written: {e}");
         if self.degraded.as_deref() != Some(why.as_str()) {
             error!(error = %e, "degraded: outputs cannot be written; retrying from the last checkpoint");
         }
         self.degraded = Some(why);
         self.report_progress();
-        Ok(())
     }
 
     /// Start again from the last checkpoint, as a restart would: the pipeline (and its state

@@ -544,7 +544,7 @@ pub(crate) fn state_dir_problem(dir: &Path) -> Option<String> {
     {
         use std::os::unix::fs::PermissionsExt as _;
         let mode = meta.permissions().mode() & 0o7777;
-        if mode & 0o022 != 0 {
+        if crate::sinks::checkpoint::writable_by_others(mode) {
             let who = if mode & 0o002 != 0 { "world" } else { "group" };
             return Some(format!(
                 "state directory {} is {who}-writable (mode {mode:04o}): another local user could plant \

@@ -334,11 +334,17 @@ impl Assembler {
     /// (the next sample at least the jump threshold past the open interval) is skipped in one
     /// step, not closed as thousands of empty intervals.
     fn earliest(&self) -> Option<(i64, i64)> {
-        let min = self.bufs.iter().flat_map(|b| b.samples.iter().map(|s| s.0)).min();
-        let start = match (self.open_from, min) {
-            (Some(t), Some(m)) if m >= t + self.interval_ms + self.jump_ms() => floor_to(m, self.interval_ms),
-            (Some(t), _) => t,
-            (None, m) => floor_to(m?, self.interval_ms),
+        let min = || self.bufs.iter().flat_map(|b| b.samples.iter().map(|s| s.0)).min();
+        let start = match self.open_from {
+            // Only after a jump in the data can a stretch be skipped (the common case stays O(1)).
+            Some(t) if self.max_event.is_some_and(|m| m >= t + self.interval_ms + self.jump_ms()) => {
+                match min() {
+                    Some(m) if m >= t + self.interval_ms + self.jump_ms() => floor_to(m, self.interval_ms),
+                    _ => t,
+                }
+            }
+            Some(t) => t,
+            None => floor_to(min()?, self.interval_ms),
         };
         Some((start, start + self.interval_ms))
     }

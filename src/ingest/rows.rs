@@ -365,9 +365,11 @@ impl RowParser {
             Plan::Wide { ts, .. } | Plan::Long { ts, .. } => *ts,
             Plan::Unusable(_) => return None,
         };
+        let name = self.ts_column.trim();
+        // Cheap first: a timestamp is rarely as long as the column's name.
         let is_header = ts < n_fields
-            && std::str::from_utf8(field(ts))
-                .is_ok_and(|t| t.trim().eq_ignore_ascii_case(self.ts_column.trim()));
+            && field(ts).len() >= name.len()
+            && std::str::from_utf8(field(ts)).is_ok_and(|t| t.trim().eq_ignore_ascii_case(name));
         if !is_header {
             return None;
         }

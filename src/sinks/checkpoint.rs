@@ -57,6 +57,12 @@ pub enum StateError {
     },
 }
 
+/// Whether a directory mode lets others than its owner write (group or world, sticky bit or
+/// not: anyone could still plant requests or a checkpoint): such a state directory is refused.
+pub fn writable_by_others(mode: u32) -> bool {
+    mode & 0o022 != 0
+}
+
 /// An open, locked state directory.
 #[derive(Debug)]
 pub struct StateDir {
@@ -82,8 +88,7 @@ impl StateDir {
             use std::os::unix::fs::{DirBuilderExt as _, PermissionsExt};
             fs::DirBuilder::new().recursive(true).mode(0o750).create(dir).map_err(io_err(dir))?;
             let mode = fs::metadata(dir).map_err(io_err(dir))?.permissions().mode();
-            // Group or world write, sticky or not: anyone could plant requests or a checkpoint.
-            if mode & 0o022 != 0 {
+            if writable_by_others(mode) {
                 return Err(StateError::WorldWritable { dir: dir.to_path_buf(), mode: mode & 0o7777 });
             }
         }
