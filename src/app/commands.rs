@@ -242,9 +242,7 @@ pub fn demo(
     out: Option<PathBuf>,
     discard: bool,
 ) -> Result<(), Failure> {
-    if !(days > 0.0 && days <= 60.0) {
-        return Err(Failure::Usage("--days must be within (0, 60]".into()));
-    }
+    demo_days(days)?;
     let _ = crate::app::logging::init(LogFormat::Text, "warn");
     let opts = crate::app::demo::DemoOptions { seed, days, speed, out, discard, verbose: true };
     let r = crate::app::demo::run(&opts).map_err(|e| Failure::Runtime(format!("demo failed: {e:#}")))?;
@@ -294,11 +292,18 @@ fn own_command_in(exe: Option<PathBuf>, path: Option<std::ffi::OsString>) -> Str
     }
 }
 
+/// The demo's `--days`: within (0, 60].
+fn demo_days(days: f64) -> Result<(), Failure> {
+    if days > 0.0 && days <= 60.0 {
+        Ok(())
+    } else {
+        Err(Failure::Usage("--days must be within (0, 60]".into()))
+    }
+}
+
 /// `efftemp demo --export-only DIR`: the demo plant's export files, without the service.
 pub fn demo_exports(seed: u64, days: f64, dir: &Path) -> Result<(), Failure> {
-    if !(days > 0.0 && days <= 60.0) {
-        return Err(Failure::Usage("--days must be within (0, 60]".into()));
-    }
+    demo_days(days)?;
     if std::fs::read_dir(dir).is_ok_and(|mut d| d.next().is_some()) {
         return Err(Failure::Usage(format!(
             "{} is not empty: --export-only writes into a new or empty folder",
