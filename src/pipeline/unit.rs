@@ -18,7 +18,7 @@ use crate::core::model::Evaluation;
 use crate::core::{Note, UnitCore};
 use crate::ingest::reader::{ExportReader, Read};
 use crate::ingest::repeat::{RepeatLog, warn_summary};
-use crate::ingest::tail::TailOptions;
+use crate::ingest::tail::{PollLimits, PollStats, TailOptions};
 use crate::sinks::alert_log::AlertWriter;
 use crate::sinks::report::ReportUnit;
 use crate::sinks::report::ShiftReports;
@@ -57,6 +57,8 @@ pub struct UnitRuntime {
     last_data_mono: Option<u64>,
     /// Whether a pass has run since this runtime was created.
     started: bool,
+    /// What the last pass left unread (see [`UnitRuntime::backlog`]).
+    backlog: Option<u64>,
     /// How long outputs are kept, and the data day they were last pruned for.
     retention: crate::sinks::retention::Retention,
     pruned_day: Option<jiff::civil::Date>,
@@ -293,6 +295,7 @@ impl UnitRuntime {
             repeats: RepeatLog::default(),
             last_data_mono: None,
             started: false,
+            backlog: None,
             retention: service.retention,
             pruned_day: None,
         })
@@ -315,10 +318,12 @@ impl UnitRuntime {
         }
     }
 
-    /// One pass: read what is new, close what is ready. `flush` closes the open intervals (end
-    /// of the replay input); they are also closed when the stream has been quiet for
-    /// `max_wait` of monotonic time (live).
-    pub(super) fn pass(&mut self, now_mono: u64, flush: bool) -> io::Result<u64> {
+    /// One pass: read what is new (within `limits`), close what is ready. `flush` closes the
+    /// open intervals (end of the replay input); they are also closed when the stream has been
+    /// quiet for `max_wait` of monotonic time (live), but never while the files hold more than
+    /// the pass read (a backlog is not quiet).
+    pub(super) fn pass(&mut self, limits: &PollLimits, flush: bool) -> io::Result<PollStats> {
+        let now_mono = limits.now_ms;
         let mut down = Downstream {
             assembler: &mut self.assembler,
             core: &mut self.core,
@@ -333,12 +338,13 @@ impl UnitRuntime {
             error: None,
         };
         self.reader.note_data_time(down.assembler.max_event());
-        let stats = self.reader.poll(now_mono, &mut |read| down.read(read));
+        let stats = self.reader.poll(limits, &mut |read| down.read(read));
+        self.backlog = stats.more.then_some(stats.unread_bytes);
         for s in down.repeats.take() {
             warn_summary(&down.core.spec().name, &s);
         }
         down.counters.bytes += stats.bytes_read;
-        if down.got_data {
+        if down.got_data || stats.more {
             self.last_data_mono = Some(now_mono);
         }
         if !self.started {
@@ -350,7 +356,8 @@ impl UnitRuntime {
             }
         }
         let wait = u64::try_from(down.core.spec().max_wait_ms).unwrap_or(u64::MAX);
-        let quiet = flush || self.last_data_mono.is_some_and(|t| now_mono.saturating_sub(t) >= wait);
+        let quiet =
+            flush || (!stats.more && self.last_data_mono.is_some_and(|t| now_mono.saturating_sub(t) >= wait));
         if flush {
             down.assembler.drop_held();
         }
@@ -365,7 +372,13 @@ impl UnitRuntime {
         // Make what this pass wrote visible to readers at once (fsync waits for the checkpoint).
         self.sinks.flush()?;
         self.prune_when_the_day_changed();
-        Ok(stats.records)
+        Ok(stats)
+    }
+
+    /// Data bytes waiting in the unit's files beyond what the last pass read (`None`: it read
+    /// everything there was).
+    pub fn backlog(&self) -> Option<u64> {
+        self.backlog
     }
 
     /// Delete outputs past their retention, once per new data day of the unit.
@@ -417,6 +430,7 @@ impl UnitRuntime {
             monitor_state: self.core.monitor().state.as_str().to_string(),
             bytes: c.bytes,
             input_problem: self.reader.unavailable().map(|w| format!("unit {}: {w}", self.cfg.spec.name)),
+            backlog_bytes: self.backlog,
         }
     }
 
