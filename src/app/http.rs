@@ -255,23 +255,28 @@ fn readiness(s: &Snapshot, now: i64) -> (StatusCode, String) {
         return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: {}\n", blind.join("; ")));
     }
     if s.catching_up {
-        let behind: Vec<String> = s
+        let mut behind: Vec<(i64, String)> = s
             .units
             .iter()
             .filter_map(|u| {
                 let bytes = u.backlog_bytes?;
+                let lag = u.last_data_ms.map_or(i64::MAX, |t| now - t);
                 let data = u.last_data_ms.map_or_else(
                     || "no data yet".to_string(),
-                    |t| format!("data up to {} ({} behind)", fmt_ms(t), human_ms(now - t)),
+                    |t| format!("data up to {} ({} behind)", fmt_ms(t), human_ms(lag)),
                 );
-                Some(format!("unit {}: {} unread, {data}", u.name, human_bytes(bytes)))
+                Some((lag, format!("unit {}: {} unread, {data}", u.name, human_bytes(bytes))))
             })
             .collect();
-        let what = if behind.is_empty() {
-            "other units waiting for their turn".to_string()
-        } else {
-            behind.join("; ")
-        };
+        // The units furthest behind first, five of them.
+        behind.sort_by_key(|(lag, _)| std::cmp::Reverse(*lag));
+        let mut what: Vec<String> = behind.iter().take(5).map(|(_, text)| text.clone()).collect();
+        match behind.len() {
+            0 => what.push("units waiting for their turn".to_string()),
+            n if n > 5 => what.push(format!("and {} more unit(s)", n - 5)),
+            _ => {}
+        }
+        let what = what.join("; ");
         return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: catching up: {what}\n"));
     }
     match s.last_pass_ms {
@@ -429,6 +434,19 @@ mod tests {
         assert!(text.contains("efftemp_backlog_bytes{unit=\"R-204\"} 12582912\n"), "{text}");
         assert!(text.contains("efftemp_backlog_bytes{unit=\"R-205\"} 0\n"), "{text}");
         assert!(text.contains("efftemp_catching_up 1\n"), "{text}");
+        // Many units behind: the five furthest behind, and how many more.
+        let mut many = s.clone();
+        many.units = (0..7)
+            .map(|k| UnitSnapshot {
+                name: format!("U-{k}"),
+                last_data_ms: Some(now - (k + 1) * day),
+                backlog_bytes: Some(1 << 20),
+                ..Default::default()
+            })
+            .collect();
+        let body = readiness(&many, now).1;
+        assert!(body.starts_with("not ready: catching up: unit U-6: 1.0 MiB unread"), "{body}");
+        assert!(body.ends_with("unit U-2: 1.0 MiB unread, data up to 1970-02-07T00:00:00Z (3.0 d behind); and 2 more unit(s)\n"), "{body}");
         s.catching_up = false;
         s.units[0].backlog_bytes = None;
         assert_eq!(readiness(&s, now).0, StatusCode::OK);
