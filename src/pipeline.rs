@@ -113,13 +113,17 @@ impl Pipeline {
             Mode::Live => {
                 let dir = StateDir::open(&site.state_dir)?;
                 let (stored, notes): (Option<Stored>, Vec<String>) = dir.load();
-                let out =
-                    Outputs { site, dir: site.output_dir.clone(), stdout: site.service.alerts_to_stdout };
+                let out = Outputs {
+                    site,
+                    dir: site.output_dir.clone(),
+                    stdout: site.service.alerts_to_stdout,
+                    state_dir: Some(site.state_dir.clone()),
+                };
                 (Some(dir), stored.map(Stored::into_units).unwrap_or_default(), notes, out)
             }
             Mode::Replay { output } => {
                 let dir = output.clone().unwrap_or_else(|| site.output_dir.clone());
-                (None, BTreeMap::new(), Vec::new(), Outputs { site, dir, stdout: false })
+                (None, BTreeMap::new(), Vec::new(), Outputs { site, dir, stdout: false, state_dir: None })
             }
         };
         let mut units = Vec::new();
@@ -233,8 +237,13 @@ impl Pipeline {
         }
         if let Some(dir) = self.state.as_mut() {
             let units = self.units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect();
-            if let Err(e) = dir.save(&StoredRef::new(units)) {
-                warn!(error = %e, "checkpoint write failed; will retry");
+            match dir.save(&StoredRef::new(units)) {
+                Ok(()) => {
+                    for u in &mut self.units {
+                        u.checkpoint_written();
+                    }
+                }
+                Err(e) => warn!(error = %e, "checkpoint write failed; will retry"),
             }
         }
         Ok(())

@@ -20,6 +20,7 @@ use crate::ingest::reader::{ExportReader, Read};
 use crate::ingest::repeat::{RepeatLog, warn_summary};
 use crate::ingest::tail::{PollLimits, PollStats, TailOptions};
 use crate::sinks::alert_log::AlertWriter;
+use crate::sinks::journal::{Journal, Span};
 use crate::sinks::report::ReportUnit;
 use crate::sinks::report::ShiftReports;
 use crate::sinks::softtags::{SoftTagWriter, info_columns};
@@ -59,6 +60,10 @@ pub struct UnitRuntime {
     started: bool,
     /// What the last pass left unread (see [`UnitRuntime::backlog`]).
     backlog: Option<u64>,
+    /// The monitor's block history journal (live service).
+    journal: Option<Journal>,
+    /// The journal's live span, as the next checkpoint names it.
+    history_span: Option<Span>,
     /// How long outputs are kept, and the data day they were last pruned for.
     retention: crate::sinks::retention::Retention,
     pruned_day: Option<jiff::civil::Date>,
@@ -236,6 +241,8 @@ pub(super) struct Outputs<'a> {
     pub(super) site: &'a SiteConfig,
     pub(super) dir: PathBuf,
     pub(super) stdout: bool,
+    /// The state directory (live service): the monitor's history goes to a journal there.
+    pub(super) state_dir: Option<PathBuf>,
 }
 
 impl UnitRuntime {
@@ -243,9 +250,25 @@ impl UnitRuntime {
         cfg: &UnitConfig,
         service: &ServiceConfig,
         out: &Outputs<'_>,
-        saved: UnitState,
+        mut saved: UnitState,
     ) -> io::Result<Self> {
         let spec = Arc::new(cfg.spec.clone());
+        let journal = match &out.state_dir {
+            Some(dir) => {
+                let mut j = Journal::new(dir, &spec.name);
+                let (blocks, note) = j.load(saved.history)?;
+                if let Some(note) = note {
+                    warn!(unit = %spec.name, "{note}");
+                }
+                if let Some(m) = saved.monitor.as_mut()
+                    && saved.history.is_some()
+                {
+                    m.history = blocks;
+                }
+                Some(j)
+            }
+            None => None,
+        };
         let options = TailOptions {
             pattern: cfg.input.pattern.clone(),
             exclude: cfg.input.exclude.clone(),
@@ -296,6 +319,8 @@ impl UnitRuntime {
             last_data_mono: None,
             started: false,
             backlog: None,
+            journal,
+            history_span: saved.history,
             retention: service.retention,
             pruned_day: None,
         })
@@ -315,6 +340,7 @@ impl UnitRuntime {
                 .iter()
                 .map(|(k, v)| (k.to_string(), v.clone()))
                 .collect(),
+            history: self.history_span,
         }
     }
 
@@ -404,6 +430,11 @@ impl UnitRuntime {
         }
     }
 
+    /// The unit's monitor (baseline, charts, block history).
+    pub fn monitor(&self) -> &crate::core::monitor::Monitor {
+        self.core.monitor()
+    }
+
     /// Why the unit's export directory could not be read at the last pass (`None`: it could).
     pub fn input_problem(&self) -> Option<&str> {
         self.reader.unavailable()
@@ -449,7 +480,17 @@ impl UnitRuntime {
     pub(super) fn sync(&mut self) -> io::Result<()> {
         self.sinks.sync()?;
         ingest_counts::write_days(&self.dir, &self.cfg.spec.name, &self.tally.days);
+        if let Some(j) = self.journal.as_mut() {
+            self.history_span = j.sync(&self.core.monitor().history)?;
+        }
         Ok(())
+    }
+
+    /// The checkpoint naming this unit's journal span was written.
+    pub(super) fn checkpoint_written(&mut self) {
+        if let Some(j) = self.journal.as_mut() {
+            j.named(self.history_span);
+        }
     }
 
     /// Forward new alert events through `f`: events already in the alert log are not sent
