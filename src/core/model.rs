@@ -180,6 +180,8 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstima
     let mut flags: Vec<Flag> = Vec::new();
     let mut conditions: Vec<Condition> = Vec::new();
     let mut signals = Signals::default();
+    signals.tag_values_si.reserve_exact(unit.tags.len());
+    signals.tag_ranges_si.reserve_exact(unit.tags.len());
 
     // Data quality of every tag.
     for (i, (tag, tv)) in unit.tags.iter().zip(&closed.tags).enumerate() {

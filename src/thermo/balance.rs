@@ -13,6 +13,7 @@
 //! [`System::solve`] returns an [`Outcome`] with validity [`Flag`]s. Nothing here does I/O.
 
 use std::fmt;
+use std::sync::Arc;
 
 use super::component::{Component, DEFAULT_WATSON_N};
 use super::enthalpy::{EnthalpyPath, PureEnthalpy, T_REF};
@@ -112,12 +113,14 @@ pub struct System {
     /// `psat` with a placeholder where data are missing (for the bubble point, which is only
     /// computed when every present component has data).
     psat_filled: Vec<PsatModel>,
+    /// Heat of reaction per mol of key converted at 298.15 K, per reaction, J/mol.
+    hr_ref: Vec<f64>,
     /// Reactions.
     pub reactions: Vec<Reaction>,
     /// Search range for the effluent temperature, K.
     pub bounds: (f64, f64),
     /// Element symbols of the components' formulas, in order of first appearance.
-    elements: Vec<String>,
+    elements: Vec<Arc<str>>,
     /// Atoms of element `j` per molecule of component `i`, `atoms[i][j]`; `None` for a
     /// component without a formula.
     atoms: Vec<Option<Vec<f64>>>,
@@ -186,13 +189,14 @@ impl System {
                 }
             }
         }
+        let elements: Vec<Arc<str>> = elements.into_iter().map(Arc::from).collect();
         let atoms: Vec<Option<Vec<f64>>> = components
             .iter()
             .map(|c| {
                 c.formula.as_ref().map(|f| {
                     elements
                         .iter()
-                        .map(|el| f.0.iter().filter(|(e, _)| e == el).map(|(_, k)| k).sum())
+                        .map(|el| f.0.iter().filter(|(e, _)| e.as_str() == &**el).map(|(_, k)| k).sum())
                         .collect()
                 })
             })
@@ -226,7 +230,20 @@ impl System {
         }
         let psat: Vec<Option<PsatModel>> = components.iter().map(PsatModel::for_component).collect();
         let psat_filled = psat.iter().map(|m| m.unwrap_or(PsatModel::Dippr101([0.0; 5]))).collect();
-        Ok(System { components, paths, models, psat, psat_filled, reactions, bounds, elements, atoms })
+        let mut system = System {
+            components,
+            paths,
+            models,
+            psat,
+            psat_filled,
+            hr_ref: Vec::new(),
+            reactions,
+            bounds,
+            elements,
+            atoms,
+        };
+        system.hr_ref = (0..system.reactions.len()).map(|r| system.heat_of_reaction(r, T_REF)).collect();
+        Ok(system)
     }
 
     /// Number of components.
@@ -731,7 +748,7 @@ pub struct Outcome {
     /// Heat of reaction per mol of key converted at 298.15 K and at T_out, J/mol.
     pub heats_of_reaction: Vec<(f64, f64)>,
     /// Element flows in and out (mol/s of atoms), when every component has a formula.
-    pub elements: Vec<(String, f64, f64)>,
+    pub elements: Vec<(Arc<str>, f64, f64)>,
     /// Ideal bubble point, when a pressure is given and data exist.
     pub bubble: Option<BubblePoint>,
     /// Validity flags.
@@ -1127,7 +1144,8 @@ impl System {
         solution: (f64, f64, Option<Method>),
     ) -> Result<Outcome, SolveError> {
         let (t_out, duty, method) = solution;
-        let (h_out, cp_out) = self.stream_h_cp(&streams.out_flows, t_out);
+        let at = self.enthalpies_at(t_out);
+        let (h_out, cp_out) = at.stream_h_cp(&streams.out_flows);
         let out_total: f64 = streams.out_flows.iter().sum();
         let out_mass =
             streams.out_flows.iter().zip(&self.components).map(|(n, c)| n * c.molar_mass).sum::<f64>()
@@ -1137,8 +1155,13 @@ impl System {
         {
             return Err(SolveError::NotFinite("result (an input is too large)"));
         }
-        let heats_of_reaction = (0..self.reactions.len())
-            .map(|r| (self.heat_of_reaction(r, T_REF), self.heat_of_reaction(r, t_out)))
+        let heats_of_reaction = self
+            .reactions
+            .iter()
+            .zip(&self.hr_ref)
+            .map(|(reaction, &at_ref)| {
+                (at_ref, at.reaction_enthalpy(&reaction.nu) / -reaction.nu[reaction.key])
+            })
             .collect();
 
         let mut outcome = Outcome {
@@ -1188,7 +1211,7 @@ impl System {
             }
             let rel = if a_in != 0.0 { (a_out - a_in) / a_in } else { 0.0 };
             if rel.abs() > 1e-3 {
-                outcome.flags.push(Flag::ElementImbalance { element: el.clone(), relative: rel });
+                outcome.flags.push(Flag::ElementImbalance { element: el.to_string(), relative: rel });
             }
             elements.push((el.clone(), a_in, a_out));
         }
@@ -1198,7 +1221,15 @@ impl System {
     fn validity(&self, inputs: &Inputs, outcome: &mut Outcome) {
         let mut flags: Vec<Flag> = Vec::new();
         // Lowest and highest temperature each component is present at (feeds and effluent).
-        let mut span = vec![(f64::INFINITY, f64::NEG_INFINITY); self.len()];
+        let empty = (f64::INFINITY, f64::NEG_INFINITY);
+        let mut held = [empty; HELD];
+        let mut heap = Vec::new();
+        let span: &mut [(f64, f64)] = if self.len() <= HELD {
+            &mut held[..self.len()]
+        } else {
+            heap.resize(self.len(), empty);
+            &mut heap
+        };
         let streams = inputs
             .feeds
             .iter()
@@ -1213,7 +1244,7 @@ impl System {
                 }
             }
         }
-        for ((i, c), &(t_lo, t_hi)) in self.components.iter().enumerate().zip(&span) {
+        for ((i, c), &(t_lo, t_hi)) in self.components.iter().enumerate().zip(&*span) {
             if t_lo > t_hi {
                 continue; // absent everywhere
             }

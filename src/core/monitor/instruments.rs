@@ -153,6 +153,23 @@ impl Instruments {
         active: &mut Held,
     ) {
         let tag = &unit.tags[i];
+        let stuck_held = |active: &Held| {
+            active.iter().any(|a| {
+                a.cause == Cause::InstrumentFault
+                    && a.subject.strip_suffix(":stuck").is_some_and(|s| s == tag.name)
+            })
+        };
+        // Cheapest first (this runs for every tag and interval): the two newest values already
+        // differ by more than a flat window can span (its width is at most 1e-9 of its largest
+        // magnitude, or of 1, which is at most 1.000000002 times the newest one's), so the
+        // window is not flat, and with no stuck alert to clear there is nothing to do.
+        let mut newest = self.recent_tags.iter().rev().filter_map(|t| t.get(i).copied().flatten());
+        if let (Some(a), Some(b)) = (newest.next(), newest.next())
+            && (a - b).abs() > 2e-9 * a.abs().max(1.0)
+            && !stuck_held(active)
+        {
+            return;
+        }
         let (n, lo, hi) = self
             .recent_tags
             .iter()
@@ -170,12 +187,7 @@ impl Instruments {
             .and_then(|b| b.tag_noise.get(i).copied().flatten())
             .is_some_and(|n| n > 1e-9 * hi.abs().max(1.0));
         let moved = noisy || process_moved;
-        if !flat
-            && !active.iter().any(|a| {
-                a.cause == Cause::InstrumentFault
-                    && a.subject.strip_suffix(":stuck").is_some_and(|s| s == tag.name)
-            })
-        {
+        if !flat && !stuck_held(active) {
             return;
         }
         let subject = format!("{}:stuck", tag.name);
