@@ -8,7 +8,7 @@
 //! f64) with an in-process `replay` of them, and prints a table of the rates and their ratio.
 //! CPU time is this process's (every thread's scheduler run time, in ns).
 //!
-//! Run: `cargo bench --bench replay` (30 days, 3 repetitions, a few minutes); options after
+//! Run: `cargo bench --bench replay` (90 days, 3 repetitions, about a minute); options after
 //! `--`: `--days 365` for the full year, `--interval 1m|10m`, `--reports on|off`, `--reps R`.
 
 #![allow(missing_docs, clippy::unwrap_used)]
@@ -18,7 +18,7 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 /// Days of data by default: small enough for a run of a few minutes.
-const DEFAULT_DAYS: i64 = 30;
+const DEFAULT_DAYS: i64 = 90;
 
 const TAGS: [&str; 20] = [
     "FI-101", "TI-102", "JI-103", "TI-109", "PI-110", "TI-001", "XX-201", "XX-202", "XX-203", "XX-204",

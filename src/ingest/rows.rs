@@ -775,6 +775,22 @@ mod tests {
         assert_eq!(r[0].code(), "short_row");
     }
 
+    /// Columns the unit does not map are never decoded: text, empty cells or bytes that are
+    /// not UTF-8 there neither reject the row nor cost a number parse.
+    #[test]
+    fn unmapped_wide_columns_are_not_parsed() {
+        let tags = vec!["FI-1".to_string(), "TI-2".to_string()];
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let header: Vec<String> =
+            ["time", "XX-9", "FI-1", "XX-10", "TI-2", "XX-11"].iter().map(|s| s.to_string()).collect();
+        assert_eq!(p.header(1, &header), HeaderInfo::Mapped { missing_tags: vec![], ignored_columns: 3 });
+        let fields: [&[u8]; 6] = [b"2026-12-01T10:00:00Z", b"n/a", b"12.5", b"", b"351.2", b"\xff\xfe"];
+        let (mut samples, mut rejects) = (Vec::new(), Vec::new());
+        p.record(1, fields.len(), &|i| fields[i], &mut |s| samples.push(s), &mut rejects);
+        assert!(rejects.is_empty(), "{rejects:?}");
+        assert_eq!(samples.iter().map(|s| (s.tag, s.value)).collect::<Vec<_>>(), vec![(0, 12.5), (1, 351.2)]);
+    }
+
     #[test]
     fn a_wide_header_naming_a_tag_twice_makes_the_file_unusable() {
         let tags = vec!["FI-1".to_string(), "TI-2".to_string()];

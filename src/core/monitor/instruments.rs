@@ -377,7 +377,7 @@ impl StepWindow {
     fn step(&self, cfg: &MonitorConfig, b: &Baseline) -> Option<Step> {
         let (mut b1, mut b2) = ([0.0; 30], [0.0; 30]);
         let (rb, ra) = (self.col(&|x| x.1, 0..20, &mut b1), self.col(&|x| x.1, 20..30, &mut b2));
-        let (mb, ma) = (stats::median(&rb), stats::median(&ra));
+        let (mb, ma) = (stats::median(rb), stats::median(ra));
         let dr = ma - mb;
         let sig_i = b.sigma_interval.max(1e-3);
         // A step must stand out from what the step statistic does on steady data (six times
