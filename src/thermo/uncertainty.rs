@@ -340,19 +340,25 @@ pub fn combined(
         let sensitivity = if slope != 0.0 && df.is_finite() { -df / slope } else { 0.0 };
         (sensitivity * u).abs()
     };
+    // Contributions kept on the stack for the shares (computed again for a longer list).
+    const KEPT: usize = 32;
+    let mut kept = [0.0; KEPT];
     let mut variance = 0.0;
-    for item in items {
+    for (k, item) in items.iter().enumerate() {
         let c = contribution(&mut partials, *item);
+        if let Some(slot) = kept.get_mut(k) {
+            *slot = c;
+        }
         variance += c * c;
     }
     if variance <= 0.0 {
         return (variance.sqrt(), None);
     }
-    // Computed again rather than kept: no buffer per interval, the same arithmetic as the
-    // shares of `propagate` (and its choice among equal shares: the last).
+    // The same arithmetic as the shares of `propagate` (and its choice among equal shares:
+    // the last).
     let mut dominant: Option<(usize, f64)> = None;
     for (k, item) in items.iter().enumerate() {
-        let c = contribution(&mut partials, *item);
+        let c = if k < KEPT { kept[k] } else { contribution(&mut partials, *item) };
         let share = c * c / variance;
         if share > 0.0 && dominant.is_none_or(|(_, best)| share.total_cmp(&best).is_ge()) {
             dominant = Some((k, share));
