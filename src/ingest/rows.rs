@@ -424,9 +424,17 @@ impl RowParser {
             Plan::Unusable(_) => return None,
         };
         let name = self.ts_column.trim();
-        // Cheap first: a timestamp is rarely as long as the column's name.
+        // Cheap first (this runs for every record): a field shorter than the name, or whose
+        // first character after leading ASCII white space is ASCII and not the name's first
+        // letter in either case (a digit of a timestamp), cannot be the name once trimmed.
+        let first_differs =
+            |f: &[u8]| match (f.iter().find(|b| !b" \t\n\x0b\x0c\r".contains(b)), name.as_bytes().first()) {
+                (Some(b), Some(n)) => b.is_ascii() && !b.eq_ignore_ascii_case(n),
+                _ => false,
+            };
         let is_header = ts < n_fields
             && field(ts).len() >= name.len()
+            && !first_differs(field(ts))
             && std::str::from_utf8(field(ts)).is_ok_and(|t| t.trim().eq_ignore_ascii_case(name));
         if !is_header {
             return None;
@@ -789,6 +797,24 @@ mod tests {
         p.record(1, fields.len(), &|i| fields[i], &mut |s| samples.push(s), &mut rejects);
         assert!(rejects.is_empty(), "{rejects:?}");
         assert_eq!(samples.iter().map(|s| (s.tag, s.value)).collect::<Vec<_>>(), vec![(0, 12.5), (1, 351.2)]);
+    }
+
+    /// The header row again mid-file is known by its timestamp field holding the column's
+    /// name, trimmed and in any case; a timestamp (or anything else) is a row.
+    #[test]
+    fn a_header_row_again_is_recognised_in_any_case_and_padding() {
+        let tags = vec!["FI-1".to_string()];
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        p.header(1, &["time".to_string(), "FI-1".to_string()]);
+        for again in ["time,FI-1", " TIME ,FI-1", "\tTime,FI-1", "\u{a0}time,FI-1"] {
+            let (s, r) = parse(&mut p, 1, again);
+            assert!(s.is_empty(), "{again}");
+            assert_eq!(r.iter().map(Reject::code).collect::<Vec<_>>(), ["header_again"], "{again:?}");
+        }
+        for row in ["2026-12-01T10:00:00Z,1.5", "timer,1.5", " xtime,1.5"] {
+            let (_, r) = parse(&mut p, 1, row);
+            assert!(r.iter().all(|r| r.code() != "header_again"), "{row:?}: {r:?}");
+        }
     }
 
     #[test]
