@@ -875,7 +875,8 @@ impl System {
     }
 
     /// The balance residual `H_out(T) − H_in − Q + Q_loss` (W) with every quantity taken from
-    /// `inputs` and the unknown set to `value`. No flow checks; the uncertainty tests differentiate it numerically as the reference for the analytic partials.
+    /// `inputs` and the unknown set to `value`. No flow checks; the uncertainty tests
+    /// differentiate it numerically as the reference for the analytic partials.
     pub fn residual(&self, inputs: &Inputs, unknown: Unknown, value: f64) -> f64 {
         let t_meas = inputs.effluent_temperature.unwrap_or(f64::NAN);
         let duty = inputs.duty.unwrap_or(0.0);
