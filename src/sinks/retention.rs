@@ -43,9 +43,8 @@ fn dated(name: &str, unit: &str, r: &Retention) -> Option<(Date, Option<u32>)> {
     if let Some(d) = pick(&format!("alerts-{unit}-"), ".jsonl") {
         return Some((d.parse().ok()?, r.alerts_days));
     }
-    // Reports: shift-<unit>-YYYYMMDD-HHMM.html and the service's record beside it (.json)
-    let slug =
-        pick(&format!("shift-{unit}-"), ".html").or_else(|| pick(&format!("shift-{unit}-"), ".json"))?;
+    // Reports: shift-<unit>-YYYYMMDD-HHMM.html
+    let slug = pick(&format!("shift-{unit}-"), ".html")?;
     let ymd = slug.get(..8)?;
     let date =
         Date::new(ymd.get(..4)?.parse().ok()?, ymd.get(4..6)?.parse().ok()?, ymd.get(6..8)?.parse().ok()?)
@@ -96,7 +95,6 @@ mod tests {
             "ingest-R-1-2026-11-01.json",
             "alerts-R-1-2026-11-01.jsonl",
             "shift-R-1-20260901-0600.html",
-            "shift-R-1-20260901-0600.json",
             "shift-R-1-20261101-0600.html",
             "softtags-R-10-2026-01-01.csv", // another unit whose name starts the same
             "notes.txt",
@@ -108,12 +106,7 @@ mod tests {
         // 11-01 is 31 days before 12-02: past 30; 11-02 is exactly 30: kept.
         assert_eq!(
             expired(&names, "R-1", today, &r),
-            vec![
-                "softtags-R-1-2026-11-01.csv",
-                "ingest-R-1-2026-11-01.json",
-                "shift-R-1-20260901-0600.html",
-                "shift-R-1-20260901-0600.json"
-            ]
+            vec!["softtags-R-1-2026-11-01.csv", "ingest-R-1-2026-11-01.json", "shift-R-1-20260901-0600.html"]
         );
         assert!(expired(&names, "R-1", today, &Retention { reports_days: None, ..r }).len() == 2);
         let dir = tempfile::tempdir().unwrap();
@@ -123,7 +116,7 @@ mod tests {
                 if n.starts_with("shift-") { dir.path().join("reports") } else { dir.path().to_path_buf() };
             std::fs::write(sub.join(n), "x").unwrap();
         }
-        assert_eq!(prune(dir.path(), "R-1", today, &r).unwrap(), 4);
+        assert_eq!(prune(dir.path(), "R-1", today, &r).unwrap(), 3);
         assert!(dir.path().join("softtags-R-1-2026-11-02.csv").exists());
         assert!(dir.path().join("softtags-R-10-2026-01-01.csv").exists());
         assert!(!dir.path().join("reports/shift-R-1-20260901-0600.html").exists());

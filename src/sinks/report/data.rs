@@ -6,7 +6,7 @@
 //! shift), which the soft tags do not hold.
 
 use std::collections::BTreeMap;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use jiff::tz::TimeZone;
 use serde::{Deserialize, Serialize};
@@ -124,8 +124,10 @@ pub struct InputSeries {
 pub struct Inputs {
     /// The series.
     pub series: Vec<InputSeries>,
-    /// (interval end ms, one value per series).
-    pub points: Vec<(i64, Vec<Option<f32>>)>,
+    /// Interval ends, ms.
+    pub times: Vec<i64>,
+    /// Per series, one value per interval end.
+    pub values: Vec<Vec<Option<f32>>>,
 }
 
 /// What was read and computed in the shift, counted as it happened.
@@ -274,9 +276,21 @@ pub enum NoReport {
     },
 }
 
-/// The file the service writes beside a report.
-pub fn extra_path(output_dir: &Path, unit: &str, shift: &Shift) -> PathBuf {
-    output_dir.join(unit).join("reports").join(format!("shift-{unit}-{}.json", shift.slug))
+/// Where a report carries the service's record of its shift (an inert `<template>`, never
+/// rendered or printed): the figures the soft tags do not hold, as JSON.
+pub(super) const RECORD_OPEN: &str = "<template id=\"efftemp-record\">";
+
+/// The service's record of a shift, read from its report file (`None`: none there).
+pub fn read_record(report: &Path) -> Option<Extra> {
+    let html = std::fs::read_to_string(report).ok()?;
+    let start = html.find(RECORD_OPEN)? + RECORD_OPEN.len();
+    let end = start + html[start..].find("</template>")?;
+    let json = html[start..end]
+        .replace("&lt;", "<")
+        .replace("&gt;", ">")
+        .replace("&quot;", "\"")
+        .replace("&amp;", "&");
+    serde_json::from_str(&json).ok()
 }
 
 /// Load the report data of a unit for a past shift from its files; `NoReport` when the shift
@@ -294,9 +308,7 @@ pub fn load(unit: &ReportUnit, output_dir: &Path, shift: &Shift) -> Result<Repor
     }
     let events = load_events(&dir, &unit.name, shift.end_ms);
     let lifecycles = touching(lifecycles(&events), shift);
-    let recorded = std::fs::read_to_string(extra_path(output_dir, &unit.name, shift))
-        .ok()
-        .and_then(|t| serde_json::from_str::<Extra>(&t).ok());
+    let recorded = read_record(&super::report_path(output_dir, &unit.name, shift));
     let extra = recorded.unwrap_or_else(|| {
         let previous = load_rows(&dir, &unit.name, shift.prev_start_ms, shift.start_ms, &tz);
         from_files(unit, &rows, &previous, &lifecycles)

@@ -383,6 +383,7 @@ fn effectiveness_figure(d: &ReportData) -> Figure {
             let from = t.points.first().map_or(t0, |p| p.0);
             let to = proj.as_ref().map_or(end, |p| p.at_ms.max(end));
             let at = |ms: i64| line.a + line.b * ms as f64 / DAY_MS;
+            p.gaps_over(f64::INFINITY);
             p.line(&[(day(from), Some(at(from))), (day(to), Some(at(to)))], INK, 1.6, Some("7 4"), "trend");
         }
         let _ = write!(
@@ -411,8 +412,8 @@ fn effectiveness_figure(d: &ReportData) -> Figure {
         p.vline(day(pr.at_ms), LIMIT, "3 3", "projection");
         p.note(
             day(pr.at_ms),
-            limit + 0.35 * (ya.hi - ya.lo),
-            &format!("{} ({} to {})", pr.date, pr.range.0, pr.range.1),
+            limit + 0.09 * (ya.hi - ya.lo),
+            &format!("limit reached {} ({} to {})", pr.date, pr.range.0, pr.range.1),
             "projected-date",
         );
         let _ = write!(caption, "At the fitted rate the {}.", pr.text);
@@ -448,10 +449,15 @@ fn conversion_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
     let mut caption = String::from(
         "The conversion of the key reactant that makes the balance reproduce the measured temperature. ",
     );
-    if let (Some(c), Some(b)) = (design, base) {
+    let now = super::data::mean(d.rows.iter().filter_map(|r| r.conversion));
+    if let (Some(c), Some(b), Some(m)) = (design, base, now) {
         let _ = write!(
             caption,
-            "It sits at {} against the design {}: the offset absorbs the model's constant bias (heats of mixing, enthalpy path, meter bias), so the monitor judges its change from its own baseline, not its distance from design.",
+            "It averaged {} this shift, against its baseline {} (learned in steady operation) and the design {}. \
+             The baseline's offset from design absorbs the model's constant bias (heats of mixing, enthalpy path, meter bias), \
+             so the monitor judges the change from the baseline; heat the heater does not deliver shows here too, \
+             since the balance alone cannot tell it from a change of the reaction.",
+            fmt_num(m, 3),
             fmt_num(b, 3),
             fmt_num(c, 3)
         );
@@ -484,11 +490,12 @@ fn input_figures(d: &ReportData, x: &ShiftAxis) -> Vec<Figure> {
     groups
         .iter()
         .enumerate()
-        .filter(|_| !inputs.points.is_empty())
+        .filter(|_| !inputs.times.is_empty())
         .map(|(gi, (group, unit, members))| {
-            let vals = inputs.points.iter().flat_map(|(_, v)| {
-                members.iter().filter_map(|m| v.get(*m).copied().flatten().map(f64::from))
-            });
+            let vals = members
+                .iter()
+                .filter_map(|m| inputs.values.get(*m))
+                .flat_map(|v| v.iter().filter_map(|x| x.map(f64::from)));
             let id = ids[gi.min(ids.len() - 1)];
             let what = match group.as_str() {
                 "duty" => "Heater duty",
@@ -499,10 +506,13 @@ fn input_figures(d: &ReportData, x: &ShiftAxis) -> Vec<Figure> {
             let mut legend = Vec::new();
             for (k, m) in members.iter().enumerate() {
                 let color = SERIES[k % SERIES.len()];
+                let empty = Vec::new();
+                let values = inputs.values.get(*m).unwrap_or(&empty);
                 let pts: Vec<(f64, Option<f64>)> = inputs
-                    .points
+                    .times
                     .iter()
-                    .map(|(t, v)| (hours_of(*t, &d.shift), v.get(*m).copied().flatten().map(f64::from)))
+                    .zip(values)
+                    .map(|(t, v)| (hours_of(*t, &d.shift), v.map(f64::from)))
                     .collect();
                 p.line(&pts, color, 1.3, None, &inputs.series[*m].label);
                 legend.push((inputs.series[*m].label.clone(), color.to_string(), "line"));
@@ -572,7 +582,7 @@ figure{margin:8px 0 14px;break-inside:avoid}figure svg{width:100%;height:auto;di
 .legend i.dash{border-top-style:dashed}.legend i.dot-line{border-top-style:dotted}.legend i.box{height:10px;border:0}.legend i.dot{width:8px;height:8px;border-radius:4px;border:0}\
 .states{font-size:12px}.states span{display:inline-block;padding:0 6px;margin-right:6px;border:1px solid #ccc}\
 footer{font-size:12px;color:#4f5f6b;margin-top:24px;border-top:1px solid #d5dbe0;padding-top:8px}\
-.spark{width:160px;height:34px}\
+.spark{width:100%;max-width:160px;height:auto;display:block}\
 @media (max-width:600px){main{padding:10px}.plotwrap{overflow-x:auto}.plotwrap svg{min-width:560px}h1{font-size:18px}.cards{grid-template-columns:1fr 1fr}table.alerts col.ev{width:34%}\
 table.alerts th:nth-child(1),table.alerts td:nth-child(1){width:2em}}\
 @page{margin:12mm 10mm}\
@@ -590,6 +600,15 @@ pub fn render_html(d: &ReportData) -> String {
     write_data_quality(&mut s, d);
     write_validity(&mut s, d);
     write_footer(&mut s, d);
+    // The record the page was drawn from, for `efftemp report` (inert: never rendered).
+    if d.live_until_ms.is_none()
+        && let Ok(json) = serde_json::to_string(&d.extra)
+    {
+        s.push_str(super::data::RECORD_OPEN);
+        s.push_str(&esc(&json));
+        s.push_str("</template>");
+    }
+    s.push_str("</body></html>");
     s
 }
 
@@ -917,7 +936,7 @@ fn write_validity(s: &mut String, d: &ReportData) {
 fn write_footer(s: &mut String, d: &ReportData) {
     let _ = writeln!(
         s,
-        "<footer><p><b>Conventions.</b> Residual = measured − predicted (positive: the effluent is hotter than the balance says), as in the soft tags, the alerts and <code>efftemp calc</code>. Temperatures in {}, temperature differences in {}. Times in local time ({}).</p><p><b>Caution.</b> {}</p><p>Predicted temperatures come from an ideal-solution, liquid-only enthalpy balance; the residual is judged against a baseline learned on this unit's own steady operation.</p></footer></main></body></html>",
+        "<footer><p><b>Conventions.</b> Residual = measured − predicted (positive: the effluent is hotter than the balance says), as in the soft tags, the alerts and <code>efftemp calc</code>. Temperatures in {}, temperature differences in {}. Times in local time ({}).</p><p><b>Caution.</b> {}</p><p>Predicted temperatures come from an ideal-solution, liquid-only enthalpy balance; the residual is judged against a baseline learned on this unit's own steady operation.</p></footer></main>",
         d.unit_symbol(),
         d.delta_symbol(),
         esc(d.tz.iana_name().unwrap_or("local")),

@@ -4,9 +4,9 @@
 //!
 //! The service renders a report from what it holds in memory (`shift`: the shift's rows and
 //! inputs, the monitor's baseline, limits, blocks and trend, the alert book), never by reading
-//! the soft-tag history back; beside each report it writes the figures the soft tags do not
-//! hold (`shift-<unit>-<slug>.json`), so that `efftemp report` for a past shift can render the
-//! same page from the files (`data::load`).
+//! the soft-tag history back; each report carries the figures the soft tags do not hold (an
+//! inert `<template>` of JSON), so that `efftemp report` for a past shift can render the same
+//! page from the files (`data::load`).
 //!
 //! `data` is what a report shows, `shift` gathers it in memory, `svg` draws the plots, `html`
 //! lays out the pages, `text` writes the summary, `live` is the board the HTTP pages read, and
@@ -26,7 +26,7 @@ use std::path::{Path, PathBuf};
 
 pub use self::data::{
     AlertView, BaselineView, BlockPoint, Extra, IngestDay, InputSeries, Inputs, Limits, MonitorView,
-    NoReport, Quality, ReportData, Row, ShelfView, extra_path, load, load_events, load_rows,
+    NoReport, Quality, ReportData, Row, ShelfView, load, load_events, load_rows, read_record,
 };
 pub use self::html::{OverviewUnit, Projection, overview_html, projection, render_html};
 pub use self::live::{Board, SharedBook, board};
@@ -142,16 +142,13 @@ pub fn report_path(output_dir: &Path, unit: &str, shift: &Shift) -> PathBuf {
     output_dir.join(unit).join("reports").join(format!("shift-{unit}-{}.html", shift.slug))
 }
 
-/// Write a report (the HTML page and, beside it, the record of what the soft tags do not
-/// hold); returns its path and the text summary.
+/// Write a report (the HTML page, carrying the record of what the soft tags do not hold);
+/// returns its path and the text summary.
 pub fn write_report(data: &ReportData, output_dir: &Path) -> std::io::Result<(PathBuf, String)> {
     let path = report_path(output_dir, &data.unit.0, &data.shift);
     if let Some(dir) = path.parent() {
         std::fs::create_dir_all(dir)?;
     }
-    let extra = extra_path(output_dir, &data.unit.0, &data.shift);
-    let json = serde_json::to_vec(&data.extra).map_err(std::io::Error::other)?;
-    atomic_write(&extra, &json)?;
     atomic_write(&path, render_html(data).as_bytes())?;
     Ok((path, render_text(data)))
 }
@@ -188,7 +185,7 @@ pub fn write_from_files(
     if let Some(dir) = path.parent() {
         std::fs::create_dir_all(dir)?;
     }
-    // The service's record of the shift is read, never replaced: the files alone hold less.
+    // The page carries the record it was rendered from (the service's, when it wrote one).
     atomic_write(&path, render_html(&data).as_bytes())?;
     Ok((path, render_text(&data)))
 }

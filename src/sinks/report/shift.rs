@@ -66,6 +66,8 @@ pub struct ShiftBook {
     /// After the previous interval, and after this one (from `observe`).
     held: Held,
     next: Held,
+    /// `next` differs from `held`.
+    next_changed: bool,
     new_blocks: Vec<BlockPoint>,
     last_block_ms: Option<i64>,
     read_delta: (u64, u64),
@@ -99,6 +101,7 @@ impl ShiftBook {
             eff_slots: VecDeque::new(),
             held: Held::default(),
             next: Held::default(),
+            next_changed: false,
             new_blocks: Vec::new(),
             last_block_ms: None,
             read_delta: (0, 0),
@@ -144,6 +147,7 @@ impl ShiftBook {
         }
         let book = core.alerts();
         if changed || book.shelves.len() != self.next.shelves.len() {
+            self.next_changed = true;
             self.next.active = Arc::new(
                 book.active()
                     .into_iter()
@@ -360,7 +364,10 @@ impl ShiftBook {
                 self.shelves.push(s.clone());
             }
         }
-        self.held = self.next.clone();
+        if self.next_changed || self.fresh {
+            self.held = self.next.clone();
+            self.next_changed = false;
+        }
         self.fresh = false;
     }
 
@@ -404,12 +411,10 @@ impl ShiftBook {
         let n = u.inputs.len();
         let inputs = Inputs {
             series: u.inputs.iter().map(|i| i.series.clone()).collect(),
-            points: self
-                .rows
-                .iter()
-                .enumerate()
-                .map(|(k, r)| {
-                    (r.t_ms, self.inputs.get(k * n..(k + 1) * n).map_or_else(Vec::new, <[_]>::to_vec))
+            times: self.rows.iter().map(|r| r.t_ms).collect(),
+            values: (0..n)
+                .map(|j| {
+                    (0..self.rows.len()).map(|k| self.inputs.get(k * n + j).copied().flatten()).collect()
                 })
                 .collect(),
         };

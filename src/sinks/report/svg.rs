@@ -78,12 +78,99 @@ pub(super) fn nice_ticks(a: &Axis, n: usize) -> (Vec<f64>, usize) {
 
 /// A tick value with `decimals`, never "-0".
 pub(super) fn fmt_num(v: f64, decimals: usize) -> String {
-    let s = format!("{v:.decimals$}");
-    if s.trim_start_matches('-').chars().all(|c| c == '0' || c == '.') {
-        s.trim_start_matches('-').to_string()
-    } else {
-        s.replace('-', "−")
+    let d = decimals.min(9);
+    let scale = 10f64.powi(d as i32);
+    let scaled = v * scale;
+    if !scaled.is_finite() || scaled.abs() >= 9e15 {
+        return format!("{v:.d$}").replace('-', "−");
     }
+    let t = (scaled + 0.5f64.copysign(scaled)) as i64;
+    let a = t.unsigned_abs();
+    let p = 10u64.pow(d as u32);
+    let mut s = String::with_capacity(16);
+    if t < 0 {
+        s.push('−');
+    }
+    let _ = write!(s, "{}", a / p);
+    if d > 0 {
+        let _ = write!(s, ".{:0d$}", a % p);
+    }
+    s
+}
+
+/// Append a coordinate to one decimal (integer arithmetic: float formatting is most of the
+/// cost of a report).
+pub(super) fn push_coord(out: &mut String, v: f64) {
+    let mut buf = [0u8; 24];
+    out.push_str(coord(v, &mut buf));
+}
+
+/// `v` to one decimal in `buf` (integer arithmetic; non-finite values are 0).
+fn coord(v: f64, buf: &mut [u8; 24]) -> &str {
+    let scaled = v * 10.0;
+    // Round half away from zero by truncating (no libm call).
+    let t = if scaled.is_finite() { (scaled + 0.5f64.copysign(scaled)).clamp(-1e15, 1e15) as i64 } else { 0 };
+    let mut a = t.unsigned_abs();
+    let mut i = buf.len();
+    // The tenths digit, the point, then the integer part, then the sign.
+    i -= 1;
+    buf[i] = b'0' + (a % 10) as u8;
+    a /= 10;
+    i -= 1;
+    buf[i] = b'.';
+    loop {
+        i -= 1;
+        buf[i] = b'0' + (a % 10) as u8;
+        a /= 10;
+        if a == 0 {
+            break;
+        }
+    }
+    if t < 0 {
+        i -= 1;
+        buf[i] = b'-';
+    }
+    std::str::from_utf8(&buf[i..]).unwrap_or("0.0")
+}
+
+/// A coordinate written to one decimal (integer arithmetic, see [`push_coord`]).
+struct C(f64);
+
+impl std::fmt::Display for C {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let mut buf = [0u8; 24];
+        f.write_str(coord(self.0, &mut buf))
+    }
+}
+
+/// Append the point "x,y ".
+fn push_point(out: &mut String, x: f64, y: f64) {
+    push_coord(out, x);
+    out.push(',');
+    push_coord(out, y);
+    out.push(' ');
+}
+
+/// The points of a polyline (pixels) without those that lie within 0.35 px of the line
+/// between their neighbours: the same picture with fewer numbers to write.
+fn simplify(p: &[(f64, f64)], out: &mut Vec<(f64, f64)>) {
+    out.clear();
+    let n = p.len();
+    if n < 3 {
+        out.extend_from_slice(p);
+        return;
+    }
+    out.push(p[0]);
+    for i in 1..n - 1 {
+        let a = out[out.len() - 1];
+        let (b, c) = (p[i], p[i + 1]);
+        let dx = c.0 - a.0;
+        let on_line = if dx.abs() < 1e-9 { b.1 } else { a.1 + (c.1 - a.1) * (b.0 - a.0) / dx };
+        if (b.1 - on_line).abs() > 0.35 || b.0 - a.0 > 40.0 {
+            out.push(b);
+        }
+    }
+    out.push(p[n - 1]);
 }
 
 /// A plot being drawn: its frame (size and margins), its axes and the SVG written so far.
@@ -142,23 +229,24 @@ impl Plot {
         let (x0, y0, x1, y1) = (self.left, self.top, self.w - self.right, self.h - self.bottom);
         let (ticks, dec) = nice_ticks(&self.y, if self.h < 200.0 { 3 } else { 5 });
         for tv in ticks {
-            let y = self.py(tv);
+            let yv = self.py(tv);
+            let y = C(yv);
             let _ = write!(
                 self.svg,
-                r#"<line x1="{x0}" y1="{y:.1}" x2="{x1}" y2="{y:.1}" stroke="{GRID}"/><text x="{:.1}" y="{:.1}" font-size="12" text-anchor="end" fill="{INK}">{}</text>"#,
-                x0 - 6.0,
-                y + 4.0,
+                r#"<line x1="{x0}" y1="{y}" x2="{x1}" y2="{y}" stroke="{GRID}"/><text x="{}" y="{}" font-size="12" text-anchor="end" fill="{INK}">{}</text>"#,
+                C(x0 - 6.0),
+                C(yv + 4.0),
                 fmt_num(tv, dec)
             );
         }
         let _ = write!(
             self.svg,
-            r#"<line x1="{x0}" y1="{y1}" x2="{x1}" y2="{y1}" stroke="{INK}"/><line x1="{x0}" y1="{y0}" x2="{x0}" y2="{y1}" stroke="{INK}"/><line x1="{x1}" y1="{y0}" x2="{x1}" y2="{y1}" stroke="{GRID}"/><text x="13" y="{:.1}" font-size="12" fill="{INK}" transform="rotate(-90 13 {:.1})" text-anchor="middle">{}</text><text x="{:.1}" y="{:.1}" font-size="12" fill="{INK}" text-anchor="middle">{}</text>"#,
-            (y0 + y1) / 2.0,
-            (y0 + y1) / 2.0,
+            r#"<line x1="{x0}" y1="{y1}" x2="{x1}" y2="{y1}" stroke="{INK}"/><line x1="{x0}" y1="{y0}" x2="{x0}" y2="{y1}" stroke="{INK}"/><line x1="{x1}" y1="{y0}" x2="{x1}" y2="{y1}" stroke="{GRID}"/><text x="13" y="{}" font-size="12" fill="{INK}" transform="rotate(-90 13 {})" text-anchor="middle">{}</text><text x="{}" y="{}" font-size="12" fill="{INK}" text-anchor="middle">{}</text>"#,
+            C((y0 + y1) / 2.0),
+            C((y0 + y1) / 2.0),
             esc(y_label),
-            (x0 + x1) / 2.0,
-            self.h - 6.0,
+            C((x0 + x1) / 2.0),
+            C(self.h - 6.0),
             esc(x_label)
         );
     }
@@ -190,10 +278,11 @@ impl Plot {
             let x = self.px(*v);
             let _ = write!(
                 self.svg,
-                r#"<line x1="{x:.1}" y1="{y1}" x2="{x:.1}" y2="{:.1}" stroke="{INK}"/><text x="{x:.1}" y="{:.1}" font-size="12" text-anchor="middle" fill="{INK}">{}</text>"#,
-                y1 + 4.0,
-                y1 + 17.0,
-                esc(label)
+                r#"<line x1="{x_c}" y1="{y1}" x2="{x_c}" y2="{}" stroke="{INK}"/><text x="{x_c}" y="{}" font-size="12" text-anchor="middle" fill="{INK}">{}</text>"#,
+                C(y1 + 4.0),
+                C(y1 + 17.0),
+                esc(label),
+                x_c = C(x)
             );
         }
     }
@@ -207,10 +296,11 @@ impl Plot {
         let fill = if fill == "nodata" { format!("url(#nodata-{})", self.id) } else { fill.to_string() };
         let _ = write!(
             self.back,
-            r#"<rect class="shade {class}" x="{a:.1}" y="{}" width="{:.1}" height="{}" fill="{fill}"/>"#,
+            r#"<rect class="shade {class}" x="{a_c}" y="{}" width="{}" height="{}" fill="{fill}"/>"#,
             self.top,
-            b - a,
-            self.h - self.top - self.bottom
+            C(b - a),
+            self.h - self.top - self.bottom,
+            a_c = C(a)
         );
     }
 
@@ -223,43 +313,42 @@ impl Plot {
         dash: Option<&str>,
         name: &str,
     ) {
-        let mut seg = String::new();
-        let mut n = 0usize;
+        let mut seg: Vec<(f64, f64)> = Vec::with_capacity(pts.len());
+        let mut kept: Vec<(f64, f64)> = Vec::with_capacity(pts.len());
         let mut last_x = f64::NEG_INFINITY;
         let clip = self.clip();
         let dash = dash.map_or(String::new(), |d| format!(r#" stroke-dasharray="{d}""#));
-        let flush = |seg: &mut String, n: &mut usize, svg: &mut String| {
-            if *n > 1 {
+        let name = esc(name);
+        let flush = |seg: &mut Vec<(f64, f64)>, kept: &mut Vec<(f64, f64)>, svg: &mut String| {
+            if seg.len() > 1 {
                 let _ = write!(
                     svg,
-                    r#"<polyline class="series" data-series="{}" fill="none" stroke="{color}" stroke-width="{width}"{dash}{clip} points="{}"/>"#,
-                    esc(name),
-                    seg.trim_end()
+                    r#"<polyline class="series" data-series="{name}" fill="none" stroke="{color}" stroke-width="{width}"{dash}{clip} points=""#
                 );
-            } else if *n == 1 {
-                // A lone point between gaps is drawn as a dot.
-                let mut it = seg.trim().split(',');
-                if let (Some(x), Some(y)) = (it.next(), it.next()) {
-                    let _ = write!(svg, r#"<circle cx="{x}" cy="{y}" r="1.8" fill="{color}"{clip}/>"#);
+                simplify(seg, kept);
+                for (x, y) in kept.iter() {
+                    push_point(svg, *x, *y);
                 }
+                svg.pop();
+                svg.push_str("\"/>");
+            } else if let Some((x, y)) = seg.first() {
+                // A lone point between gaps is drawn as a dot.
+                let _ =
+                    write!(svg, r#"<circle cx="{}" cy="{}" r="1.8" fill="{color}"{clip}/>"#, C(*x), C(*y));
             }
             seg.clear();
-            *n = 0;
         };
         for (x, y) in pts {
             if x - last_x > self.max_gap {
-                flush(&mut seg, &mut n, &mut self.svg);
+                flush(&mut seg, &mut kept, &mut self.svg);
             }
             last_x = *x;
             match y {
-                Some(y) if y.is_finite() => {
-                    let _ = write!(seg, "{:.1},{:.1} ", self.px(*x), self.py(*y));
-                    n += 1;
-                }
-                _ => flush(&mut seg, &mut n, &mut self.svg),
+                Some(y) if y.is_finite() => seg.push((self.px(*x), self.py(*y))),
+                _ => flush(&mut seg, &mut kept, &mut self.svg),
             }
         }
-        flush(&mut seg, &mut n, &mut self.svg);
+        flush(&mut seg, &mut kept, &mut self.svg);
     }
 
     /// Dots at the points.
@@ -268,9 +357,9 @@ impl Plot {
         for (x, y) in pts {
             let _ = write!(
                 self.svg,
-                r#"<circle class="{class}" cx="{:.1}" cy="{:.1}" r="{r}" fill="{color}"{clip}/>"#,
-                self.px(*x),
-                self.py(*y)
+                r#"<circle class="{class}" cx="{}" cy="{}" r="{r}" fill="{color}"{clip}/>"#,
+                C(self.px(*x)),
+                C(self.py(*y))
             );
         }
     }
@@ -290,19 +379,19 @@ impl Plot {
         if pts.len() < 2 {
             return;
         }
-        let mut d = String::new();
-        for (x, lo, _) in pts {
-            let _ = write!(d, "{:.1},{:.1} ", self.px(*x), self.py(*lo));
-        }
-        for (x, _, hi) in pts.iter().rev() {
-            let _ = write!(d, "{:.1},{:.1} ", self.px(*x), self.py(*hi));
-        }
+        let lo: Vec<(f64, f64)> = pts.iter().map(|(x, lo, _)| (self.px(*x), self.py(*lo))).collect();
+        let hi: Vec<(f64, f64)> = pts.iter().rev().map(|(x, _, hi)| (self.px(*x), self.py(*hi))).collect();
         let clip = self.clip();
-        let _ = write!(
-            self.svg,
-            r#"<polygon class="band" fill="{BAND}" stroke="none"{clip} points="{}"/>"#,
-            d.trim_end()
-        );
+        let _ = write!(self.svg, r#"<polygon class="band" fill="{BAND}" stroke="none"{clip} points=""#);
+        let mut kept = Vec::with_capacity(pts.len());
+        for edge in [&lo, &hi] {
+            simplify(edge, &mut kept);
+            for (x, y) in &kept {
+                push_point(&mut self.svg, *x, *y);
+            }
+        }
+        self.svg.pop();
+        self.svg.push_str("\"/>");
     }
 
     /// A horizontal limit line across the frame, labelled in the right margin.
@@ -313,9 +402,10 @@ impl Plot {
         }
         let _ = write!(
             self.svg,
-            r#"<line class="limit {class}" data-value="{y}" x1="{}" y1="{yy:.1}" x2="{}" y2="{yy:.1}" stroke="{color}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
+            r#"<line class="limit {class}" data-value="{y}" x1="{}" y1="{yy_c}" x2="{}" y2="{yy_c}" stroke="{color}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
             self.left,
-            self.w - self.right
+            self.w - self.right,
+            yy_c = C(yy)
         );
         self.labels.push((yy, color.to_string(), label.to_string()));
     }
@@ -328,9 +418,10 @@ impl Plot {
         }
         let _ = write!(
             self.svg,
-            r#"<line class="{class}" x1="{xx:.1}" y1="{}" x2="{xx:.1}" y2="{}" stroke="{color}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
+            r#"<line class="{class}" x1="{xx_c}" y1="{}" x2="{xx_c}" y2="{}" stroke="{color}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
             self.top,
-            self.h - self.bottom
+            self.h - self.bottom,
+            xx_c = C(xx)
         );
     }
 
@@ -340,9 +431,10 @@ impl Plot {
         let yy = self.py(y);
         let _ = write!(
             self.svg,
-            r#"<rect class="{class}" x="{a:.1}" y="{:.1}" width="{:.1}" height="8" fill="{color}" fill-opacity="0.35"/>"#,
-            yy - 4.0,
-            (b - a).max(2.0)
+            r#"<rect class="{class}" x="{a_c}" y="{}" width="{}" height="8" fill="{color}" fill-opacity="0.35"/>"#,
+            C(yy - 4.0),
+            C((b - a).max(2.0)),
+            a_c = C(a)
         );
     }
 
@@ -362,8 +454,10 @@ impl Plot {
         let yy = self.py(y).clamp(self.top + 14.0, self.h - self.bottom - 6.0);
         let _ = write!(
             self.svg,
-            r#"<text class="note {class}" x="{xx:.1}" y="{yy:.1}" font-size="12.5" font-weight="600" text-anchor="{anchor}" fill="{INK}" stroke="white" stroke-width="4" paint-order="stroke">{}</text>"#,
-            esc(text)
+            r#"<text class="note {class}" x="{xx_c}" y="{yy_c}" font-size="12.5" font-weight="600" text-anchor="{anchor}" fill="{INK}" stroke="white" stroke-width="4" paint-order="stroke">{}</text>"#,
+            esc(text),
+            xx_c = C(xx),
+            yy_c = C(yy)
         );
     }
 
@@ -375,18 +469,19 @@ impl Plot {
         }
         let _ = write!(
             self.svg,
-            r#"<g class="alert-marker"><line x1="{xx:.1}" y1="{}" x2="{xx:.1}" y2="{}" stroke="{MARK}" stroke-width="1.5" stroke-dasharray="2 3"/><polygon points="{:.1},{} {:.1},{} {xx:.1},{}" fill="{MARK}"/><text x="{:.1}" y="{}" font-size="11" fill="{MARK}">{}</text><title>{}</title></g>"#,
+            r#"<g class="alert-marker"><line x1="{xx_c}" y1="{}" x2="{xx_c}" y2="{}" stroke="{MARK}" stroke-width="1.5" stroke-dasharray="2 3"/><polygon points="{},{} {},{} {xx_c},{}" fill="{MARK}"/><text x="{}" y="{}" font-size="11" fill="{MARK}">{}</text><title>{}</title></g>"#,
             self.top,
             self.h - self.bottom,
-            xx - 5.0,
+            C(xx - 5.0),
             self.top,
-            xx + 5.0,
+            C(xx + 5.0),
             self.top,
             self.top + 8.0,
-            xx + 6.0,
+            C(xx + 6.0),
             self.top + 10.0,
             esc(label),
-            esc(tooltip)
+            esc(tooltip),
+            xx_c = C(xx)
         );
     }
 
@@ -413,8 +508,10 @@ impl Plot {
         for ((_, color, text), y) in self.labels.iter().zip(&ys) {
             let _ = write!(
                 self.svg,
-                r#"<text class="limit-label" x="{x:.1}" y="{y:.1}" font-size="11.5" fill="{color}">{}</text>"#,
-                esc(text)
+                r#"<text class="limit-label" x="{x_c}" y="{y_c}" font-size="11.5" fill="{color}">{}</text>"#,
+                esc(text),
+                x_c = C(x),
+                y_c = C(*y)
             );
         }
         self.back.push_str(&self.svg);
@@ -468,6 +565,33 @@ mod tests {
         );
         let (t, d) = nice_ticks(&Axis { lo: 0.0, hi: 100.0 }, 5);
         assert_eq!((t.len(), d), (6, 0));
+    }
+
+    #[test]
+    fn a_simplified_line_keeps_its_corners_and_drops_points_on_straight_runs() {
+        let p: Vec<(f64, f64)> =
+            (0..100).map(|i| (f64::from(i), if i < 50 { 10.0 } else { 10.0 + f64::from(i - 50) })).collect();
+        let mut out = Vec::new();
+        simplify(&p, &mut out);
+        assert!(out.len() < 10, "{out:?}");
+        assert!(out.contains(&(0.0, 10.0)) && out.contains(&(99.0, 59.0)), "{out:?}");
+        assert!(out.iter().any(|q| (q.0 - 50.0).abs() <= 1.0), "the corner is kept: {out:?}");
+        // Every dropped point lies within 0.5 px of the simplified line.
+        for q in &p {
+            let w = out.windows(2).find(|w| w[0].0 <= q.0 && q.0 <= w[1].0).unwrap();
+            let y = w[0].1 + (w[1].1 - w[0].1) * (q.0 - w[0].0) / (w[1].0 - w[0].0).max(1e-9);
+            assert!((y - q.1).abs() < 0.5, "{q:?} vs {y}");
+        }
+    }
+
+    #[test]
+    fn coordinates_are_written_to_one_decimal() {
+        let mut s = String::new();
+        for v in [0.0, 1.25, -0.04, -3.96, 123.449, 1e300] {
+            push_coord(&mut s, v);
+            s.push(' ');
+        }
+        assert_eq!(s, "0.0 1.3 0.0 -4.0 123.4 1000000000000000.0 ");
     }
 
     #[test]
