@@ -17,6 +17,7 @@ use std::sync::Arc;
 use tracing::{info, warn};
 
 use crate::config::SiteConfig;
+use crate::ingest::tail::PollLimits;
 use crate::sinks::checkpoint::StateDir;
 use crate::sinks::syslog::Forwarder;
 
@@ -50,6 +51,21 @@ pub struct Pipeline {
     pub notes: Vec<String>,
     /// Request entries (or a request folder) already reported as refused and left in place.
     refused_requests: std::collections::HashSet<PathBuf>,
+    /// The unit a bounded pass starts with (the one after the unit that spent the last
+    /// pass's budget), so that every unit gets its turn while one of them catches up.
+    next_unit: usize,
+}
+
+/// How much one pass may do (see [`Pipeline::pass_within`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PassLimits {
+    /// Monotonic time, ms.
+    pub now_ms: u64,
+    /// Wall-clock time, ms since the Unix epoch (to tell a backlog of old files from files
+    /// being written), if the caller has one.
+    pub wall_ms: Option<i64>,
+    /// Export bytes to read at most in this pass, over all units (`u64::MAX`: no limit).
+    pub budget_bytes: u64,
 }
 
 /// What a pass did.
@@ -59,6 +75,8 @@ pub struct PassSummary {
     pub records: u64,
     /// Intervals closed.
     pub intervals: u64,
+    /// The pass stopped at its budget: the files hold more (call again at once).
+    pub more: bool,
 }
 
 /// Errors of the pipeline.
@@ -80,7 +98,13 @@ pub enum PipelineError {
 impl Pipeline {
     /// A pipeline of no units (a placeholder while the real one is on another thread).
     pub(crate) fn empty() -> Pipeline {
-        Pipeline { units: Vec::new(), state: None, notes: Vec::new(), refused_requests: Default::default() }
+        Pipeline {
+            units: Vec::new(),
+            state: None,
+            notes: Vec::new(),
+            refused_requests: Default::default(),
+            next_unit: 0,
+        }
     }
 
     /// Build the pipeline for a site.
@@ -89,13 +113,17 @@ impl Pipeline {
             Mode::Live => {
                 let dir = StateDir::open(&site.state_dir)?;
                 let (stored, notes): (Option<Stored>, Vec<String>) = dir.load();
-                let out =
-                    Outputs { site, dir: site.output_dir.clone(), stdout: site.service.alerts_to_stdout };
+                let out = Outputs {
+                    site,
+                    dir: site.output_dir.clone(),
+                    stdout: site.service.alerts_to_stdout,
+                    state_dir: Some(site.state_dir.clone()),
+                };
                 (Some(dir), stored.map(Stored::into_units).unwrap_or_default(), notes, out)
             }
             Mode::Replay { output } => {
                 let dir = output.clone().unwrap_or_else(|| site.output_dir.clone());
-                (None, BTreeMap::new(), Vec::new(), Outputs { site, dir, stdout: false })
+                (None, BTreeMap::new(), Vec::new(), Outputs { site, dir, stdout: false, state_dir: None })
             }
         };
         let mut units = Vec::new();
@@ -105,21 +133,57 @@ impl Pipeline {
                 .map_err(|source| PipelineError::Output { unit: u.spec.name.clone(), source })?;
             units.push(rt);
         }
-        Ok(Pipeline { units, state, notes, refused_requests: Default::default() })
+        Ok(Pipeline { units, state, notes, refused_requests: Default::default(), next_unit: 0 })
     }
 
-    /// One pass over every unit.
+    /// One pass over every unit, reading everything there is.
     pub fn pass(&mut self, now_mono: u64, flush: bool) -> Result<PassSummary, PipelineError> {
+        self.pass_within(&PassLimits { now_ms: now_mono, wall_ms: None, budget_bytes: u64::MAX }, flush)
+    }
+
+    /// One bounded pass: the units, starting with the one after the unit that stopped the
+    /// last pass, read until `limits.budget_bytes` are spent between them; the units after
+    /// that are left for the next pass. [`PassSummary::more`] says that a unit's files hold
+    /// more than this pass read (or a unit was left out): the caller calls again at once, with
+    /// a checkpoint, a watchdog keep-alive and a look at its shutdown signal in between. The
+    /// records of a unit arrive in the same order as in one unlimited pass, so the outputs do
+    /// not depend on the budget.
+    pub fn pass_within(&mut self, limits: &PassLimits, flush: bool) -> Result<PassSummary, PipelineError> {
         let mut summary = PassSummary::default();
         self.apply_requests();
         for u in &mut self.units {
             u.new_events.clear();
             u.new_reports.clear();
+        }
+        let n = self.units.len();
+        let start = if n == 0 { 0 } else { self.next_unit % n };
+        let mut budget = limits.budget_bytes;
+        for k in 0..n {
+            let i = (start + k) % n;
+            let u = &mut self.units[i];
+            if budget == 0 {
+                // Left for the next pass, which starts with this unit.
+                self.next_unit = i;
+                summary.more = true;
+                break;
+            }
             let before = u.counters.intervals;
-            summary.records += u
-                .pass(now_mono, flush)
+            let poll = PollLimits { now_ms: limits.now_ms, wall_ms: limits.wall_ms, budget_bytes: budget };
+            let stats = u
+                .pass(&poll, flush)
                 .map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;
+            summary.records += stats.records;
             summary.intervals += u.counters.intervals - before;
+            summary.more |= stats.more;
+            if budget != u64::MAX {
+                budget = budget.saturating_sub(stats.bytes_read);
+                if stats.more {
+                    budget = 0;
+                }
+            }
+            if budget == 0 {
+                self.next_unit = i + 1;
+            }
         }
         Ok(summary)
     }
@@ -173,8 +237,13 @@ impl Pipeline {
         }
         if let Some(dir) = self.state.as_mut() {
             let units = self.units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect();
-            if let Err(e) = dir.save(&StoredRef::new(units)) {
-                warn!(error = %e, "checkpoint write failed; will retry");
+            match dir.save(&StoredRef::new(units)) {
+                Ok(()) => {
+                    for u in &mut self.units {
+                        u.checkpoint_written();
+                    }
+                }
+                Err(e) => warn!(error = %e, "checkpoint write failed; will retry"),
             }
         }
         Ok(())
@@ -191,6 +260,11 @@ impl Pipeline {
         for u in &mut self.units {
             u.forward_to(f);
         }
+    }
+
+    /// Export bytes read so far, over all units.
+    pub fn bytes_read(&self) -> u64 {
+        self.units.iter().map(|u| u.counters.bytes).sum()
     }
 
     /// Checkpoint writes and failures so far.

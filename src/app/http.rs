@@ -48,6 +48,37 @@ pub struct Snapshot {
     /// Why the service runs degraded (outputs or the checkpoint cannot be written): `/healthz`
     /// and `/readyz` answer 503 with it.
     pub degraded: Option<String>,
+    /// The last pass stopped at its read budget: the service is catching up on a backlog
+    /// (`/readyz` answers 503 with how far behind each unit is).
+    pub catching_up: bool,
+}
+
+/// `n` bytes for people: `512 B`, `3.4 KiB`, `12.0 MiB`, `1.50 GiB`.
+pub fn human_bytes(n: u64) -> String {
+    let f = n as f64;
+    if n < 1 << 10 {
+        format!("{n} B")
+    } else if n < 1 << 20 {
+        format!("{:.1} KiB", f / 1024.0)
+    } else if n < 1 << 30 {
+        format!("{:.1} MiB", f / 1_048_576.0)
+    } else {
+        format!("{:.2} GiB", f / 1_073_741_824.0)
+    }
+}
+
+/// A duration in ms for people: `45 s`, `12 min`, `5.2 h`, `36.1 d`.
+fn human_ms(ms: i64) -> String {
+    let s = ms as f64 / 1000.0;
+    if s < 120.0 {
+        format!("{s:.0} s")
+    } else if s < 7_200.0 {
+        format!("{:.0} min", s / 60.0)
+    } else if s < 172_800.0 {
+        format!("{:.1} h", s / 3_600.0)
+    } else {
+        format!("{:.1} d", s / 86_400.0)
+    }
 }
 
 fn esc(v: &str) -> String {
@@ -120,6 +151,7 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
         }
     }
     readable(&mut o, s, &names);
+    backlog(&mut o, s, &names);
     family(&mut o, "efftemp_monitor_state", "gauge", "1 for the unit's current monitor state.");
     for (u, unit) in s.units.iter().zip(&names) {
         let _ = writeln!(o, "efftemp_monitor_state{{unit=\"{unit}\",state=\"{}\"}} 1", esc(&u.monitor_state));
@@ -176,6 +208,21 @@ pub fn render(s: &Snapshot, now_ms: i64) -> String {
     o
 }
 
+/// `efftemp_backlog_bytes` per unit and `efftemp_catching_up`.
+fn backlog(o: &mut String, s: &Snapshot, names: &[String]) {
+    let name = "efftemp_backlog_bytes";
+    let _ =
+        writeln!(o, "# HELP {name} Export bytes waiting beyond what the last pass read (0 when caught up).");
+    let _ = writeln!(o, "# TYPE {name} gauge");
+    for (u, unit) in s.units.iter().zip(names) {
+        let _ = writeln!(o, "{name}{{unit=\"{unit}\"}} {}", u.backlog_bytes.unwrap_or(0));
+    }
+    let name = "efftemp_catching_up";
+    let _ = writeln!(o, "# HELP {name} 1 while the service reads a backlog in bounded passes.");
+    let _ = writeln!(o, "# TYPE {name} gauge");
+    let _ = writeln!(o, "{name} {}", u8::from(s.catching_up));
+}
+
 /// `efftemp_export_directory_readable`: whether each unit could read its export directory.
 fn readable(o: &mut String, s: &Snapshot, names: &[String]) {
     let name = "efftemp_export_directory_readable";
@@ -211,6 +258,31 @@ fn readiness(s: &Snapshot, now: i64) -> (StatusCode, String) {
     if s.last_pass_ms.is_some() && !blind.is_empty() {
         return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: {}\n", blind.join("; ")));
     }
+    if s.catching_up {
+        let mut behind: Vec<(i64, String)> = s
+            .units
+            .iter()
+            .filter_map(|u| {
+                let bytes = u.backlog_bytes?;
+                let lag = u.last_data_ms.map_or(i64::MAX, |t| now - t);
+                let data = u.last_data_ms.map_or_else(
+                    || "no data yet".to_string(),
+                    |t| format!("data up to {} ({} behind)", fmt_ms(t), human_ms(lag)),
+                );
+                Some((lag, format!("unit {}: {} unread, {data}", u.name, human_bytes(bytes))))
+            })
+            .collect();
+        // The units furthest behind first, five of them.
+        behind.sort_by_key(|(lag, _)| std::cmp::Reverse(*lag));
+        let mut what: Vec<String> = behind.iter().take(5).map(|(_, text)| text.clone()).collect();
+        match behind.len() {
+            0 => what.push("units waiting for their turn".to_string()),
+            n if n > 5 => what.push(format!("and {} more unit(s)", n - 5)),
+            _ => {}
+        }
+        let what = what.join("; ");
+        return (StatusCode::SERVICE_UNAVAILABLE, format!("not ready: catching up: {what}\n"));
+    }
     match s.last_pass_ms {
         Some(t) if now - t <= s.ready_within_ms => {
             (StatusCode::OK, format!("ready: {} pass(es)\n", s.passes))
@@ -220,6 +292,11 @@ fn readiness(s: &Snapshot, now: i64) -> (StatusCode, String) {
         }
         None => (StatusCode::SERVICE_UNAVAILABLE, "not ready: starting\n".to_string()),
     }
+}
+
+/// A wall time in ms as RFC 3339 (UTC, to the second).
+fn fmt_ms(ms: i64) -> String {
+    jiff::Timestamp::from_millisecond(ms).map_or_else(|_| ms.to_string(), |t| format!("{t:.0}"))
 }
 
 async fn metrics(State(rx): State<watch::Receiver<Snapshot>>) -> impl IntoResponse {
@@ -355,6 +432,55 @@ mod tests {
                 assert!(declared.iter().any(|d| d == name), "{line}");
             }
         }
+    }
+
+    #[test]
+    fn a_service_catching_up_is_not_ready_and_says_how_far_behind() {
+        let day = 86_400_000;
+        let now = 40 * day;
+        let behind = UnitSnapshot {
+            name: "R-204".into(),
+            last_data_ms: Some(now - 36 * day - 4 * 3_600_000),
+            backlog_bytes: Some(12 << 20),
+            ..Default::default()
+        };
+        let current =
+            UnitSnapshot { name: "R-205".into(), last_data_ms: Some(now - 5_000), ..Default::default() };
+        let mut s = Snapshot {
+            units: vec![behind, current],
+            passes: 3,
+            last_pass_ms: Some(now),
+            ready_within_ms: 6_000,
+            catching_up: true,
+            ..Default::default()
+        };
+        let (code, body) = readiness(&s, now);
+        assert_eq!(code, StatusCode::SERVICE_UNAVAILABLE);
+        assert_eq!(
+            body,
+            "not ready: catching up: unit R-204: 12.0 MiB unread, data up to 1970-01-04T20:00:00Z (36.2 d behind)\n"
+        );
+        let text = render(&s, now);
+        assert!(text.contains("efftemp_backlog_bytes{unit=\"R-204\"} 12582912\n"), "{text}");
+        assert!(text.contains("efftemp_backlog_bytes{unit=\"R-205\"} 0\n"), "{text}");
+        assert!(text.contains("efftemp_catching_up 1\n"), "{text}");
+        // Many units behind: the five furthest behind, and how many more.
+        let mut many = s.clone();
+        many.units = (0..7)
+            .map(|k| UnitSnapshot {
+                name: format!("U-{k}"),
+                last_data_ms: Some(now - (k + 1) * day),
+                backlog_bytes: Some(1 << 20),
+                ..Default::default()
+            })
+            .collect();
+        let body = readiness(&many, now).1;
+        assert!(body.starts_with("not ready: catching up: unit U-6: 1.0 MiB unread"), "{body}");
+        assert!(body.ends_with("unit U-2: 1.0 MiB unread, data up to 1970-02-07T00:00:00Z (3.0 d behind); and 2 more unit(s)\n"), "{body}");
+        s.catching_up = false;
+        s.units[0].backlog_bytes = None;
+        assert_eq!(readiness(&s, now).0, StatusCode::OK);
+        assert!(render(&s, now).contains("efftemp_catching_up 0\n"));
     }
 
     /// Whether the server closes `stream` within `within` (a read returns end of file or a

@@ -6,7 +6,7 @@ use std::path::PathBuf;
 use std::time::Duration;
 
 use crate::config::{SiteConfig, UnitConfig};
-use crate::pipeline::{Mode, Pipeline, PipelineError, UnitRuntime};
+use crate::pipeline::{Mode, PassLimits, Pipeline, PipelineError, UnitRuntime};
 
 /// What a replay did.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -87,6 +87,9 @@ fn nothing_read(u: &UnitRuntime) -> Option<String> {
     ))
 }
 
+/// Export bytes read per pass of a replay.
+const REPLAY_SLICE_BYTES: u64 = 32 << 20;
+
 /// Process existing export files as a batch, with the same pipeline and outputs as `run`.
 /// A progress bar is drawn on standard error when it is a terminal.
 ///
@@ -100,14 +103,21 @@ pub fn replay(site: &SiteConfig, output: Option<PathBuf>) -> Result<ReplaySummar
     let tty = std::io::stderr().is_terminal();
     let started = std::time::Instant::now();
     let mut last_draw = started;
-    // Monotonic time stands still during a replay: only event time matters.
+    // Monotonic time stands still during a replay: only event time matters. Passes are bounded
+    // so that the progress bar moves and a backlog of thousands of files is not held open at
+    // once (files untouched for longer than the seal delay are closed once read).
+    let limits = PassLimits {
+        now_ms: 0,
+        wall_ms: Some(jiff::Timestamp::now().as_millisecond()),
+        budget_bytes: REPLAY_SLICE_BYTES,
+    };
     loop {
-        let s = pipeline.pass(0, false)?;
+        let s = pipeline.pass_within(&limits, false)?;
         if tty && last_draw.elapsed() >= Duration::from_millis(200) {
             draw(&pipeline, total, started);
             last_draw = std::time::Instant::now();
         }
-        if s.records == 0 {
+        if s.records == 0 && !s.more {
             break;
         }
     }

@@ -18,7 +18,7 @@ use crate::app::http::Snapshot;
 use crate::app::notify::Notifier;
 use crate::config::SiteConfig;
 use crate::ingest::watch::{self, Watch, WatchStatus};
-use crate::pipeline::{Mode, Pipeline, PipelineError};
+use crate::pipeline::{Mode, PassLimits, Pipeline, PipelineError};
 use crate::sinks::syslog::Forwarder;
 
 /// A monotonic clock in milliseconds (tokio time, so tests can pause it).
@@ -71,6 +71,25 @@ const EVENT_COALESCE_MS: u64 = 25;
 /// Checkpoint writing may take at most 1/CHECKPOINT_DUTY of the service's time.
 const CHECKPOINT_DUTY: u64 = 20;
 
+/// The read budget of the first pass, and its bounds, bytes.
+const FIRST_SLICE_BYTES: u64 = 256 << 10;
+const MIN_SLICE_BYTES: u64 = 64 << 10;
+const MAX_SLICE_BYTES: u64 = 64 << 20;
+
+/// The next pass's read budget after a pass that read `read` bytes in `took_ms`: scaled so the
+/// pass takes about `slice_ms` (`[service] catch_up_slice`: between passes the service
+/// checkpoints, keeps the watchdog fed, publishes its progress and looks at the shutdown
+/// signal), changing by at most a factor of 4 at a time.
+fn next_slice(budget: u64, read: u64, took_ms: u64, slice_ms: u64) -> u64 {
+    if read < budget / 2 {
+        // The pass was not limited by its budget: no measure of the rate.
+        return budget;
+    }
+    let rate = read as f64 / took_ms.max(1) as f64;
+    let want = (rate * slice_ms as f64).clamp(budget as f64 / 4.0, budget as f64 * 4.0);
+    (want as u64).clamp(MIN_SLICE_BYTES, MAX_SLICE_BYTES)
+}
+
 /// Run the service until `shutdown` completes. Outputs and the checkpoint are flushed on exit.
 pub async fn run(
     site: Arc<SiteConfig>,
@@ -86,9 +105,13 @@ pub async fn run(
     loop {
         let quiet = svc.pipeline.next_quiet_deadline().map(|t| t.saturating_sub(svc.clock.now_ms()));
         let quiet_sleep = tokio::time::sleep(Duration::from_millis(quiet.unwrap_or(3_600_000)));
+        // Behind (the last pass stopped at its budget): the next slice follows at once, after
+        // a look at the shutdown signal.
+        let behind = svc.behind;
         let woken_by_event = tokio::select! {
             biased;
             () = &mut shutdown => break,
+            () = std::future::ready(()), if behind => false,
             () = svc.notify.notified() => true,
             _ = tick.tick() => false,
             () = quiet_sleep, if quiet.is_some() => false,
@@ -151,6 +174,12 @@ struct Service {
     retry_ms: u64,
     /// Why the pipeline could not be rebuilt from the checkpoint (it is empty until it can).
     resume_error: Option<String>,
+    /// The last pass stopped at its read budget: the files hold more.
+    behind: bool,
+    /// The read budget of the next pass, bytes (see [`next_slice`]).
+    slice_bytes: u64,
+    /// The status line last sent to systemd.
+    status: String,
 }
 
 /// Run `f` on the pipeline on a blocking thread, and give the pipeline back.
@@ -215,6 +244,9 @@ impl Service {
             degraded: None,
             retry_ms: FIRST_RETRY_MS,
             resume_error: None,
+            behind: false,
+            slice_bytes: FIRST_SLICE_BYTES,
+            status: String::new(),
         })
     }
 
@@ -290,13 +322,33 @@ impl Service {
         Ok(())
     }
 
-    /// One pipeline pass at the current monotonic time.
+    /// One pipeline pass at the current monotonic time, bounded by the read budget.
     async fn pass(&mut self) -> Result<(), ServiceError> {
-        let now = self.clock.now_ms();
+        let limits = PassLimits {
+            now_ms: self.clock.now_ms(),
+            wall_ms: Some(jiff::Timestamp::now().as_millisecond()),
+            budget_bytes: self.slice_bytes,
+        };
+        let bytes_before = self.pipeline.bytes_read();
+        let started = std::time::Instant::now();
         let pipeline = std::mem::replace(&mut self.pipeline, Pipeline::empty());
-        let (p, res) = blocking(pipeline, move |p| p.pass(now, false)).await?;
+        let (p, res) = blocking(pipeline, move |p| p.pass_within(&limits, false)).await?;
         self.pipeline = p;
         let s = res?;
+        let took_ms = u64::try_from(started.elapsed().as_millis()).unwrap_or(u64::MAX);
+        let read = self.pipeline.bytes_read().saturating_sub(bytes_before);
+        self.slice_bytes = next_slice(self.slice_bytes, read, took_ms, self.site.service.slice_ms);
+        if s.more != self.behind {
+            if s.more {
+                info!(
+                    budget_bytes = self.slice_bytes,
+                    "catching up: the export files hold a backlog; reading it in slices"
+                );
+            } else {
+                info!("caught up with the export files");
+            }
+        }
+        self.behind = s.more;
         self.dirty |= s.records > 0 || s.intervals > 0;
         self.passes += 1;
         Ok(())
@@ -304,8 +356,13 @@ impl Service {
 
     /// Readiness, watchdog keep-alives and the metrics snapshot after a pass.
     fn report_progress(&mut self) {
+        let status = self.status_line();
         if self.passes == 1 {
-            self.notifier.notify("READY=1\nSTATUS=watching the export directories");
+            self.notifier.notify(&format!("READY=1\nSTATUS={status}"));
+            self.status = status;
+        } else if self.passes > 1 && status != self.status {
+            self.notifier.notify(&format!("STATUS={status}"));
+            self.status = status;
         }
         if let Some(wd) = self.notifier.watchdog_ms
             && self.clock.now_ms().saturating_sub(self.last_watchdog) >= wd / 2
@@ -330,8 +387,19 @@ impl Service {
             degraded: self.degraded.clone(),
             last_pass_ms: Some(jiff::Timestamp::now().as_millisecond()),
             ready_within_ms: i64::try_from(self.site.service.reconcile_ms.max(1_000) * 3).unwrap_or(i64::MAX),
+            catching_up: self.behind,
         };
         let _ = tx.send(snap);
+    }
+
+    /// The systemd status line: watching, or catching up and how far.
+    fn status_line(&self) -> String {
+        if !self.behind {
+            return "watching the export directories".to_string();
+        }
+        let unread: u64 = self.pipeline.units.iter().filter_map(|u| u.backlog()).sum();
+        let units = self.pipeline.units.iter().filter(|u| u.backlog().is_some()).count();
+        format!("catching up: {} unread in {units} unit(s)", crate::app::http::human_bytes(unread))
     }
 
     /// Write the checkpoint when something changed and the gap since the last one is over.
@@ -365,7 +433,7 @@ impl Service {
             // Give the collector a moment for what is queued; the rest stays in the disk queue
             // and is sent first at the next start.
             if let Some(f) = forwarder.and_then(|f| Arc::try_unwrap(f).ok()) {
-                f.shutdown(Duration::from_millis(1_500));
+                f.shutdown(Duration::from_millis(1_000));
             }
             r
         })

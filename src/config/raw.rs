@@ -51,6 +51,8 @@ pub struct RawService {
     pub alerts_to_stdout: Option<bool>,
     /// How often the checkpoint is written at most, e.g. "5s".
     pub checkpoint_interval: Option<String>,
+    /// How long one pass may read while the service catches up on a backlog, e.g. "200ms".
+    pub catch_up_slice: Option<String>,
     /// Address of the health and metrics endpoint ("127.0.0.1:9464"; "off" to disable).
     pub http_address: Option<String>,
     /// How long outputs are kept.

@@ -37,6 +37,8 @@ pub struct ServiceConfig {
     pub alerts_to_stdout: bool,
     /// Checkpoint interval, ms.
     pub checkpoint_ms: u64,
+    /// How long one pass may read while catching up on a backlog, ms.
+    pub slice_ms: u64,
     /// Health and metrics endpoint, if enabled.
     pub http_address: Option<std::net::SocketAddr>,
     /// How long outputs are kept.
@@ -274,6 +276,14 @@ fn check_service(ck: &mut Checker<'_>, s: &RawService) -> ServiceConfig {
     let seal_after_ms = ck.duration(&KeyPath::keys("service.seal_after"), s.seal_after.as_ref(), 600_000);
     let checkpoint_ms =
         ck.duration(&KeyPath::keys("service.checkpoint_interval"), s.checkpoint_interval.as_ref(), 5_000);
+    let slice_key = KeyPath::keys("service.catch_up_slice");
+    let slice_ms = ck.duration(&slice_key, s.catch_up_slice.as_ref(), 200);
+    if !(10..=5_000).contains(&slice_ms) {
+        ck.err(
+            &slice_key,
+            "must be between 10ms and 5s (the service answers shutdown and the watchdog between passes)",
+        );
+    }
     let max_record_bytes = s.max_record_bytes.unwrap_or(65_536);
     if !(256..=64 * 1024 * 1024).contains(&max_record_bytes) {
         ck.err(&KeyPath::keys("service.max_record_bytes"), "must be between 256 bytes and 64 MiB");
@@ -285,6 +295,7 @@ fn check_service(ck: &mut Checker<'_>, s: &RawService) -> ServiceConfig {
         seal_after_ms: u64::try_from(seal_after_ms).unwrap_or(600_000),
         alerts_to_stdout: s.alerts_to_stdout.unwrap_or(false),
         checkpoint_ms: u64::try_from(checkpoint_ms).unwrap_or(5_000),
+        slice_ms: u64::try_from(slice_ms).unwrap_or(200),
         http_address: http_address(ck, s.http_address.as_deref()),
         retention: retention(ck, &s.retention),
     }

@@ -81,7 +81,28 @@ impl DayCache {
         let (h, m, sec) = (secs / 3600, secs / 60 % 60, secs % 60);
         let sign = if offset < 0 { '-' } else { '+' };
         let (oh, om) = (offset.unsigned_abs() / 3600, offset.unsigned_abs() / 60 % 60);
-        let _ = write!(out, "{}T{h:02}:{m:02}:{sec:02}{sign}{oh:02}:{om:02}", self.day);
+        // Digits by hand (this runs for every soft-tag row); the formatter for what is not two
+        // digits.
+        let two = |out: &mut String, v: i64| match u8::try_from(v) {
+            Ok(v) if v < 100 => {
+                out.push(char::from(b'0' + v / 10));
+                out.push(char::from(b'0' + v % 10));
+            }
+            _ => {
+                let _ = write!(out, "{v:02}");
+            }
+        };
+        out.push_str(&self.day);
+        out.push('T');
+        two(out, h);
+        out.push(':');
+        two(out, m);
+        out.push(':');
+        two(out, sec);
+        out.push(sign);
+        two(out, i64::from(oh));
+        out.push(':');
+        two(out, i64::from(om));
     }
 
     /// Local date of the interval that ends at `end_ms` (see [`day_of`]).

@@ -12,7 +12,7 @@ use crate::core::flags::Flag;
 use crate::core::spec::{FeedConfig, Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
-use crate::thermo::uncertainty::{InputRef, Uncertain, propagate};
+use crate::thermo::uncertainty::{InputRef, combined};
 
 /// Default tolerance on analyzer fractions summing to 1 (`[unit.model] analyzer_sum_tolerance`).
 /// Common practice: analyzers that report each component separately sum to 98-102 % in normal
@@ -118,11 +118,57 @@ impl Reader<'_> {
             }
         }
     }
+}
 
-    fn label(&self, s: Signal, fallback: &str) -> String {
-        match s {
-            Signal::Tag(i) => format!("{} ({})", self.unit.tags[i].name, self.unit.tags[i].role),
-            Signal::Fixed { .. } => fallback.to_string(),
+/// How an uncertain input is named in the soft tags and alerts: its tag, else a description.
+/// Kept unrendered per interval; only the dominant input's label is written out.
+#[derive(Debug, Clone, Copy)]
+struct Label {
+    /// The input's signal: a tag names it `name (role)`.
+    signal: Option<Signal>,
+    /// The words for a fixed value.
+    fallback: Fallback,
+}
+
+#[derive(Debug, Clone, Copy)]
+enum Fallback {
+    /// `<feed> <component> fraction`.
+    FeedFraction(usize, usize),
+    /// `<feed> flow`.
+    FeedFlow(usize),
+    /// `<feed> temperature`.
+    FeedTemperature(usize),
+    /// `heater duty`.
+    Duty,
+    /// `heat loss`.
+    HeatLoss,
+    /// `<reaction> conversion`.
+    Conversion(usize),
+    /// `<reaction> conversion (effluent analyzer)`.
+    AnalyzerConversion(usize),
+    /// Nothing (a fixed conversion signal).
+    Empty,
+}
+
+impl Label {
+    fn render(self, unit: &UnitSpec) -> String {
+        if let Some(Signal::Tag(i)) = self.signal {
+            return format!("{} ({})", unit.tags[i].name, unit.tags[i].role);
+        }
+        let sys = &unit.system;
+        match self.fallback {
+            Fallback::FeedFraction(j, i) => {
+                format!("{} {} fraction", unit.feeds[j].name, sys.components[i].id)
+            }
+            Fallback::FeedFlow(j) => format!("{} flow", unit.feeds[j].name),
+            Fallback::FeedTemperature(j) => format!("{} temperature", unit.feeds[j].name),
+            Fallback::Duty => "heater duty".to_string(),
+            Fallback::HeatLoss => "heat loss".to_string(),
+            Fallback::Conversion(r) => format!("{} conversion", sys.reactions[r].label),
+            Fallback::AnalyzerConversion(r) => {
+                format!("{} conversion (effluent analyzer)", sys.reactions[r].label)
+            }
+            Fallback::Empty => String::new(),
         }
     }
 }
@@ -134,6 +180,8 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstima
     let mut flags: Vec<Flag> = Vec::new();
     let mut conditions: Vec<Condition> = Vec::new();
     let mut signals = Signals::default();
+    signals.tag_values_si.reserve_exact(unit.tags.len());
+    signals.tag_ranges_si.reserve_exact(unit.tags.len());
 
     // Data quality of every tag.
     for (i, (tag, tv)) in unit.tags.iter().zip(&closed.tags).enumerate() {
@@ -232,7 +280,14 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstima
     eval
 }
 
-type Built = (Inputs, Vec<Uncertain>);
+/// The inputs with a standard uncertainty, in the order they are read, and their labels.
+#[derive(Default)]
+struct UncertainInputs {
+    items: Vec<(InputRef, f64)>,
+    labels: Vec<Label>,
+}
+
+type Built = (Inputs, UncertainInputs);
 
 /// What the effluent analyzer's estimate starts the interval from.
 #[derive(Clone, Copy)]
@@ -250,7 +305,7 @@ fn build_inputs(
     conditions: &mut Vec<Condition>,
     signals: &mut Signals,
 ) -> Result<Built, String> {
-    let mut b = Builder { unit, rd, problems: Vec::new(), uncertain: Vec::new() };
+    let mut b = Builder { unit, rd, problems: Vec::new(), uncertain: UncertainInputs::default() };
     signals.feed_sums = vec![None; unit.feeds.len()];
     let mut feeds = Vec::new();
     for (j, f) in unit.feeds.iter().enumerate() {
@@ -289,14 +344,15 @@ struct Builder<'a, 'r> {
     unit: &'a UnitSpec,
     rd: &'a Reader<'r>,
     problems: Vec<String>,
-    uncertain: Vec<Uncertain>,
+    uncertain: UncertainInputs,
 }
 
 impl Builder<'_, '_> {
     /// An input with a standard uncertainty `u`, if it has one.
-    fn uncertain(&mut self, input: InputRef, u: f64, label: impl FnOnce() -> String) {
+    fn uncertain(&mut self, input: InputRef, u: f64, signal: Option<Signal>, fallback: Fallback) {
         if u > 0.0 {
-            self.uncertain.push(Uncertain { input, u, label: label() });
+            self.uncertain.items.push((input, u));
+            self.uncertain.labels.push(Label { signal, fallback });
         }
     }
 
@@ -320,9 +376,7 @@ impl Builder<'_, '_> {
             match rd.get(*s) {
                 Ok((x, u)) => {
                     fractions.push(x);
-                    self.uncertain(InputRef::FeedFraction(j, i), u, || {
-                        rd.label(*s, &format!("{} {} fraction", f.name, unit.system.components[i].id))
-                    });
+                    self.uncertain(InputRef::FeedFraction(j, i), u, Some(*s), Fallback::FeedFraction(j, i));
                 }
                 Err(p) => {
                     self.problems.push(p);
@@ -362,10 +416,8 @@ impl Builder<'_, '_> {
         for x in &mut fractions {
             *x /= sum;
         }
-        self.uncertain(InputRef::FeedFlow(j), *flow_u, || rd.label(f.flow, &format!("{} flow", f.name)));
-        self.uncertain(InputRef::FeedTemperature(j), *t_u, || {
-            rd.label(f.temperature, &format!("{} temperature", f.name))
-        });
+        self.uncertain(InputRef::FeedFlow(j), *flow_u, Some(f.flow), Fallback::FeedFlow(j));
+        self.uncertain(InputRef::FeedTemperature(j), *t_u, Some(f.temperature), Fallback::FeedTemperature(j));
         Some(FeedInput {
             flow: if f.mass_flow { FlowValue::Mass(*flow_si) } else { FlowValue::Molar(*flow_si) },
             temperature: *t_si,
@@ -381,11 +433,11 @@ impl Builder<'_, '_> {
         let heat_loss = rd.get(unit.heat_loss).unwrap_or((0.0, 0.0));
         if let Ok((d, u)) = duty {
             signals.duty_w = Some(d);
-            self.uncertain(InputRef::Duty, u, || rd.label(unit.duty, "heater duty"));
+            self.uncertain(InputRef::Duty, u, Some(unit.duty), Fallback::Duty);
         } else if let Err(p) = &duty {
             self.problems.push(p.clone());
         }
-        self.uncertain(InputRef::HeatLoss, heat_loss.1, || rd.label(unit.heat_loss, "heat loss"));
+        self.uncertain(InputRef::HeatLoss, heat_loss.1, Some(unit.heat_loss), Fallback::HeatLoss);
         (duty, heat_loss)
     }
 
@@ -406,12 +458,8 @@ impl Builder<'_, '_> {
                 }
                 let (x, u) = measured.unwrap_or((c.design, c.u));
                 conversions.push(Some(x));
-                self.uncertain(InputRef::Conversion(r), u, || {
-                    c.tag.map_or_else(
-                        || format!("{} conversion", unit.system.reactions[r].label),
-                        |t| rd.label(t, ""),
-                    )
-                });
+                let fallback = if c.tag.is_some() { Fallback::Empty } else { Fallback::Conversion(r) };
+                self.uncertain(InputRef::Conversion(r), u, c.tag, fallback);
             }
             Effluent::Reacted { conversions }
         }
@@ -479,9 +527,7 @@ impl Builder<'_, '_> {
             if Some(r) == unit.apparent_reaction {
                 signals.measured_conversion = Some(measured.map_or(*x, |m| m.0));
             }
-            self.uncertain(InputRef::Conversion(r), estimate.u(r), || {
-                format!("{} conversion (effluent analyzer)", sys.reactions[r].label)
-            });
+            self.uncertain(InputRef::Conversion(r), estimate.u(r), None, Fallback::AnalyzerConversion(r));
         }
         signals.extent_estimate = Some(estimate);
         Effluent::Reacted { conversions }
@@ -515,7 +561,7 @@ fn flag_composition_sum(
 fn solve_all(
     unit: &UnitSpec,
     inputs: &Inputs,
-    uncertain: &[Uncertain],
+    uncertain: &UncertainInputs,
     measured: Option<(f64, f64)>,
     eval: &mut Evaluation,
     flags: &mut Vec<Flag>,
@@ -537,10 +583,10 @@ fn solve_all(
         let key = sys.reactions[r].key;
         eval.signals.key_feed_mol_s = Some(outcome.feed_flows.iter().map(|f| f[key]).sum());
     }
-    if !uncertain.is_empty() {
-        let report = propagate(sys, inputs, &outcome, uncertain);
-        eval.u_pred_k = Some(report.u);
-        eval.dominant_input = report.dominant().map(|c| c.label.clone());
+    if !uncertain.items.is_empty() {
+        let (u, dominant) = combined(sys, inputs, &outcome, &uncertain.items);
+        eval.u_pred_k = Some(u);
+        eval.dominant_input = dominant.map(|k| uncertain.labels[k].render(unit));
     }
     for f in &outcome.flags {
         let code = f.code();
@@ -566,27 +612,23 @@ fn solve_all(
     }
     let Some((t_meas, _)) = measured else { return };
     eval.residual_k = Some(t_meas - outcome.t_out);
+    // At the measured temperature the balance needs no solve: the streams are those of the
+    // prediction, the component enthalpies are evaluated once.
+    let at = sys.enthalpies_at(t_meas);
     // Heater effectiveness: the duty needed to reach the measured temperature / reported duty.
-    let mut at_measured = inputs.clone();
-    at_measured.effluent_temperature = Some(t_meas);
-    // Only the duty and the conversion are used from these solves: skip the bubble point.
-    at_measured.pressure = None;
-    if let (Ok(o), Some(reported)) = (sys.solve(&at_measured, Unknown::Duty), inputs.duty) {
-        eval.signals.needed_duty_w = Some(o.duty);
+    if let (Some(needed), Some(reported)) = (sys.needed_duty(inputs, &outcome, &at), inputs.duty) {
+        eval.signals.needed_duty_w = Some(needed);
         if reported.abs() > 1.0 {
-            eval.effectiveness = Some(o.duty / reported);
+            eval.effectiveness = Some(needed / reported);
         }
     }
     // Apparent conversion: the conversion that reproduces the measured temperature.
-    if let (Some(r), Effluent::Reacted { conversions }) = (unit.apparent_reaction, &inputs.effluent) {
-        let mut c = conversions.clone();
-        if r < c.len() {
-            c[r] = None;
-            at_measured.effluent = Effluent::Reacted { conversions: c };
-            match sys.solve(&at_measured, Unknown::Conversion(r)) {
-                Ok(o) => eval.apparent_conversion = Some(o.conversions[r]),
-                Err(_) => flags.push(Flag::ApparentConversionUnavailable),
-            }
+    if let (Some(r), Effluent::Reacted { conversions }) = (unit.apparent_reaction, &inputs.effluent)
+        && r < conversions.len()
+    {
+        match sys.apparent_conversion(inputs, &outcome, r, &at) {
+            Ok(x) => eval.apparent_conversion = Some(x),
+            Err(_) => flags.push(Flag::ApparentConversionUnavailable),
         }
     }
 }

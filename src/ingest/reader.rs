@@ -12,7 +12,8 @@ use crate::ingest::repeat::{RepeatLog, warn_summary};
 use crate::ingest::rows::{HeaderInfo, Reject, RowParser};
 use crate::ingest::settings::{InputConfig, Layout};
 use crate::ingest::tail::{
-    EndCause, GenerationCause, Notice, PollStats, RejectReason, TailEvent, TailOptions, TailState, Tailer,
+    EndCause, GenerationCause, Notice, PollLimits, PollStats, RejectReason, TailEvent, TailOptions,
+    TailState, Tailer,
 };
 
 /// What the reader delivers.
@@ -101,11 +102,12 @@ impl ExportReader {
         self.parser.note_data_time(ms);
     }
 
-    /// Read what is new. A directory that cannot be listed is logged (once, until it can be
-    /// listed again) and retried at the next poll (its state is kept).
-    pub fn poll(&mut self, now_mono: u64, on: &mut dyn FnMut(Read<'_>)) -> PollStats {
+    /// Read what is new, within `limits` (see [`Tailer::poll_within`]). A directory that
+    /// cannot be listed is logged (once, until it can be listed again) and retried at the next
+    /// poll (its state is kept).
+    pub fn poll(&mut self, limits: &PollLimits, on: &mut dyn FnMut(Read<'_>)) -> PollStats {
         let ExportReader { unit, wide, tailer, parser, samples, rejects, repeats, .. } = self;
-        let stats = tailer.poll(now_mono, &mut |event| match event {
+        let stats = tailer.poll_within(limits, &mut |event| match event {
             TailEvent::Header { file, fields } => {
                 let info = parser.header(file.id, fields);
                 if let HeaderInfo::Unusable(r) = &info {

@@ -181,10 +181,13 @@ impl Clock {
             return Ok(self.last_ms);
         }
         let ms = match &self.format {
-            TimestampFormat::Rfc3339 => {
-                let ts: Timestamp = text.parse().map_err(|_| Reject::BadTimestamp(text.to_string()))?;
-                ts.as_millisecond()
-            }
+            TimestampFormat::Rfc3339 => match plain_rfc3339_ms(text.as_bytes()) {
+                Some(ms) => ms,
+                None => {
+                    let ts: Timestamp = text.parse().map_err(|_| Reject::BadTimestamp(text.to_string()))?;
+                    ts.as_millisecond()
+                }
+            },
             TimestampFormat::Local(fmt) => {
                 let dt = DateTime::strptime(fmt, text).map_err(|_| Reject::BadTimestamp(text.to_string()))?;
                 let amb = self.tz.to_ambiguous_timestamp(dt);
@@ -219,6 +222,61 @@ impl Clock {
         self.latest_ms = Some(self.latest_ms.map_or(ms, |l| l.max(ms)));
         Ok(ms)
     }
+}
+
+/// The instant (ms) of the commonest RFC 3339 form, `YYYY-MM-DDTHH:MM:SSZ` or with a
+/// `±HH:MM` offset, read without the general parser (this runs for every row); `None` for
+/// anything else (fractions of a second, other separators, out-of-range fields, `-00:00`),
+/// which the general parser then reads or rejects.
+fn plain_rfc3339_ms(b: &[u8]) -> Option<i64> {
+    let digits = |range: std::ops::Range<usize>| -> Option<i64> {
+        let mut v = 0i64;
+        for &c in b.get(range)? {
+            if !c.is_ascii_digit() {
+                return None;
+            }
+            v = v * 10 + i64::from(c - b'0');
+        }
+        Some(v)
+    };
+    let sep = |i: usize, c: u8| b.get(i) == Some(&c);
+    if !(sep(4, b'-') && sep(7, b'-') && sep(10, b'T') && sep(13, b':') && sep(16, b':')) {
+        return None;
+    }
+    let (y, mo, d) = (digits(0..4)?, digits(5..7)?, digits(8..10)?);
+    let (h, mi, sec) = (digits(11..13)?, digits(14..16)?, digits(17..19)?);
+    let offset_s = match &b[19..] {
+        b"Z" => 0,
+        [sign @ (b'+' | b'-'), _, _, b':', _, _] => {
+            let (oh, om) = (digits(20..22)?, digits(23..25)?);
+            if oh > 23 || om > 59 || (*sign == b'-' && oh == 0 && om == 0) {
+                return None;
+            }
+            let s = oh * 3600 + om * 60;
+            if *sign == b'-' { -s } else { s }
+        }
+        _ => return None,
+    };
+    let leap = y % 4 == 0 && (y % 100 != 0 || y % 400 == 0);
+    let month_days = [31, if leap { 29 } else { 28 }, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31];
+    let valid = (1900..=9999).contains(&y)
+        && (1..=12).contains(&mo)
+        && d >= 1
+        && d <= month_days[usize::try_from(mo - 1).ok()?]
+        && h <= 23
+        && mi <= 59
+        && sec <= 59;
+    if !valid {
+        return None;
+    }
+    // Days since 1970-01-01 of a proleptic Gregorian date (the civil-from-days inverse).
+    let (y, m) = if mo <= 2 { (y - 1, mo + 9) } else { (y, mo - 3) };
+    let era = y.div_euclid(400);
+    let yoe = y - era * 400;
+    let doy = (153 * m + 2) / 5 + d - 1;
+    let doe = yoe * 365 + yoe / 4 - yoe / 100 + doy;
+    let days = era * 146_097 + doe - 719_468;
+    Some(((days * 86_400 + h * 3600 + mi * 60 + sec) - offset_s) * 1000)
 }
 
 /// The column `name` of a header: the exact (trimmed) match, else the one column whose name
@@ -366,9 +424,17 @@ impl RowParser {
             Plan::Unusable(_) => return None,
         };
         let name = self.ts_column.trim();
-        // Cheap first: a timestamp is rarely as long as the column's name.
+        // Cheap first (this runs for every record): a field shorter than the name, or whose
+        // first character after leading ASCII white space is ASCII and not the name's first
+        // letter in either case (a digit of a timestamp), cannot be the name once trimmed.
+        let first_differs =
+            |f: &[u8]| match (f.iter().find(|b| !b" \t\n\x0b\x0c\r".contains(b)), name.as_bytes().first()) {
+                (Some(b), Some(n)) => b.is_ascii() && !b.eq_ignore_ascii_case(n),
+                _ => false,
+            };
         let is_header = ts < n_fields
             && field(ts).len() >= name.len()
+            && !first_differs(field(ts))
             && std::str::from_utf8(field(ts)).is_ok_and(|t| t.trim().eq_ignore_ascii_case(name));
         if !is_header {
             return None;
@@ -655,6 +721,48 @@ mod tests {
         (samples, rejects)
     }
 
+    /// The hand-read common form gives the general parser's instant, and leaves every other
+    /// form (and every invalid one) to it.
+    #[test]
+    fn plain_rfc3339_matches_the_general_parser() {
+        let mut rng = crate::rng::Rng::new(12);
+        for _ in 0..20_000 {
+            let pick = |rng: &mut crate::rng::Rng, n: u64| (rng.uniform() * n as f64) as u64;
+            let y = 1900 + pick(&mut rng, 8100);
+            let (mo, d) = (1 + pick(&mut rng, 13), 1 + pick(&mut rng, 31));
+            let (h, mi, s) = (pick(&mut rng, 25), pick(&mut rng, 61), pick(&mut rng, 61));
+            let zone = match pick(&mut rng, 4) {
+                0 => "Z".to_string(),
+                1 => "+00:00".to_string(),
+                2 => format!("+{:02}:{:02}", pick(&mut rng, 25), pick(&mut rng, 61)),
+                _ => format!("-{:02}:{:02}", pick(&mut rng, 25), pick(&mut rng, 61)),
+            };
+            let text = format!("{y:04}-{mo:02}-{d:02}T{h:02}:{mi:02}:{s:02}{zone}");
+            let general = text.parse::<Timestamp>().ok().map(|t| t.as_millisecond());
+            if let Some(ms) = plain_rfc3339_ms(text.as_bytes()) {
+                assert_eq!(Some(ms), general, "{text}");
+            }
+        }
+        // Both kinds of offset and the epoch; other forms go to the general parser.
+        assert_eq!(plain_rfc3339_ms(b"1970-01-01T00:00:00Z"), Some(0));
+        assert_eq!(plain_rfc3339_ms(b"2026-12-01T10:00:00Z"), Some(1_796_119_200_000));
+        assert_eq!(plain_rfc3339_ms(b"2026-12-01T11:30:00+01:30"), Some(1_796_119_200_000));
+        assert_eq!(plain_rfc3339_ms(b"2026-12-01T08:00:00-02:00"), Some(1_796_119_200_000));
+        assert_eq!(plain_rfc3339_ms(b"2024-02-29T00:00:00Z"), Some(1_709_164_800_000));
+        for other in [
+            "2026-12-01T10:00:00.5Z",
+            "2026-12-01 10:00:00Z",
+            "2026-12-01t10:00:00z",
+            "2025-02-29T00:00:00Z",
+            "2026-12-01T10:00:60Z",
+            "2026-12-01T10:00:00-00:00",
+            "2026-12-01T10:00:00",
+            "",
+        ] {
+            assert_eq!(plain_rfc3339_ms(other.as_bytes()), None, "{other}");
+        }
+    }
+
     #[test]
     fn wide_rows_map_columns_by_header() {
         let tags = vec!["FI-1".to_string(), "TI-2".to_string()];
@@ -673,6 +781,40 @@ mod tests {
         assert_eq!(r[0].code(), "bad_timestamp");
         let (_, r) = parse(&mut p, 1, "1,2026-12-01T10:00:00Z");
         assert_eq!(r[0].code(), "short_row");
+    }
+
+    /// Columns the unit does not map are never decoded: text, empty cells or bytes that are
+    /// not UTF-8 there neither reject the row nor cost a number parse.
+    #[test]
+    fn unmapped_wide_columns_are_not_parsed() {
+        let tags = vec!["FI-1".to_string(), "TI-2".to_string()];
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        let header: Vec<String> =
+            ["time", "XX-9", "FI-1", "XX-10", "TI-2", "XX-11"].iter().map(|s| s.to_string()).collect();
+        assert_eq!(p.header(1, &header), HeaderInfo::Mapped { missing_tags: vec![], ignored_columns: 3 });
+        let fields: [&[u8]; 6] = [b"2026-12-01T10:00:00Z", b"n/a", b"12.5", b"", b"351.2", b"\xff\xfe"];
+        let (mut samples, mut rejects) = (Vec::new(), Vec::new());
+        p.record(1, fields.len(), &|i| fields[i], &mut |s| samples.push(s), &mut rejects);
+        assert!(rejects.is_empty(), "{rejects:?}");
+        assert_eq!(samples.iter().map(|s| (s.tag, s.value)).collect::<Vec<_>>(), vec![(0, 12.5), (1, 351.2)]);
+    }
+
+    /// The header row again mid-file is known by its timestamp field holding the column's
+    /// name, trimmed and in any case; a timestamp (or anything else) is a row.
+    #[test]
+    fn a_header_row_again_is_recognised_in_any_case_and_padding() {
+        let tags = vec!["FI-1".to_string()];
+        let mut p = RowParser::new(&input(Layout::Wide, TimestampFormat::Rfc3339, "UTC"), &tags);
+        p.header(1, &["time".to_string(), "FI-1".to_string()]);
+        for again in ["time,FI-1", " TIME ,FI-1", "\tTime,FI-1", "\u{a0}time,FI-1"] {
+            let (s, r) = parse(&mut p, 1, again);
+            assert!(s.is_empty(), "{again}");
+            assert_eq!(r.iter().map(Reject::code).collect::<Vec<_>>(), ["header_again"], "{again:?}");
+        }
+        for row in ["2026-12-01T10:00:00Z,1.5", "timer,1.5", " xtime,1.5"] {
+            let (_, r) = parse(&mut p, 1, row);
+            assert!(r.iter().all(|r| r.code() != "header_again"), "{row:?}: {r:?}");
+        }
     }
 
     #[test]

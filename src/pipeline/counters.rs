@@ -148,4 +148,6 @@ pub struct UnitSnapshot {
     pub bytes: u64,
     /// Why the export directory could not be read at the last pass (the unit is blind).
     pub input_problem: Option<String>,
+    /// Export bytes waiting beyond what the last pass read (`None`: it read everything).
+    pub backlog_bytes: Option<u64>,
 }

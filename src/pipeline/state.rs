@@ -12,6 +12,7 @@ use crate::core::alerts::AlertBook;
 use crate::core::assembly::Assembler;
 use crate::core::monitor::Monitor;
 use crate::ingest::tail::TailState;
+use crate::sinks::journal::Span;
 use crate::sinks::report::IngestDay;
 
 /// The format tag of the checkpoints this build writes.
@@ -38,6 +39,10 @@ pub struct UnitState {
     /// object keys are strings).
     #[serde(default)]
     pub header_overrides: BTreeMap<String, Vec<String>>,
+    /// The monitor's block history in the unit's journal (`None`: none, or a checkpoint
+    /// written before the journal, whose monitor carries its history inline).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub history: Option<Span>,
 }
 
 /// The state of every unit of a site, by unit name.
@@ -111,6 +116,9 @@ pub struct UnitStateRef<'a> {
     pub last_end_ms: Option<i64>,
     /// Header rows found again in the middle of export files, by file id (in decimal).
     pub header_overrides: BTreeMap<String, Vec<String>>,
+    /// The monitor's block history in the unit's journal.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub history: Option<Span>,
 }
 
 /// The checkpoint to write, borrowed from the running units, tagged with the current format.
@@ -169,6 +177,7 @@ mod tests {
             ingest: &s.ingest,
             last_end_ms: Some(5),
             header_overrides: overrides.clone(),
+            history: Some(Span { first_end_ms: 600_000, last_end_ms: 1_200_000, count: 2 }),
         };
         let text = serde_json::to_string(&StoredRef::new(BTreeMap::from([("U", r)]))).unwrap();
         assert!(text.starts_with(r#"{"format":"efftemp-units-1","units":"#), "{text}");
@@ -176,5 +185,6 @@ mod tests {
         assert_eq!(back["U"].last_end_ms, Some(5));
         assert_eq!(back["U"].monitor.as_ref(), Some(&m));
         assert_eq!(back["U"].header_overrides, overrides);
+        assert_eq!(back["U"].history.map(|s| s.count), Some(2));
     }
 }

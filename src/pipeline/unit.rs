@@ -18,8 +18,9 @@ use crate::core::model::Evaluation;
 use crate::core::{Note, UnitCore};
 use crate::ingest::reader::{ExportReader, Read};
 use crate::ingest::repeat::{RepeatLog, warn_summary};
-use crate::ingest::tail::TailOptions;
+use crate::ingest::tail::{PollLimits, PollStats, TailOptions};
 use crate::sinks::alert_log::AlertWriter;
+use crate::sinks::journal::{Journal, Span};
 use crate::sinks::report::ReportUnit;
 use crate::sinks::report::ShiftReports;
 use crate::sinks::softtags::{SoftTagWriter, info_columns};
@@ -57,6 +58,12 @@ pub struct UnitRuntime {
     last_data_mono: Option<u64>,
     /// Whether a pass has run since this runtime was created.
     started: bool,
+    /// What the last pass left unread (see [`UnitRuntime::backlog`]).
+    backlog: Option<u64>,
+    /// The monitor's block history journal (live service).
+    journal: Option<Journal>,
+    /// The journal's live span, as the next checkpoint names it.
+    history_span: Option<Span>,
     /// How long outputs are kept, and the data day they were last pruned for.
     retention: crate::sinks::retention::Retention,
     pruned_day: Option<jiff::civil::Date>,
@@ -245,6 +252,8 @@ pub(super) struct Outputs<'a> {
     pub(super) site: &'a SiteConfig,
     pub(super) dir: PathBuf,
     pub(super) stdout: bool,
+    /// The state directory (live service): the monitor's history goes to a journal there.
+    pub(super) state_dir: Option<PathBuf>,
 }
 
 impl UnitRuntime {
@@ -252,9 +261,25 @@ impl UnitRuntime {
         cfg: &UnitConfig,
         service: &ServiceConfig,
         out: &Outputs<'_>,
-        saved: UnitState,
+        mut saved: UnitState,
     ) -> io::Result<Self> {
         let spec = Arc::new(cfg.spec.clone());
+        let journal = match &out.state_dir {
+            Some(dir) => {
+                let mut j = Journal::new(dir, &spec.name);
+                let (blocks, note) = j.load(saved.history)?;
+                if let Some(note) = note {
+                    warn!(unit = %spec.name, "{note}");
+                }
+                if let Some(m) = saved.monitor.as_mut()
+                    && saved.history.is_some()
+                {
+                    m.history = blocks;
+                }
+                Some(j)
+            }
+            None => None,
+        };
         let options = TailOptions {
             pattern: cfg.input.pattern.clone(),
             exclude: cfg.input.exclude.clone(),
@@ -304,6 +329,9 @@ impl UnitRuntime {
             repeats: RepeatLog::default(),
             last_data_mono: None,
             started: false,
+            backlog: None,
+            journal,
+            history_span: saved.history,
             retention: service.retention,
             pruned_day: None,
         })
@@ -323,13 +351,16 @@ impl UnitRuntime {
                 .iter()
                 .map(|(k, v)| (k.to_string(), v.clone()))
                 .collect(),
+            history: self.history_span,
         }
     }
 
-    /// One pass: read what is new, close what is ready. `flush` closes the open intervals (end
-    /// of the replay input); they are also closed when the stream has been quiet for
-    /// `max_wait` of monotonic time (live).
-    pub(super) fn pass(&mut self, now_mono: u64, flush: bool) -> io::Result<u64> {
+    /// One pass: read what is new (within `limits`), close what is ready. `flush` closes the
+    /// open intervals (end of the replay input); they are also closed when the stream has been
+    /// quiet for `max_wait` of monotonic time (live), but never while the files hold more than
+    /// the pass read (a backlog is not quiet).
+    pub(super) fn pass(&mut self, limits: &PollLimits, flush: bool) -> io::Result<PollStats> {
+        let now_mono = limits.now_ms;
         let mut down = Downstream {
             assembler: &mut self.assembler,
             core: &mut self.core,
@@ -344,12 +375,13 @@ impl UnitRuntime {
             error: None,
         };
         self.reader.note_data_time(down.assembler.max_event());
-        let stats = self.reader.poll(now_mono, &mut |read| down.read(read));
+        let stats = self.reader.poll(limits, &mut |read| down.read(read));
+        self.backlog = stats.more.then_some(stats.unread_bytes);
         for s in down.repeats.take() {
             warn_summary(&down.core.spec().name, &s);
         }
         down.counters.bytes += stats.bytes_read;
-        if down.got_data {
+        if down.got_data || stats.more {
             self.last_data_mono = Some(now_mono);
         }
         if !self.started {
@@ -361,7 +393,8 @@ impl UnitRuntime {
             }
         }
         let wait = u64::try_from(down.core.spec().max_wait_ms).unwrap_or(u64::MAX);
-        let quiet = flush || self.last_data_mono.is_some_and(|t| now_mono.saturating_sub(t) >= wait);
+        let quiet =
+            flush || (!stats.more && self.last_data_mono.is_some_and(|t| now_mono.saturating_sub(t) >= wait));
         if flush {
             down.assembler.drop_held();
         }
@@ -376,7 +409,13 @@ impl UnitRuntime {
         // Make what this pass wrote visible to readers at once (fsync waits for the checkpoint).
         self.sinks.flush()?;
         self.prune_when_the_day_changed();
-        Ok(stats.records)
+        Ok(stats)
+    }
+
+    /// Data bytes waiting in the unit's files beyond what the last pass read (`None`: it read
+    /// everything there was).
+    pub fn backlog(&self) -> Option<u64> {
+        self.backlog
     }
 
     /// Delete outputs past their retention, once per new data day of the unit.
@@ -400,6 +439,11 @@ impl UnitRuntime {
                 tracing::warn!(unit = %self.cfg.spec.name, error = %e, "cannot delete outputs past their retention")
             }
         }
+    }
+
+    /// The unit's monitor (baseline, charts, block history).
+    pub fn monitor(&self) -> &crate::core::monitor::Monitor {
+        self.core.monitor()
     }
 
     /// Why the unit's export directory could not be read at the last pass (`None`: it could).
@@ -428,6 +472,7 @@ impl UnitRuntime {
             monitor_state: self.core.monitor().state.as_str().to_string(),
             bytes: c.bytes,
             input_problem: self.reader.unavailable().map(|w| format!("unit {}: {w}", self.cfg.spec.name)),
+            backlog_bytes: self.backlog,
         }
     }
 
@@ -446,7 +491,17 @@ impl UnitRuntime {
     pub(super) fn sync(&mut self) -> io::Result<()> {
         self.sinks.sync()?;
         ingest_counts::write_days(&self.dir, &self.cfg.spec.name, &self.tally.days);
+        if let Some(j) = self.journal.as_mut() {
+            self.history_span = j.sync(&self.core.monitor().history)?;
+        }
         Ok(())
+    }
+
+    /// The checkpoint naming this unit's journal span was written.
+    pub(super) fn checkpoint_written(&mut self) {
+        if let Some(j) = self.journal.as_mut() {
+            j.named(self.history_span);
+        }
     }
 
     /// Forward new alert events through `f`: events already in the alert log are not sent

@@ -18,6 +18,7 @@ pub mod alert_log;
 pub mod checkpoint;
 pub mod daily;
 pub mod ingest_counts;
+pub mod journal;
 pub mod report;
 pub mod retention;
 pub mod softtags;

@@ -13,6 +13,7 @@
 //! [`System::solve`] returns an [`Outcome`] with validity [`Flag`]s. Nothing here does I/O.
 
 use std::fmt;
+use std::sync::Arc;
 
 use super::component::{Component, DEFAULT_WATSON_N};
 use super::enthalpy::{EnthalpyPath, PureEnthalpy, T_REF};
@@ -109,16 +110,24 @@ pub struct System {
     pub models: Vec<PureEnthalpy>,
     /// Vapour-pressure model per component, where data exist.
     pub psat: Vec<Option<PsatModel>>,
+    /// `psat` with a placeholder where data are missing (for the bubble point, which is only
+    /// computed when every present component has data).
+    psat_filled: Vec<PsatModel>,
+    /// Heat of reaction per mol of key converted at 298.15 K, per reaction, J/mol.
+    hr_ref: Vec<f64>,
     /// Reactions.
     pub reactions: Vec<Reaction>,
     /// Search range for the effluent temperature, K.
     pub bounds: (f64, f64),
     /// Element symbols of the components' formulas, in order of first appearance.
-    elements: Vec<String>,
+    elements: Vec<Arc<str>>,
     /// Atoms of element `j` per molecule of component `i`, `atoms[i][j]`; `None` for a
     /// component without a formula.
     atoms: Vec<Option<Vec<f64>>>,
 }
+
+/// Components whose scratch flows the per-interval inversions keep on the stack.
+const HELD: usize = 16;
 
 /// Default search range for the effluent temperature, K.
 pub const DEFAULT_BOUNDS: (f64, f64) = (200.0, 1000.0);
@@ -180,13 +189,14 @@ impl System {
                 }
             }
         }
+        let elements: Vec<Arc<str>> = elements.into_iter().map(Arc::from).collect();
         let atoms: Vec<Option<Vec<f64>>> = components
             .iter()
             .map(|c| {
                 c.formula.as_ref().map(|f| {
                     elements
                         .iter()
-                        .map(|el| f.0.iter().filter(|(e, _)| e == el).map(|(_, k)| k).sum())
+                        .map(|el| f.0.iter().filter(|(e, _)| e.as_str() == &**el).map(|(_, k)| k).sum())
                         .collect()
                 })
             })
@@ -218,8 +228,22 @@ impl System {
                 }
             }
         }
-        let psat = components.iter().map(PsatModel::for_component).collect();
-        Ok(System { components, paths, models, psat, reactions, bounds, elements, atoms })
+        let psat: Vec<Option<PsatModel>> = components.iter().map(PsatModel::for_component).collect();
+        let psat_filled = psat.iter().map(|m| m.unwrap_or(PsatModel::Dippr101([0.0; 5]))).collect();
+        let mut system = System {
+            components,
+            paths,
+            models,
+            psat,
+            psat_filled,
+            hr_ref: Vec::new(),
+            reactions,
+            bounds,
+            elements,
+            atoms,
+        };
+        system.hr_ref = (0..system.reactions.len()).map(|r| system.heat_of_reaction(r, T_REF)).collect();
+        Ok(system)
     }
 
     /// Number of components.
@@ -322,6 +346,42 @@ impl System {
             *v *= total;
         }
         flows
+    }
+}
+
+/// Molar enthalpies and heat capacities of a system's components at one temperature
+/// ([`System::enthalpies_at`]); sums over them are the same numbers as
+/// [`System::stream_h_cp`] and [`System::reaction_enthalpy`] at that temperature.
+#[derive(Debug, Clone)]
+pub struct Enthalpies {
+    /// The temperature, K.
+    pub t: f64,
+    n: usize,
+    held: [(f64, f64); HELD],
+    heap: Vec<(f64, f64)>,
+}
+
+impl Enthalpies {
+    /// `(H_i, Cp_i)` per component.
+    fn values(&self) -> &[(f64, f64)] {
+        if self.heap.is_empty() { &self.held[..self.n] } else { &self.heap }
+    }
+
+    /// Total enthalpy flow (W) and heat-capacity flow (W/K) of component flows (mol/s).
+    pub fn stream_h_cp(&self, flows: &[f64]) -> (f64, f64) {
+        let (mut h, mut c) = (0.0, 0.0);
+        for (&(hi, ci), &n) in self.values().iter().zip(flows) {
+            if n != 0.0 {
+                h += n * hi;
+                c += n * ci;
+            }
+        }
+        (h, c)
+    }
+
+    /// `Σ ν_i H_i` per unit extent of a reaction with coefficients `nu`, J/mol.
+    pub fn reaction_enthalpy(&self, nu: &[f64]) -> f64 {
+        nu.iter().zip(self.values()).map(|(nu, &(h, _))| if *nu != 0.0 { nu * h } else { 0.0 }).sum()
     }
 }
 
@@ -688,7 +748,7 @@ pub struct Outcome {
     /// Heat of reaction per mol of key converted at 298.15 K and at T_out, J/mol.
     pub heats_of_reaction: Vec<(f64, f64)>,
     /// Element flows in and out (mol/s of atoms), when every component has a formula.
-    pub elements: Vec<(String, f64, f64)>,
+    pub elements: Vec<(Arc<str>, f64, f64)>,
     /// Ideal bubble point, when a pressure is given and data exist.
     pub bubble: Option<BubblePoint>,
     /// Validity flags.
@@ -815,7 +875,8 @@ impl System {
     }
 
     /// The balance residual `H_out(T) − H_in − Q + Q_loss` (W) with every quantity taken from
-    /// `inputs` and the unknown set to `value`. Used for sensitivities (no flow checks).
+    /// `inputs` and the unknown set to `value`. No flow checks; the uncertainty tests
+    /// differentiate it numerically as the reference for the analytic partials.
     pub fn residual(&self, inputs: &Inputs, unknown: Unknown, value: f64) -> f64 {
         let t_meas = inputs.effluent_temperature.unwrap_or(f64::NAN);
         let duty = inputs.duty.unwrap_or(0.0);
@@ -843,6 +904,128 @@ impl System {
                 self.reaction_enthalpy(r, outcome.t_out) * key_in / -reaction.nu[reaction.key]
             }
         }
+    }
+
+    /// The duty (W) that gives the effluent temperature `t` with the streams of `solved` (a
+    /// solve of `inputs` for the temperature): the same number as [`System::solve`] for
+    /// [`Unknown::Duty`] at `t`, by one enthalpy evaluation instead of a second solve. `None`
+    /// where that solve fails (a result that is not finite).
+    pub fn needed_duty(&self, inputs: &Inputs, solved: &Outcome, at: &Enthalpies) -> Option<f64> {
+        let t = at.t;
+        let (h_out, cp_out) = at.stream_h_cp(&solved.out_flows);
+        let duty = h_out - solved.h_in + inputs.heat_loss;
+        [t, duty, h_out, cp_out].iter().all(|x| x.is_finite()).then_some(duty)
+    }
+
+    /// The key conversion of reaction `r` that gives the effluent temperature `t` at the
+    /// reported duty, from `solved` (a solve of `inputs` for the temperature): the same number
+    /// and the same errors as [`System::solve`] for [`Unknown::Conversion`] with that reaction's
+    /// conversion left open, without a second solve. At a fixed temperature the balance is
+    /// linear in the extent, so the conversion is one division.
+    pub fn apparent_conversion(
+        &self,
+        inputs: &Inputs,
+        solved: &Outcome,
+        r: usize,
+        at: &Enthalpies,
+    ) -> Result<f64, SolveError> {
+        let t = at.t;
+        let Some(reaction) = self.reactions.get(r) else {
+            return Err(SolveError::MissingInput(format!("no reaction {}", r + 1)));
+        };
+        let duty = inputs.duty.ok_or_else(|| {
+            SolveError::MissingInput("solving for the conversion needs the heater duty".into())
+        })?;
+        let n = self.len();
+        let mut held = [[0.0; HELD]; 2];
+        let mut heap = Vec::new();
+        let (feed_total, out) = if n <= HELD {
+            let [a, b] = &mut held;
+            (&mut a[..n], &mut b[..n])
+        } else {
+            heap.resize(2 * n, 0.0);
+            heap.split_at_mut(n)
+        };
+        // The streams with reaction r at zero conversion, summed as `streams` sums them.
+        for flows in &solved.feed_flows {
+            for (total, f) in feed_total.iter_mut().zip(flows) {
+                *total += f;
+            }
+        }
+        out.copy_from_slice(feed_total);
+        let given = match &inputs.effluent {
+            Effluent::Reacted { conversions } => conversions.as_slice(),
+            _ => &[],
+        };
+        let mut extents_finite = true;
+        for (q, other) in self.reactions.iter().enumerate() {
+            let x = if q == r { 0.0 } else { given.get(q).copied().flatten().unwrap_or(0.0) };
+            let xi = x * feed_total[other.key] / -other.nu[other.key];
+            extents_finite &= xi.is_finite() && x.is_finite();
+            for (o, nu) in out.iter_mut().zip(&other.nu) {
+                *o += nu * xi;
+            }
+        }
+        let scale: f64 = feed_total.iter().map(|f| f.abs()).sum();
+        for (i, &f) in out.iter().enumerate() {
+            if f < -1e-12 * scale {
+                return Err(SolveError::NegativeFlow { component: self.components[i].id.clone(), flow: f });
+            }
+        }
+        let key_in = feed_total[reaction.key];
+        if key_in <= 0.0 {
+            return Err(SolveError::NoKeyFeed {
+                reaction: r,
+                component: self.components[reaction.key].id.clone(),
+            });
+        }
+        let f0 = at.stream_h_cp(out).0 - (solved.h_in + duty - inputs.heat_loss);
+        let dh = at.reaction_enthalpy(&reaction.nu);
+        let per_key = dh / -reaction.nu[reaction.key];
+        if per_key.abs() < 1.0 {
+            return Err(SolveError::ThermallyNeutral { reaction: r, t, dh: per_key });
+        }
+        let xi = -f0 / dh;
+        let x = xi * -reaction.nu[reaction.key] / key_in;
+        for (o, nu) in out.iter_mut().zip(&reaction.nu) {
+            *o += nu * xi;
+        }
+        let scale: f64 = feed_total.iter().sum();
+        for (i, &f) in out.iter().enumerate() {
+            if f < -1e-12 * scale {
+                return Err(SolveError::ImpossibleConversion {
+                    reaction: r,
+                    conversion: x,
+                    component: self.components[i].id.clone(),
+                    flow: f,
+                });
+            }
+        }
+        // What the solve's outcome checks besides: every figure finite.
+        let (h_out, cp_out) = at.stream_h_cp(out);
+        let out_total: f64 = out.iter().sum();
+        let out_mass = out.iter().zip(&self.components).map(|(n, c)| n * c.molar_mass).sum::<f64>() / 1000.0;
+        if ![t, duty, h_out, cp_out, out_total, out_mass, x, xi].iter().all(|v| v.is_finite())
+            || !extents_finite
+        {
+            return Err(SolveError::NotFinite("result (an input is too large)"));
+        }
+        Ok(x)
+    }
+
+    /// Every component's molar enthalpy and heat capacity at `t`, for several evaluations at
+    /// one temperature (one Watson power per component).
+    pub fn enthalpies_at(&self, t: f64) -> Enthalpies {
+        let n = self.len();
+        let mut e = Enthalpies { t, n, held: [(0.0, 0.0); HELD], heap: Vec::new() };
+        if n > HELD {
+            e.heap = self.models.iter().map(|m| m.h_cp(t)).collect();
+        } else {
+            for (slot, m) in e.held.iter_mut().zip(&self.models) {
+                *slot = m.h_cp(t);
+            }
+        }
+        e
     }
 
     /// Solve the balance for `unknown` and compute every reported figure.
@@ -962,7 +1145,8 @@ impl System {
         solution: (f64, f64, Option<Method>),
     ) -> Result<Outcome, SolveError> {
         let (t_out, duty, method) = solution;
-        let (h_out, cp_out) = self.stream_h_cp(&streams.out_flows, t_out);
+        let at = self.enthalpies_at(t_out);
+        let (h_out, cp_out) = at.stream_h_cp(&streams.out_flows);
         let out_total: f64 = streams.out_flows.iter().sum();
         let out_mass =
             streams.out_flows.iter().zip(&self.components).map(|(n, c)| n * c.molar_mass).sum::<f64>()
@@ -972,8 +1156,13 @@ impl System {
         {
             return Err(SolveError::NotFinite("result (an input is too large)"));
         }
-        let heats_of_reaction = (0..self.reactions.len())
-            .map(|r| (self.heat_of_reaction(r, T_REF), self.heat_of_reaction(r, t_out)))
+        let heats_of_reaction = self
+            .reactions
+            .iter()
+            .zip(&self.hr_ref)
+            .map(|(reaction, &at_ref)| {
+                (at_ref, at.reaction_enthalpy(&reaction.nu) / -reaction.nu[reaction.key])
+            })
             .collect();
 
         let mut outcome = Outcome {
@@ -1023,7 +1212,7 @@ impl System {
             }
             let rel = if a_in != 0.0 { (a_out - a_in) / a_in } else { 0.0 };
             if rel.abs() > 1e-3 {
-                outcome.flags.push(Flag::ElementImbalance { element: el.clone(), relative: rel });
+                outcome.flags.push(Flag::ElementImbalance { element: el.to_string(), relative: rel });
             }
             elements.push((el.clone(), a_in, a_out));
         }
@@ -1033,7 +1222,15 @@ impl System {
     fn validity(&self, inputs: &Inputs, outcome: &mut Outcome) {
         let mut flags: Vec<Flag> = Vec::new();
         // Lowest and highest temperature each component is present at (feeds and effluent).
-        let mut span = vec![(f64::INFINITY, f64::NEG_INFINITY); self.len()];
+        let empty = (f64::INFINITY, f64::NEG_INFINITY);
+        let mut held = [empty; HELD];
+        let mut heap = Vec::new();
+        let span: &mut [(f64, f64)] = if self.len() <= HELD {
+            &mut held[..self.len()]
+        } else {
+            heap.resize(self.len(), empty);
+            &mut heap
+        };
         let streams = inputs
             .feeds
             .iter()
@@ -1048,7 +1245,7 @@ impl System {
                 }
             }
         }
-        for ((i, c), &(t_lo, t_hi)) in self.components.iter().enumerate().zip(&span) {
+        for ((i, c), &(t_lo, t_hi)) in self.components.iter().enumerate().zip(&*span) {
             if t_lo > t_hi {
                 continue; // absent everywhere
             }
@@ -1082,17 +1279,10 @@ impl System {
         }
         if let Some(p) = inputs.pressure {
             let x = outcome.out_fractions();
-            let missing: Vec<&str> = x
-                .iter()
-                .zip(&self.psat)
-                .zip(&self.components)
-                .filter(|((x, m), _)| **x > 0.0 && m.is_none())
-                .map(|(_, c)| c.id.as_str())
-                .collect();
-            if missing.is_empty() {
-                let models: Vec<PsatModel> =
-                    self.psat.iter().map(|m| m.unwrap_or(PsatModel::Dippr101([0.0; 5]))).collect();
-                match bubble_point(&models, &x, p) {
+            let lacks = |((x, m), _): &((&f64, &Option<PsatModel>), &Component)| **x > 0.0 && m.is_none();
+            let present = || x.iter().zip(&self.psat).zip(&self.components);
+            if !present().any(|c| lacks(&c)) {
+                match bubble_point(&self.psat_filled, &x, p) {
                     Ok((t_b, y)) => {
                         for (i, c) in self.components.iter().enumerate() {
                             if x[i] > 0.0
@@ -1122,6 +1312,7 @@ impl System {
                     Err(e) => flags.push(Flag::BubblePointUnavailable { reason: e.to_string() }),
                 }
             } else {
+                let missing: Vec<&str> = present().filter(lacks).map(|(_, c)| c.id.as_str()).collect();
                 flags.push(Flag::BubblePointUnavailable {
                     reason: format!(
                         "no vapour-pressure data (psat, or pc and omega) for {}",

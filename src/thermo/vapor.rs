@@ -39,10 +39,16 @@ impl PsatModel {
     /// `ln(Psat/Pa)` and its derivative with respect to T.
     #[inline]
     pub fn ln_psat(&self, t: f64) -> (f64, f64) {
+        self.ln_psat_at(t, t.ln())
+    }
+
+    /// [`ln_psat`](Self::ln_psat) with `ln_t = ln T` given (shared by every component at T).
+    #[inline]
+    fn ln_psat_at(&self, t: f64, ln_t: f64) -> (f64, f64) {
         match *self {
             PsatModel::Dippr101(c) => {
                 let tp = if c[3] == 0.0 { 0.0 } else { c[3] * t.powf(c[4]) };
-                let v = c[0] + c[1] / t + c[2] * t.ln() + tp;
+                let v = c[0] + c[1] / t + c[2] * ln_t + tp;
                 let d = -c[1] / (t * t) + c[2] / t + if c[4] == 0.0 { 0.0 } else { tp * c[4] / t };
                 (v, d)
             }
@@ -66,6 +72,9 @@ impl PsatModel {
     }
 }
 
+/// Components whose ln Psat a bubble-point iteration keeps on the stack.
+const HELD: usize = 16;
+
 /// Search range for bubble points, K.
 pub const BUBBLE_RANGE: (f64, f64) = (150.0, 650.0);
 
@@ -79,18 +88,27 @@ pub fn bubble_point(
 ) -> Result<(f64, Vec<f64>), super::solver::RootError> {
     let total: f64 = x.iter().sum();
     let ln_p = pressure.ln();
-    // ln Σ x_i exp(L_i), computed stably (log-sum-exp), and its derivative.
-    let g = |t: f64| {
+    // ln Σ x_i exp(L_i), computed stably (log-sum-exp), and its derivative. Each component's
+    // ln Psat is evaluated once per temperature (kept for the sum when the mixture is small
+    // enough for the stack buffer, else evaluated again: the same numbers either way).
+    let mut held = [(0.0, 0.0); HELD];
+    let keep = models.len() <= HELD;
+    let mut g = |t: f64| {
+        let ln_t = t.ln();
         let mut m = f64::NEG_INFINITY;
-        for (model, &xi) in models.iter().zip(x) {
+        for (k, (model, &xi)) in models.iter().zip(x).enumerate() {
             if xi > 0.0 {
-                m = m.max(model.ln_psat(t).0);
+                let l = model.ln_psat_at(t, ln_t);
+                if keep {
+                    held[k] = l;
+                }
+                m = m.max(l.0);
             }
         }
         let (mut s, mut ds) = (0.0, 0.0);
-        for (model, &xi) in models.iter().zip(x) {
+        for (k, (model, &xi)) in models.iter().zip(x).enumerate() {
             if xi > 0.0 {
-                let (l, dl) = model.ln_psat(t);
+                let (l, dl) = if keep { held[k] } else { model.ln_psat_at(t, ln_t) };
                 let w = xi / total * (l - m).exp();
                 s += w;
                 ds += w * dl;
@@ -100,7 +118,7 @@ pub fn bubble_point(
     };
     let guess = 350.0;
     let root = newton_brent(
-        g,
+        &mut g,
         guess,
         BUBBLE_RANGE.0,
         BUBBLE_RANGE.1,

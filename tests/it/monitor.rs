@@ -183,11 +183,22 @@ fn restart_during_a_developing_fault_gives_the_same_alerts_once() {
     let (head, tail) = text.split_at(text.len() / 2);
     let cut = head.rfind('\n').unwrap() + 1;
     std::fs::write(&last, &text[..cut]).unwrap();
-    {
+    let history = {
         let mut p = Pipeline::new(&site, &Mode::Live).unwrap();
         while p.pass(0, false).unwrap().records > 0 {}
         p.checkpoint().unwrap();
-    }
+        p.units[0].monitor().history.clone()
+    };
+    // The monitor's block history is in its journal, not in the checkpoint, and comes back
+    // whole from there.
+    let state = dir.path().join("state");
+    let journal = std::fs::read_to_string(state.join("history/R-204.jsonl")).unwrap();
+    assert!(history.len() > 20, "{} blocks", history.len());
+    assert_eq!(journal.lines().count(), history.len());
+    let checkpoint = std::fs::read_to_string(state.join("state.json")).unwrap();
+    assert!(!checkpoint.contains("\"history\":["), "the checkpoint still carries the history");
+    assert!(checkpoint.len() < 64 << 10, "checkpoint of {} bytes", checkpoint.len());
+    assert_eq!(Pipeline::new(&site, &Mode::Live).unwrap().units[0].monitor().history, history);
     // The fault develops while the service is down; then it resumes.
     let _ = tail;
     std::fs::write(&last, &text).unwrap();

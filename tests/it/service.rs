@@ -936,3 +936,132 @@ fn reviewed_range_flags_can_be_accepted_but_two_phase_risk_cannot() {
         "{err}"
     );
 }
+
+/// A backlog (three days of 10-s data written while the service was down) is read in bounded
+/// passes: the first snapshot (systemd's READY) comes after one slice, snapshots say
+/// "catching up" with the unread bytes going down, checkpoints are written during the catch-up,
+/// a stop in the middle is prompt, and a restart finishes the backlog with the same soft tags
+/// as a replay.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_backlog_is_read_in_bounded_passes_with_checkpoints_and_a_prompt_stop() {
+    let plant = TestPlant::new("");
+    for d in 0..3 {
+        plant.append(&format!("plant_2026120{}.csv", d + 1), &TestPlant::rows(d * 86_400, (d + 1) * 86_400));
+    }
+    let mut site = util::quick_site(&plant.config);
+    // Below what a site file may set (10 ms): slices of the smallest budget, 64 KiB.
+    site.service.slice_ms = 1;
+    let site = Arc::new(site);
+    let (snap_tx, mut snap_rx) = tokio::sync::watch::channel(efftemp::app::http::Snapshot::default());
+    let svc = Running::start(site.clone(), false, Some(snap_tx));
+    svc.notify.notify_one();
+    // Watch the catch-up for a few slices.
+    let mut seen: Vec<(u64, bool, u64, u64)> = Vec::new();
+    while seen.len() < 6 || seen[seen.len() - 1].3 == seen[0].3 {
+        tokio::time::timeout(Duration::from_secs(20), snap_rx.changed()).await.expect("snapshots").unwrap();
+        let s = snap_rx.borrow_and_update().clone();
+        let unread = s.units.iter().filter_map(|u| u.backlog_bytes).sum::<u64>();
+        seen.push((s.passes, s.catching_up, unread, s.checkpoint_writes));
+        assert!(s.catching_up, "caught up before a checkpoint was written: {seen:?}");
+    }
+    let first = seen[0];
+    let last = seen[seen.len() - 1];
+    assert_eq!(first.0, 1, "{seen:?}");
+    assert!(last.2 < first.2, "the backlog did not shrink: {seen:?}");
+    assert!(last.3 > first.3, "no checkpoint during the catch-up: {seen:?}");
+    let stopping = Instant::now();
+    svc.stop().await;
+    let stop_took = stopping.elapsed();
+    assert!(stop_took < Duration::from_secs(2), "stop took {stop_took:?} during a catch-up");
+    let partial = rows_in(&TestPlant::soft_tags(&plant.output));
+    assert!(partial > 0 && partial < 3 * 1440 - 10, "{partial} rows before the stop; {seen:?}");
+    // A restart goes on from the checkpoint and finishes the backlog.
+    let svc = Running::start(site, false, None);
+    svc.notify.notify_one();
+    wait_for("the whole backlog", Duration::from_secs(120), || {
+        rows_in(&TestPlant::soft_tags(&plant.output)) >= 3 * 1440
+    })
+    .await
+    .unwrap_or_else(|()| panic!("rows: {}", rows_in(&TestPlant::soft_tags(&plant.output))));
+    svc.stop().await;
+    let out = tempfile::tempdir().unwrap();
+    util::assert_same_lines(&TestPlant::soft_tags(&plant.output), &replay(&plant, out.path()), "soft tags");
+}
+
+/// The real binary under systemd's notification protocol, started on a backlog (30 days of
+/// 10-s data): READY comes after the first slice, long before the backlog is read, with a
+/// STATUS that says it is catching up; watchdog keep-alives keep coming while it catches up
+/// (none is more than `WATCHDOG_USEC` after the previous one); SIGTERM in the middle stops it
+/// within 2 s, and a restart finishes the backlog with the soft tags of a replay.
+#[cfg(target_os = "linux")]
+#[test]
+fn a_backlog_under_systemd_keeps_the_watchdog_fed_and_stops_promptly() {
+    use std::os::unix::net::UnixDatagram;
+    let plant = TestPlant::new("");
+    let cfg = std::fs::read_to_string(&plant.config)
+        .unwrap()
+        .replace("max_wait = \"3m\"", "max_wait = \"2s\"")
+        .replace("[service]", "[service]\nhttp_address = \"off\"\ncatch_up_slice = \"50ms\"");
+    std::fs::write(&plant.config, &cfg).unwrap();
+    let days = 30;
+    for d in 0..days {
+        plant
+            .append(&format!("plant_202612{:02}.csv", d + 1), &TestPlant::rows(d * 86_400, (d + 1) * 86_400));
+    }
+    let sock_path = plant.state.parent().unwrap().join("notify.sock");
+    let sock = UnixDatagram::bind(&sock_path).unwrap();
+    sock.set_read_timeout(Some(Duration::from_millis(100))).unwrap();
+    let watchdog = Duration::from_millis(800);
+    let started = Instant::now();
+    let mut child = Command::new(assert_cmd::cargo::cargo_bin!("efftemp"))
+        .args(["run", "--log-format", "json", "--log-level", "warn", "--config"])
+        .arg(&plant.config)
+        .env("NOTIFY_SOCKET", &sock_path)
+        .env("WATCHDOG_USEC", watchdog.as_micros().to_string())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut got: Vec<(Duration, String)> = Vec::new();
+    let mut buf = [0u8; 4096];
+    let pings = |got: &[(Duration, String)]| got.iter().filter(|m| m.1.contains("WATCHDOG=1")).count();
+    while pings(&got) < 3 && started.elapsed() < Duration::from_secs(60) {
+        if let Ok(n) = sock.recv(&mut buf) {
+            got.push((started.elapsed(), String::from_utf8_lossy(&buf[..n]).into_owned()));
+        }
+    }
+    // Datagrams queued while the test looked at the others.
+    sock.set_nonblocking(true).unwrap();
+    while let Ok(n) = sock.recv(&mut buf) {
+        got.push((started.elapsed(), String::from_utf8_lossy(&buf[..n]).into_owned()));
+    }
+    let texts: Vec<&str> = got.iter().map(|m| m.1.as_str()).collect();
+    let ready = got.iter().find(|m| m.1.contains("READY=1")).unwrap_or_else(|| panic!("no READY: {texts:?}"));
+    assert!(ready.1.contains("STATUS=catching up: "), "{texts:?}");
+    let ping_times: Vec<Duration> = got.iter().filter(|m| m.1.contains("WATCHDOG=1")).map(|m| m.0).collect();
+    assert!(ping_times.len() >= 3, "{texts:?}");
+    for w in ping_times.windows(2) {
+        assert!(w[1] - w[0] <= watchdog, "keep-alives {:?} apart: {got:?}", w[1] - w[0]);
+    }
+    let status_now = got.iter().rev().find(|m| m.1.contains("STATUS=")).unwrap();
+    assert!(status_now.1.contains("catching up"), "caught up before the test could stop it: {texts:?}");
+    let stopping = Instant::now();
+    Command::new("kill").arg("-TERM").arg(child.id().to_string()).status().unwrap();
+    let status = child.wait().unwrap();
+    let stop_took = stopping.elapsed();
+    assert!(status.success(), "{status:?}");
+    assert!(stop_took <= Duration::from_secs(2), "SIGTERM during the catch-up took {stop_took:?}");
+    let total = usize::try_from(days).unwrap() * 1440;
+    let partial = rows_in(&TestPlant::soft_tags(&plant.output));
+    assert!(partial < total - 10, "the backlog was read before the stop ({partial} rows)");
+    let mut child = spawn_run(&plant.config);
+    let deadline = Instant::now() + Duration::from_secs(120);
+    while rows_in(&TestPlant::soft_tags(&plant.output)) < total && Instant::now() < deadline {
+        std::thread::sleep(Duration::from_millis(200));
+    }
+    Command::new("kill").arg("-TERM").arg(child.id().to_string()).status().unwrap();
+    assert!(child.wait().unwrap().success());
+    let out = tempfile::tempdir().unwrap();
+    util::assert_same_lines(&TestPlant::soft_tags(&plant.output), &replay(&plant, out.path()), "soft tags");
+    println!("READY after {:?}, keep-alives at {ping_times:?}, SIGTERM took {stop_took:?}", ready.0);
+}

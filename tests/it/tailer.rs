@@ -25,7 +25,7 @@ use std::path::Path;
 
 use efftemp::hash::fnv1a64;
 use efftemp::ingest::split::{Item, Position, Splitter};
-use efftemp::ingest::tail::{Notice, RejectReason, TailEvent, TailOptions, TailState, Tailer};
+use efftemp::ingest::tail::{Notice, PollLimits, RejectReason, TailEvent, TailOptions, TailState, Tailer};
 use proptest::prelude::*;
 
 const HEADER_FIELDS: [&str; 5] = ["Time", "Id", "Tag", "Value", "Note"];
@@ -452,7 +452,11 @@ fn check_boundaries(dir: &Path, state: &TailState) -> Result<(), TestCaseError> 
 }
 
 /// Run one action sequence; check the properties.
-fn run(actions: &[Action], chunk: usize, fp: usize, marker: usize) -> Result<(), TestCaseError> {
+///
+/// With a `budget` (bytes per poll), each poll of the sequence is repeated until the tailer says
+/// it has read everything (as the service does while it catches up), and the same properties
+/// must hold: nothing lost, nothing partial, no duplicates, checkpoints on boundaries.
+fn run(actions: &[Action], chunk: usize, fp: usize, marker: usize, budget: u64) -> Result<(), TestCaseError> {
     let mut w = World::new();
     let opts = options(chunk, fp, marker);
     let mut tailer = Tailer::new(w.dir.path().to_path_buf(), opts.clone(), None);
@@ -489,41 +493,48 @@ fn run(actions: &[Action], chunk: usize, fp: usize, marker: usize) -> Result<(),
                 let mut fail = |msg: String| {
                     failure.get_or_insert(msg);
                 };
-                tailer
-                    .poll(now, &mut |e| match e {
-                        TailEvent::Header { file, fields } => {
-                            if fields != HEADER_FIELDS {
-                                fail(format!("header of {} is {fields:?}", file.path.display()));
-                            }
-                            headers_seen.insert(file.id);
+                let limits = PollLimits { now_ms: now, wall_ms: None, budget_bytes: budget };
+                let mut on_event = |e: TailEvent<'_>| match e {
+                    TailEvent::Header { file, fields } => {
+                        if fields != HEADER_FIELDS {
+                            fail(format!("header of {} is {fields:?}", file.path.display()));
                         }
-                        TailEvent::Record { file, record } => {
-                            let f: Vec<String> =
-                                record.iter().map(|b| String::from_utf8_lossy(b).into_owned()).collect();
-                            let k = key(&f);
-                            if !w.written.contains(&k) {
-                                fail(format!(
-                                    "delivered a row never written whole: {f:?} from {}",
-                                    file.path.display()
-                                ));
-                            }
-                            if !headers_seen.contains(&file.id) {
-                                fail(format!("record before header in {}", file.path.display()));
-                            }
-                            *delivered.entry(k).or_default() += 1;
+                        headers_seen.insert(file.id);
+                    }
+                    TailEvent::Record { file, record } => {
+                        let f: Vec<String> =
+                            record.iter().map(|b| String::from_utf8_lossy(b).into_owned()).collect();
+                        let k = key(&f);
+                        if !w.written.contains(&k) {
+                            fail(format!(
+                                "delivered a row never written whole: {f:?} from {}",
+                                file.path.display()
+                            ));
                         }
-                        TailEvent::Rejected { file, line, reason } => {
-                            if !matches!(reason, RejectReason::Unterminated { .. }) {
-                                fail(format!("rejected {reason:?} at {}:{line}", file.path.display()));
-                            }
+                        if !headers_seen.contains(&file.id) {
+                            fail(format!("record before header in {}", file.path.display()));
                         }
-                        TailEvent::Notice { file, notice } => {
-                            if let Notice::Error(e) = notice {
-                                fail(format!("I/O error on {}: {e}", file.path.display()));
-                            }
+                        *delivered.entry(k).or_default() += 1;
+                    }
+                    TailEvent::Rejected { file, line, reason } => {
+                        if !matches!(reason, RejectReason::Unterminated { .. }) {
+                            fail(format!("rejected {reason:?} at {}:{line}", file.path.display()));
                         }
-                    })
-                    .unwrap();
+                    }
+                    TailEvent::Notice { file, notice } => {
+                        if let Notice::Error(e) = notice {
+                            fail(format!("I/O error on {}: {e}", file.path.display()));
+                        }
+                    }
+                };
+                let mut slices = 0;
+                while tailer.poll_within(&limits, &mut on_event).unwrap().more {
+                    slices += 1;
+                    prop_assert!(slices < 100_000, "a bounded poll never finishes");
+                    if slices % 7 == 0 {
+                        check_boundaries(w.dir.path(), &tailer.state())?;
+                    }
+                }
                 if let Some(msg) = failure {
                     return Err(TestCaseError::fail(msg));
                 }
@@ -556,8 +567,9 @@ proptest! {
         chunk in prop::sample::select(vec![5usize, 64, 4096]),
         fp in prop::sample::select(vec![48usize, 1024]),
         marker in prop::sample::select(vec![8usize, 64]),
+        budget in prop::sample::select(vec![u64::MAX, u64::MAX, 1, 50, 700]),
     ) {
-        run(&actions, chunk, fp, marker)?;
+        run(&actions, chunk, fp, marker, budget)?;
     }
 }
 
@@ -600,7 +612,8 @@ fn every_action_once() {
         Action::DeleteAndRecreate(2),
         Action::Poll(2 * SEAL_MS),
     ];
-    run(&actions, 7, 48, 8).unwrap();
+    run(&actions, 7, 48, 8, u64::MAX).unwrap();
+    run(&actions, 7, 48, 8, 20).unwrap();
 }
 
 /// Throughput of one poll over a large wide file (about 100 MB, 20 numeric columns). Not a
@@ -662,7 +675,7 @@ fn regression_crlf_header_newline_is_not_content() {
         Action::RotateRename,
         Action::TruncateAndRefill,
     ];
-    run(&actions, 5, 48, 8).unwrap();
+    run(&actions, 5, 48, 8, u64::MAX).unwrap();
 }
 
 /// After a restart, a header-only generation whose file had been replaced took the new file
@@ -676,7 +689,7 @@ fn regression_gone_header_only_generation_does_not_take_the_new_file() {
         Action::Restart,
         Action::Poll(0),
     ];
-    run(&actions, 5, 48, 8).unwrap();
+    run(&actions, 5, 48, 8, u64::MAX).unwrap();
 }
 
 /// A partial row rewritten in place after a truncation shares its first bytes (the
@@ -691,7 +704,7 @@ fn regression_partial_row_rewritten_in_place_is_parsed_again() {
         Action::CopyTruncate,
         Action::AppendRows(1),
     ];
-    run(&actions, 5, 48, 8).unwrap();
+    run(&actions, 5, 48, 8, u64::MAX).unwrap();
 }
 
 /// After a restart, a header-only generation matched a copy of another file that reused its
@@ -706,5 +719,5 @@ fn regression_header_only_generation_is_not_matched_by_a_reused_inode() {
         Action::Restart,
         Action::CopyTruncate,
     ];
-    run(&actions, 5, 48, 8).unwrap();
+    run(&actions, 5, 48, 8, u64::MAX).unwrap();
 }

@@ -505,7 +505,7 @@ fn element_balance(o: &Outcome) -> Option<IndexMap<String, ElementReport>> {
             .iter()
             .map(|(e, a, b)| {
                 (
-                    e.clone(),
+                    e.to_string(),
                     ElementReport {
                         feed_mol_s: *a,
                         effluent_mol_s: *b,

@@ -114,8 +114,9 @@ fn solve_linear(mut a: Vec<Vec<f64>>, mut b: Vec<f64>) -> Option<Vec<f64>> {
         for row in col + 1..n {
             let f = a[row][col] / a[col][col];
             if f != 0.0 {
-                let pivot_row = a[col].clone();
-                for (x, p) in a[row][col..n].iter_mut().zip(&pivot_row[col..n]) {
+                // The pivot row borrowed beside the row it reduces (no copy per row).
+                let (above, below) = a.split_at_mut(row);
+                for (x, p) in below[0][col..n].iter_mut().zip(&above[col][col..n]) {
                     *x -= f * p;
                 }
                 b[row] -= f * b[col];

@@ -66,7 +66,10 @@ impl Instruments {
         let w = cfg.flatline_intervals.max(5);
         push_bounded(&mut self.recent_pred, x.pred, w);
         push_bounded(&mut self.recent_meas, x.meas, w);
-        push_bounded(&mut self.recent_tags, x.tags.to_vec(), w);
+        push_bounded_row(&mut self.recent_tags, x.tags, w, |row, tags| {
+            row.clear();
+            row.extend_from_slice(tags);
+        });
         push_bounded(&mut self.recent_resid, x.r, 7);
         let sigma_i = baseline.map_or(SIGMA_WITHOUT_BASELINE, |b| b.sigma_interval.max(1e-3));
         if self.is_spike(sigma_i) && baseline.is_some() {
@@ -150,6 +153,23 @@ impl Instruments {
         active: &mut Held,
     ) {
         let tag = &unit.tags[i];
+        let stuck_held = |active: &Held| {
+            active.iter().any(|a| {
+                a.cause == Cause::InstrumentFault
+                    && a.subject.strip_suffix(":stuck").is_some_and(|s| s == tag.name)
+            })
+        };
+        // Cheapest first (this runs for every tag and interval): the two newest values already
+        // differ by more than a flat window can span (its width is at most 1e-9 of its largest
+        // magnitude, or of 1, which is at most 1.000000002 times the newest one's), so the
+        // window is not flat, and with no stuck alert to clear there is nothing to do.
+        let mut newest = self.recent_tags.iter().rev().filter_map(|t| t.get(i).copied().flatten());
+        if let (Some(a), Some(b)) = (newest.next(), newest.next())
+            && (a - b).abs() > 2e-9 * a.abs().max(1.0)
+            && !stuck_held(active)
+        {
+            return;
+        }
         let (n, lo, hi) = self
             .recent_tags
             .iter()
@@ -167,12 +187,7 @@ impl Instruments {
             .and_then(|b| b.tag_noise.get(i).copied().flatten())
             .is_some_and(|n| n > 1e-9 * hi.abs().max(1.0));
         let moved = noisy || process_moved;
-        if !flat
-            && !active.iter().any(|a| {
-                a.cause == Cause::InstrumentFault
-                    && a.subject.strip_suffix(":stuck").is_some_and(|s| s == tag.name)
-            })
-        {
+        if !flat && !stuck_held(active) {
             return;
         }
         let subject = format!("{}:stuck", tag.name);
@@ -280,7 +295,12 @@ impl StepWindow {
         active: &mut Held,
     ) {
         let Some(b) = baseline else { return };
-        push_bounded(&mut self.0, (x.end_ms, x.r, x.pred, x.meas, x.tags.to_vec()), 30);
+        let row = (x.end_ms, x.r, x.pred, x.meas);
+        push_bounded_row(&mut self.0, (row, x.tags), 30, |old, (row, tags)| {
+            (old.0, old.1, old.2, old.3) = row;
+            old.4.clear();
+            old.4.extend_from_slice(tags);
+        });
         if let Some(p) = pending.as_ref() {
             if x.end_ms >= p.due_ms {
                 if p.still_standing(&self.0) {
@@ -337,15 +357,27 @@ impl StepWindow {
         self.0.clear();
     }
 
-    fn col(&self, f: &dyn Fn(&StepRow) -> f64, range: std::ops::Range<usize>) -> Vec<f64> {
-        self.0.range(range).map(f).collect()
+    /// One figure of the rows in `range` (at most 30), into `buf`.
+    fn col<'b>(
+        &self,
+        f: &dyn Fn(&StepRow) -> f64,
+        range: std::ops::Range<usize>,
+        buf: &'b mut [f64; 30],
+    ) -> &'b [f64] {
+        let mut n = 0;
+        for (slot, row) in buf.iter_mut().zip(self.0.range(range)) {
+            *slot = f(row);
+            n += 1;
+        }
+        &buf[..n]
     }
 
     /// The residual's step, if it stands out from what the step statistic does on steady
     /// data and both windows are quiet.
     fn step(&self, cfg: &MonitorConfig, b: &Baseline) -> Option<Step> {
-        let (rb, ra) = (self.col(&|x| x.1, 0..20), self.col(&|x| x.1, 20..30));
-        let (mb, ma) = (stats::median(&rb), stats::median(&ra));
+        let (mut b1, mut b2) = ([0.0; 30], [0.0; 30]);
+        let (rb, ra) = (self.col(&|x| x.1, 0..20, &mut b1), self.col(&|x| x.1, 20..30, &mut b2));
+        let (mb, ma) = (stats::median(rb), stats::median(ra));
         let dr = ma - mb;
         let sig_i = b.sigma_interval.max(1e-3);
         // A step must stand out from what the step statistic does on steady data (six times
@@ -359,12 +391,15 @@ impl StepWindow {
         if dr.abs() < threshold {
             return None;
         }
-        let quiet = stats::mad_sigma(&rb) <= 3.0 * sig_i && stats::mad_sigma(&ra) <= 3.0 * sig_i;
+        let quiet = stats::mad_sigma(rb) <= 3.0 * sig_i && stats::mad_sigma(ra) <= 3.0 * sig_i;
         if !quiet {
             return None;
         }
-        let dp = stats::median(&self.col(&|x| x.2, 20..30)) - stats::median(&self.col(&|x| x.2, 0..20));
-        let dm = stats::median(&self.col(&|x| x.3, 20..30)) - stats::median(&self.col(&|x| x.3, 0..20));
+        let (mut b3, mut b4) = ([0.0; 30], [0.0; 30]);
+        let dp = stats::median(self.col(&|x| x.2, 20..30, &mut b3))
+            - stats::median(self.col(&|x| x.2, 0..20, &mut b4));
+        let dm = stats::median(self.col(&|x| x.3, 20..30, &mut b3))
+            - stats::median(self.col(&|x| x.3, 0..20, &mut b4));
         Some(Step { after: ma, size: dr, prediction: dp, measurement: dm })
     }
 
@@ -511,6 +546,14 @@ fn suspect(
 }
 
 /// Append `v`, keeping the last `n`.
+/// [`push_bounded`] of a row built from `v`: when the queue is full, the oldest row is
+/// overwritten in place by `fill` (its buffers reused) instead of a new one allocated.
+fn push_bounded_row<T: Default, V: Copy>(q: &mut VecDeque<T>, v: V, n: usize, fill: impl Fn(&mut T, V)) {
+    let mut row = if n > 0 && q.len() >= n { q.pop_front().unwrap_or_default() } else { T::default() };
+    fill(&mut row, v);
+    push_bounded(q, row, n);
+}
+
 fn push_bounded<T>(q: &mut VecDeque<T>, v: T, n: usize) {
     q.push_back(v);
     while q.len() > n {

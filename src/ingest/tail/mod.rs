@@ -145,7 +145,8 @@ struct Tracked {
     prefix: Vec<u8>,
     header_sent: bool,
     /// When the file last grew (or was (re)opened), caller's clock.
-    last_growth_ms: u64,
+    /// (Signed: a file found long untouched grew before the caller's clock started.)
+    last_growth_ms: i64,
     /// Found in the directory listing in this poll.
     present: bool,
     /// Content checked in this process (a loaded checkpoint is not, until matched).
@@ -154,6 +155,9 @@ struct Tracked {
     detached: bool,
     /// A read failed: look at the file again at the next poll even if it looks unchanged.
     stale: bool,
+    /// Reading stopped at the poll's read budget before the end of the file: read on at the
+    /// next poll, and never seal it before its end has been read.
+    more: bool,
 }
 
 impl Tracked {
@@ -175,6 +179,7 @@ impl Tracked {
             validated: false,
             detached: false,
             stale: false,
+            more: false,
         }
     }
 
@@ -263,12 +268,41 @@ struct Ctx<'s> {
     last_header: &'s mut Option<Vec<String>>,
     stats: PollStats,
     now: u64,
+    /// Wall-clock time of the poll, ms since the Unix epoch, if the caller gave one.
+    wall_ms: Option<i64>,
+    /// Data bytes this poll may still read (`u64::MAX`: no limit).
+    budget: u64,
 }
 
 impl Ctx<'_> {
+    /// The caller's monotonic time at which a file last modified at `mtime_ns` last grew, as
+    /// far as the wall clock tells: a file found long untouched (a backlog) is already quiet,
+    /// so that it can be sealed and its handle closed as soon as it has been read.
+    fn grown_at(&self, mtime_ns: Option<i64>) -> i64 {
+        let now = self.now_signed();
+        let (Some(wall), Some(mtime)) = (self.wall_ms, mtime_ns) else { return now };
+        now.saturating_sub(wall.saturating_sub(mtime / 1_000_000).max(0))
+    }
+
+    fn now_signed(&self) -> i64 {
+        i64::try_from(self.now).unwrap_or(i64::MAX)
+    }
+
     fn notice(&mut self, t: &Tracked, notice: Notice) {
         (self.sink)(TailEvent::Notice { file: t.file_ref(), notice });
     }
+}
+
+/// The limits of one [`Tailer::poll_within`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct PollLimits {
+    /// The caller's monotonic time, ms (quiet periods).
+    pub now_ms: u64,
+    /// Wall-clock time, ms since the Unix epoch, to judge how long a file found on disk has
+    /// been untouched (`None`: every file found counts as just grown).
+    pub wall_ms: Option<i64>,
+    /// Data bytes to read at most (rounded up to whole read chunks; `u64::MAX`: no limit).
+    pub budget_bytes: u64,
 }
 
 /// The directory tailer (see the module docs).
@@ -371,10 +405,38 @@ impl Tailer {
     /// Only when the directory cannot be listed; the state is then unchanged. Errors on single
     /// files are reported as [`Notice::Error`] and retried at the next poll.
     pub fn poll(&mut self, now_ms: u64, sink: &mut dyn FnMut(TailEvent<'_>)) -> Result<PollStats, TailError> {
+        self.poll_within(&PollLimits { now_ms, wall_ms: None, budget_bytes: u64::MAX }, sink)
+    }
+
+    /// [`Tailer::poll`] within limits: at most about `budget_bytes` of data are read (whole
+    /// read chunks, so up to one chunk more), in the same order as an unlimited poll would read
+    /// them; [`PollStats::more`] says that the files hold more, to be read by the next poll. A
+    /// file is never sealed before its end has been read, and new files are not even opened
+    /// once the budget is spent (a backlog of thousands of files does not hold thousands of
+    /// handles). With `wall_ms`, a file found untouched for longer than `seal_after_ms` by the
+    /// wall clock counts as quiet from the start (it is sealed as soon as it has been read).
+    ///
+    /// # Errors
+    /// As [`Tailer::poll`].
+    pub fn poll_within(
+        &mut self,
+        limits: &PollLimits,
+        sink: &mut dyn FnMut(TailEvent<'_>),
+    ) -> Result<PollStats, TailError> {
         let (mut entries, refused) = self.list()?;
         self.refused = refused;
         let Tailer { dir, opts, next_id, last_header, tracked, twins, buf, refused } = self;
-        let mut cx = Ctx { dir, opts, buf, sink, last_header, stats: PollStats::default(), now: now_ms };
+        let mut cx = Ctx {
+            dir,
+            opts,
+            buf,
+            sink,
+            last_header,
+            stats: PollStats::default(),
+            now: limits.now_ms,
+            wall_ms: limits.wall_ms,
+            budget: limits.budget_bytes,
+        };
         for t in tracked.iter_mut() {
             t.present = false;
             t.detached = false;
@@ -390,6 +452,10 @@ impl Tailer {
         stats.links_refused = refused.len();
         stats.files = tracked.len();
         stats.open = tracked.iter().filter(|t| t.handle.is_some()).count();
+        for t in tracked.iter().filter(|t| t.more) {
+            stats.more = true;
+            stats.unread_bytes += t.cp.size.saturating_sub(t.read_end);
+        }
         Ok(stats)
     }
 
@@ -498,7 +564,11 @@ fn phase_handles(tracked: &mut [Tracked], entries: &mut [Entry], cx: &mut Ctx<'_
                 cx.notice(t, Notice::Renamed { from });
             }
         }
-        if !t.stale && m.size == t.cp.size && m.mtime_ns == t.cp.mtime_ns && m.id == t.cp.file_id {
+        if !t.stale && !t.more && m.size == t.cp.size && m.mtime_ns == t.cp.mtime_ns && m.id == t.cp.file_id {
+            continue;
+        }
+        if t.more && cx.budget == 0 {
+            // Behind already and nothing left to read with in this poll: checked next time.
             continue;
         }
         if idx.is_none() {
@@ -603,7 +673,7 @@ fn refresh(t: &mut Tracked, m: Meta, cx: &mut Ctx<'_>) -> io::Result<bool> {
         }
     }
     if m.size != t.cp.size {
-        t.last_growth_ms = cx.now;
+        t.last_growth_ms = cx.grown_at(m.mtime_ns);
     }
     t.cp.file_id = m.id;
     t.cp.mtime_ns = m.mtime_ns;
@@ -684,6 +754,7 @@ fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
         prefix,
         header_sent,
         stale,
+        more,
         ..
     } = t;
     let (Some(file), Some(split)) = (handle.as_ref(), split.as_mut()) else { return Ok(()) };
@@ -692,9 +763,25 @@ fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
     let m = cx.opts.marker_bytes;
     let fp_end = cp.data_start + cx.opts.fingerprint_bytes as u64;
     let mut result = Ok(());
+    // With the poll's budget spent, a file stops before its end, but only once it has made
+    // progress: a later file must not read at all (records keep the order of an unlimited
+    // poll), and the file that spent the budget goes on to the end of one record (held bytes
+    // are parsed again at the next poll, so stopping inside the first record would never
+    // advance).
+    let (entry_resume, entry_read) = (cp.resume.offset, *read_end);
     loop {
-        let n = match read_at(file, cx.buf, *read_end) {
-            Ok(0) => break,
+        if cx.budget == 0 && (cp.resume.offset > entry_resume || *read_end == entry_read) {
+            *more = *read_end < cp.size;
+            break;
+        }
+        // Reads stay within the budget (in pieces of at least 4 KiB).
+        let len = cx.buf.len();
+        let cap = usize::try_from(cx.budget).unwrap_or(usize::MAX).clamp(len.min(4096), len);
+        let n = match read_at(file, &mut cx.buf[..cap], *read_end) {
+            Ok(0) => {
+                *more = false;
+                break;
+            }
             Ok(n) => n,
             Err(e) => {
                 *stale = true;
@@ -703,6 +790,7 @@ fn read_to_end(t: &mut Tracked, cx: &mut Ctx<'_>) -> io::Result<()> {
             }
         };
         cx.stats.bytes_read += n as u64;
+        cx.budget = cx.budget.saturating_sub(n as u64);
         let chunk = &cx.buf[..n];
         let chunk_off = *read_end;
         let before = split.position().offset;
@@ -916,7 +1004,7 @@ fn take_over(t: &mut Tracked, e: &mut Entry, proof: Option<Proof>, cx: &mut Ctx<
         t.handle = Some(o.file);
         t.validated = true;
         t.cp.sealed = false;
-        t.last_growth_ms = cx.now;
+        t.last_growth_ms = cx.now_signed();
         let m = o.meta;
         t.cp.size = 0;
         return refresh(t, m, cx).map(|_| ());
@@ -942,7 +1030,7 @@ fn take_over(t: &mut Tracked, e: &mut Entry, proof: Option<Proof>, cx: &mut Ctx<
         }
     }
     t.attach(o.file, proof.header, proof.tail, proof.prefix, cx.opts);
-    t.last_growth_ms = cx.now;
+    t.last_growth_ms = cx.grown_at(o.meta.mtime_ns);
     t.cp.file_id = o.meta.id;
     t.cp.mtime_ns = o.meta.mtime_ns;
     t.cp.size = o.meta.size;
@@ -960,6 +1048,16 @@ fn phase_new(
 ) {
     let mut still_twins = HashMap::new();
     for e in entries.iter_mut() {
+        if !e.claimed && cx.budget == 0 {
+            // The read budget is spent: new files wait for the next poll, unopened.
+            cx.stats.more = true;
+            cx.stats.unread_bytes += e.meta.size;
+            let key = e.path.to_string_lossy().into_owned();
+            if let Some(&first) = twins.get(&key) {
+                still_twins.insert(key, first);
+            }
+            continue;
+        }
         if e.claimed || !open_entry(e, cx) {
             continue;
         }
@@ -989,7 +1087,7 @@ fn phase_new(
         let mut t = Tracked::from_checkpoint(FileCheckpoint::fresh(id, e.name.clone(), o.meta.id), dir);
         t.present = true;
         t.validated = true;
-        t.last_growth_ms = cx.now;
+        t.last_growth_ms = cx.grown_at(o.meta.mtime_ns);
         let notice = match e.previous {
             Some((previous, cause)) => Notice::NewGeneration { previous, cause },
             None => Notice::Discovered,
@@ -1028,8 +1126,8 @@ fn phase_seal(tracked: &mut Vec<Tracked>, cx: &mut Ctx<'_>) {
     let mut i = 0;
     while i < tracked.len() {
         let t = &mut tracked[i];
-        let quiet = cx.now.saturating_sub(t.last_growth_ms) >= cx.opts.seal_after_ms;
-        if t.handle.is_none() || !quiet || (t.present && t.cp.id >= newest_present) {
+        let quiet = i128::from(cx.now) - i128::from(t.last_growth_ms) >= i128::from(cx.opts.seal_after_ms);
+        if t.handle.is_none() || t.more || !quiet || (t.present && t.cp.id >= newest_present) {
             i += 1;
             continue;
         }

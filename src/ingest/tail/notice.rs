@@ -165,6 +165,12 @@ pub struct PollStats {
     /// Matching names that are symbolic links to files outside the directory, not read (see
     /// [`TailOptions::links_outside`](super::TailOptions::links_outside)).
     pub links_refused: usize,
+    /// The poll stopped at its read budget ([`Tailer::poll_within`](super::Tailer::poll_within)):
+    /// the files hold more data, or there are files not yet opened.
+    pub more: bool,
+    /// Data bytes known to be waiting when `more` is set (in files being read, and the sizes
+    /// of files not yet opened).
+    pub unread_bytes: u64,
 }
 
 /// Errors of the tailer.

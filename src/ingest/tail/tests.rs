@@ -825,3 +825,107 @@ fn glob_matches_names() {
     assert!(glob_match("*a*b", "xxaxxbxb"));
     assert!(glob_match("?.csv", "é.csv"));
 }
+
+/// Every record of `tailer`'s directory, polled with `limits` until nothing more is waiting;
+/// with the largest number of open handles seen after a poll.
+fn drain(tailer: &mut Tailer, limits: PollLimits) -> (Vec<String>, usize, usize) {
+    let (mut out, mut open, mut polls) = (Vec::new(), 0, 0);
+    loop {
+        polls += 1;
+        let stats = tailer
+            .poll_within(&limits, &mut |e| {
+                if let TailEvent::Record { file, record } = e {
+                    let f: Vec<String> =
+                        record.iter().map(|b| String::from_utf8_lossy(b).into_owned()).collect();
+                    out.push(format!("{}:{}", file.id, f.join(",")));
+                }
+            })
+            .unwrap();
+        open = open.max(stats.open);
+        if !stats.more {
+            return (out, open, polls);
+        }
+        assert!(stats.unread_bytes > 0, "more to read but nothing counted as waiting");
+        assert!(polls < 10_000, "bounded polls never finish");
+    }
+}
+
+#[test]
+fn bounded_polls_read_a_backlog_in_order_with_few_open_files() {
+    let fx = Fixture::new();
+    let day_ago = std::time::SystemTime::now() - std::time::Duration::from_secs(86_400);
+    for f in 0..6u32 {
+        let name = format!("plant_{f}.csv");
+        fx.write(&name, &format!("{HEADER}{}", rows(f * 40..f * 40 + 40)));
+        File::options().write(true).open(fx.path(&name)).unwrap().set_modified(day_ago).unwrap();
+    }
+    let wall = jiff::Timestamp::now().as_millisecond();
+    // One unlimited poll: every file read, each kept open until it has been quiet for a while.
+    let mut one = Tailer::new(fx.dir.path().to_path_buf(), opts(), None);
+    let unlimited = PollLimits { now_ms: 10, wall_ms: None, budget_bytes: u64::MAX };
+    let (all, open_all, polls) = drain(&mut one, unlimited);
+    assert_eq!((all.len(), open_all, polls), (240, 6, 1));
+    // Slices of about 100 bytes: the same records in the same order, and files untouched for a
+    // day are closed as soon as they have been read (new ones are not opened while behind).
+    let mut sliced = Tailer::new(fx.dir.path().to_path_buf(), opts(), None);
+    let limits = PollLimits { now_ms: 10, wall_ms: Some(wall), budget_bytes: 100 };
+    let (got, open_max, polls) = drain(&mut sliced, limits);
+    assert_eq!(got, all);
+    assert!(polls > 50, "the budget did not bound the polls: {polls}");
+    assert!(open_max <= 2, "{open_max} files open at once");
+    // A checkpoint taken mid-backlog resumes exactly where the slices stopped.
+    let mut part = Tailer::new(fx.dir.path().to_path_buf(), opts(), None);
+    let mut first = Vec::new();
+    for _ in 0..20 {
+        part.poll_within(&limits, &mut |e| {
+            if let TailEvent::Record { file, record } = e {
+                let f: Vec<String> = record.iter().map(|b| String::from_utf8_lossy(b).into_owned()).collect();
+                first.push(format!("{}:{}", file.id, f.join(",")));
+            }
+        })
+        .unwrap();
+    }
+    assert!(!first.is_empty() && first.len() < all.len());
+    check_boundaries(fx.dir.path(), &part.state());
+    let mut resumed = Tailer::new(fx.dir.path().to_path_buf(), opts(), Some(part.state()));
+    let (rest, _, _) = drain(&mut resumed, limits);
+    first.extend(rest);
+    assert_eq!(first, all);
+}
+
+#[test]
+fn a_file_stopped_at_the_budget_is_not_sealed_before_its_end() {
+    let mut fx = Fixture::new();
+    let day_ago = std::time::SystemTime::now() - std::time::Duration::from_secs(86_400);
+    fx.write("plant_a.csv", &format!("{HEADER}{}", rows(0..1)));
+    fx.write("plant_b.csv", &format!("{HEADER}{}", rows(100..101)));
+    fx.poll();
+    // plant_a gets a backlog written a day ago (by the wall clock it has long been quiet, and
+    // it has a newer sibling) ...
+    fx.append("plant_a.csv", &rows(1..80));
+    File::options().write(true).open(fx.path("plant_a.csv")).unwrap().set_modified(day_ago).unwrap();
+    // ... and a budget stops reading it midway: it stays open until its end is read.
+    let wall = jiff::Timestamp::now().as_millisecond();
+    let limits = PollLimits { now_ms: fx.now + 10, wall_ms: Some(wall), budget_bytes: 50 };
+    let (mut n, mut sealed_at, mut rejected, mut polls) = (0, None, 0, 0);
+    loop {
+        polls += 1;
+        let stats = fx
+            .tailer
+            .poll_within(&limits, &mut |e| match e {
+                TailEvent::Record { file, .. } if file.id == 1 => n += 1,
+                TailEvent::Rejected { .. } => rejected += 1,
+                TailEvent::Notice { file, notice: Notice::Sealed { .. } } if file.id == 1 => {
+                    sealed_at.get_or_insert(n);
+                }
+                _ => {}
+            })
+            .unwrap();
+        if !stats.more {
+            break;
+        }
+        assert!(polls < 1_000, "bounded polls never finish: {n} rows, sealed at {sealed_at:?}");
+    }
+    assert!(polls > 5, "the budget did not bound the polls: {polls}");
+    assert_eq!((n, sealed_at, rejected), (79, Some(79), 0));
+}
