@@ -65,11 +65,72 @@ fn reported() -> &'static Reported {
 }
 
 /// The demo's eleven days replayed on the example site: its last shift's report (heater
-/// fouling active), and the fouling alert's baseline (K).
+/// fouling active), the fouling alert's baseline (K) and the projected date of its latest
+/// message, and the residual limits the monitor holds at the end.
 struct DemoSite {
     _dir: tempfile::TempDir,
     last_report: PathBuf,
     fouling_baseline_k: f64,
+    fouling_date: String,
+    limits: Vec<(&'static str, f64)>,
+}
+
+/// The residual limits of a monitor (K): its baseline, alert limits (baseline ± enter_z
+/// block σ) and gross limits (baseline ± gross_z interval σ), by the class of their line in
+/// the residual plot.
+fn limits_of(
+    m: &efftemp::core::monitor::Monitor,
+    site: &efftemp::config::SiteConfig,
+) -> Vec<(&'static str, f64)> {
+    let b = m.baseline.as_ref().expect("a learned baseline");
+    let c = &site.units[0].spec.monitor;
+    vec![
+        ("baseline", b.mu),
+        ("alert-limit", b.mu + c.enter_z * b.sigma),
+        ("alert-limit", b.mu - c.enter_z * b.sigma),
+        ("gross-limit", b.mu + c.gross_z * b.sigma_interval),
+        ("gross-limit", b.mu - c.gross_z * b.sigma_interval),
+    ]
+}
+
+/// The limits of the example site's monitor as the service left it in its checkpoint.
+fn monitor_limits(cfg: &Path) -> Vec<(&'static str, f64)> {
+    let site = efftemp::config::SiteConfig::load(cfg).unwrap();
+    let state = efftemp::sinks::checkpoint::StateDir::open(&site.state_dir).unwrap();
+    let (stored, notes) = state.load::<efftemp::pipeline::state::Stored>();
+    let units = stored.unwrap_or_else(|| panic!("no checkpoint: {notes:?}")).into_units();
+    limits_of(units["R-204"].monitor.as_ref().expect("a monitor in the checkpoint"), &site)
+}
+
+/// The limits of the example site's monitor after the site's exports are replayed in this
+/// process (outputs to a folder of their own; a replay keeps no checkpoint).
+fn replayed_limits(cfg: &Path) -> Vec<(&'static str, f64)> {
+    use efftemp::pipeline::{Mode, Pipeline};
+    let site = efftemp::config::SiteConfig::load(cfg).unwrap();
+    let out = tempfile::tempdir().unwrap();
+    let mut p = Pipeline::new(&site, &Mode::Replay { output: Some(out.path().to_path_buf()) }).unwrap();
+    loop {
+        let s = p.pass(0, false).unwrap();
+        if s.records == 0 && !s.more {
+            break;
+        }
+    }
+    p.pass(0, true).unwrap();
+    limits_of(p.units[0].monitor(), &site)
+}
+
+/// The residual plot's limit lines as laid out equal the monitor's (same classes, values
+/// within 1e-9 K: the page carries them unrounded in `data-value`).
+fn assert_limits(what: &str, plotted: &[(String, f64)], monitor: &[(&str, f64)]) {
+    let mut got: Vec<(String, f64)> =
+        plotted.iter().map(|(c, v)| (c.trim_start_matches("limit ").to_string(), *v)).collect();
+    let mut want: Vec<(String, f64)> = monitor.iter().map(|(c, v)| ((*c).to_string(), *v)).collect();
+    got.sort_by(|a, b| a.partial_cmp(b).unwrap());
+    want.sort_by(|a, b| a.partial_cmp(b).unwrap());
+    assert_eq!(got.len(), want.len(), "{what}: plotted {got:?}, monitor {want:?}");
+    for (g, w) in got.iter().zip(&want) {
+        assert!(g.0 == w.0 && (g.1 - w.1).abs() < 1e-9, "{what}: plotted {got:?}, monitor {want:?}");
+    }
 }
 
 /// The example site in a fresh folder with the demo's exports; its configuration file.
@@ -110,14 +171,18 @@ fn demo_site() -> &'static DemoSite {
             .find_map(|l| l.trim().strip_prefix("report: "))
             .map(PathBuf::from)
             .unwrap_or_else(|| panic!("no report path in:\n{stdout}"));
-        let fouling_baseline_k =
-            efftemp::sinks::report::load_events(&dir.path().join("var/output/R-204"), "R-204", i64::MAX)
-                .iter()
-                .rev()
-                .find(|e| e.cause.as_str() == "heater_fouling")
-                .and_then(|e| e.evidence.get("baseline_k")?.as_f64())
-                .expect("a heater-fouling alert with the baseline in its evidence");
-        DemoSite { _dir: dir, last_report, fouling_baseline_k }
+        let events =
+            efftemp::sinks::report::load_events(&dir.path().join("var/output/R-204"), "R-204", i64::MAX);
+        let fouling =
+            events.iter().rev().find(|e| e.cause.as_str() == "heater_fouling").expect("a fouling alert");
+        let fouling_baseline_k = fouling
+            .evidence
+            .get("baseline_k")
+            .and_then(|v| v.as_f64())
+            .expect("the baseline in its evidence");
+        let fouling_date = alert_date(&fouling.message).expect("a projected date in the alert");
+        let limits = replayed_limits(&cfg);
+        DemoSite { _dir: dir, last_report, fouling_baseline_k, fouling_date, limits }
     })
 }
 
@@ -125,14 +190,9 @@ fn demo_site() -> &'static DemoSite {
 /// pages on a free loopback port.
 struct LiveService {
     _dir: tempfile::TempDir,
+    cfg: PathBuf,
     addr: std::net::SocketAddr,
     running: crate::util::Running,
-}
-
-impl LiveService {
-    async fn stop(self) {
-        self.running.stop().await;
-    }
 }
 
 async fn live_service() -> LiveService {
@@ -164,7 +224,7 @@ async fn live_service() -> LiveService {
         running.notify.notify_one();
         tokio::time::sleep(std::time::Duration::from_millis(50)).await;
     }
-    LiveService { _dir: dir, addr, running }
+    LiveService { _dir: dir, cfg, addr, running }
 }
 
 /// The element skeleton of an HTML document: one line per element (indented by depth) with
@@ -392,7 +452,8 @@ struct Layout {
 }
 
 /// The script that measures a page after layout (injected into a copy of the page: the
-/// pages themselves carry no script); it writes its findings into `pre#check-result`.
+/// pages themselves carry no script); it writes its findings into `pre#check-result` of the
+/// page that frames it (see [`layout`]).
 const CHECK: &str = r#"<script>(function(){var errs=[];window.addEventListener('error',function(e){errs.push(String(e.message))});
 function shown(el){if(!el)return false;var r=el.getBoundingClientRect(),cs=getComputedStyle(el);if(!(r.width>0&&r.height>0)||cs.visibility==='hidden'||cs.display==='none'||parseFloat(cs.opacity)===0)return false;
 var W=document.documentElement.clientWidth;var box=el.closest('.plotwrap');var lim=box?box.getBoundingClientRect():{left:0,right:W};var svg=el.closest('svg');if(svg){var s=svg.getBoundingClientRect();if(r.left<s.left-1||r.right>s.right+1)return false;}
@@ -400,22 +461,33 @@ return r.left>=Math.max(0,lim.left)-1&&r.right<=Math.min(W,lim.right)+1;}
 function scrolls(el){for(var p=el.parentElement;p;p=p.parentElement){var o=getComputedStyle(p).overflowX;if(o==='auto'||o==='scroll'||o==='hidden')return true;}return false;}
 window.addEventListener('load',function(){var W=document.documentElement.clientWidth,over=[];
 document.querySelectorAll('body *').forEach(function(el){var r=el.getBoundingClientRect();if(r.width===0&&r.height===0)return;if((r.right>W+1||r.left<-1)&&!scrolls(el))over.push(el.tagName+'#'+el.id+' '+(el.getAttribute('class')||''));});
-var note=document.querySelector('#plot-effectiveness text.projected-date'),card=document.querySelector('#card-projection .projected-date');
+function drawn(sel){return [].filter.call(document.querySelectorAll(sel),function(e){var s=e.closest('svg')||e;var r=s.getBoundingClientRect();return r.width>0&&r.height>0;});}
+var note=drawn('#plot-effectiveness text.projected-date')[0],card=document.querySelector('#card-projection .projected-date');
 var res={overflow:over.slice(0,20),scroll_width:document.documentElement.scrollWidth,width:W,note:note?note.textContent:null,note_visible:shown(note),card:card?card.textContent:null,card_visible:shown(card),
-limits:[].map.call(document.querySelectorAll('#plot-residual line.limit'),function(l){return [l.getAttribute('class'),parseFloat(l.getAttribute('data-value'))]}),
+limits:drawn('#plot-residual line.limit').map(function(l){return [l.getAttribute('class'),parseFloat(l.getAttribute('data-value'))]}),
 messages:[].map.call(document.querySelectorAll('#headline .alert .msg'),function(m){return m.textContent}),errors:errs};
-var pre=document.createElement('pre');pre.id='check-result';pre.textContent=JSON.stringify(res);document.body.appendChild(pre);});})();</script>"#;
+var top=window.parent.document;var pre=top.createElement('pre');pre.id='check-result';pre.textContent=JSON.stringify(res);top.body.appendChild(pre);});})();</script>"#;
 
 /// Lay `html` out at `width` px in the browser and measure it; also the console errors of the
-/// plain page (without the check script).
+/// plain page (without the check script). The page is laid out in a frame `width` px wide
+/// (a headless window is never narrower than 500 px), whose document is the page itself
+/// (`srcdoc`, same origin as the frame's parent, which receives the findings).
 fn layout(browser: &Path, html: &str, width: u32) -> (Layout, Vec<String>) {
     let dir = tempfile::tempdir().unwrap();
     let plain = dir.path().join("page.html");
     std::fs::write(&plain, html).unwrap();
     let checked = dir.path().join("checked.html");
-    std::fs::write(&checked, html.replace("</body>", &format!("{CHECK}</body>"))).unwrap();
+    let page = html.replace("</body>", &format!("{CHECK}</body>"));
+    let srcdoc = page.replace('&', "&amp;").replace('"', "&quot;");
+    std::fs::write(
+        &checked,
+        format!(
+            "<!doctype html><html><body style=\"margin:0\"><iframe style=\"border:0;display:block;width:{width}px;height:20000px\" srcdoc=\"{srcdoc}\"></iframe></body></html>"
+        ),
+    )
+    .unwrap();
     let profile = dir.path().join("profile");
-    let size = format!("--window-size={width},2000");
+    let size = format!("--window-size={},2000", width.max(500) + 40);
     let out = chromium(
         browser,
         &profile,
@@ -433,6 +505,7 @@ fn layout(browser: &Path, html: &str, width: u32) -> (Layout, Vec<String>) {
         .replace("&gt;", ">")
         .replace("&amp;", "&");
     let found: Layout = serde_json::from_str(&json).unwrap_or_else(|e| panic!("{e}: {json}"));
+    assert!((found.width - f64::from(width)).abs() < 20.0, "laid out {} px wide, not {width}", found.width);
     let plain_out = chromium(
         browser,
         &profile,
@@ -465,42 +538,103 @@ fn alert_date(message: &str) -> Option<String> {
     message.get(at..at + 10).map(str::to_string)
 }
 
-/// The demo's reports in a real browser at 1280 px and 420 px (and at the printable width of
-/// A4 and Letter), then printed to PDF on both papers: the projected cleaning date is written
-/// visibly on the plot and in the headline, and equals the alert's; the residual plot's
-/// baseline is the monitor's (the alert's evidence); nothing overflows; no console error.
+/// What a page printed to PDF on `paper` ("A4" or "letter") holds: its pages, the page size in
+/// points and the text (pdfinfo and pdftotext of poppler-utils read the PDF).
+struct Printed {
+    pages: usize,
+    size: (f64, f64),
+    text: String,
+}
+
+fn print_pdf(browser: &Path, html: &str, paper: &str) -> Printed {
+    let dir = tempfile::tempdir().unwrap();
+    let page = dir.path().join("page.html");
+    // The pages set margins but no paper size (the printer's default): here the paper is set
+    // as a site's browser would.
+    std::fs::write(&page, html.replace("</style>", &format!("@page{{size:{paper}}}</style>"))).unwrap();
+    let pdf = dir.path().join("out.pdf");
+    chromium(
+        browser,
+        &dir.path().join("p"),
+        &[&format!("--print-to-pdf={}", pdf.display()), "--no-pdf-header-footer"],
+        &format!("file://{}", page.display()),
+    );
+    let tool = |name: &str, args: &[&str]| -> String {
+        let out = Command::new(name)
+            .args(args)
+            .arg(&pdf)
+            .args(if name == "pdftotext" { &["-"][..] } else { &[][..] })
+            .output()
+            .unwrap_or_else(|e| panic!("{name}: {e} (apt-get install poppler-utils; .ci/run does)"));
+        assert!(out.status.success(), "{name}: {}", String::from_utf8_lossy(&out.stderr));
+        String::from_utf8_lossy(&out.stdout).into_owned()
+    };
+    let info = tool("pdfinfo", &[]);
+    let field =
+        |k: &str| info.lines().find_map(|l| l.strip_prefix(k)).map(str::trim).unwrap_or("").to_string();
+    let pages = field("Pages:").parse().unwrap_or(0);
+    let dims: Vec<f64> = field("Page size:").split_whitespace().filter_map(|v| v.parse().ok()).collect();
+    let text = tool("pdftotext", &["-raw"]).split_whitespace().collect::<Vec<_>>().join(" ");
+    Printed { pages, size: (dims[0], dims[1]), text }
+}
+
+/// The printed page on A4 and on Letter: the right paper, a few pages, the projected date
+/// written on the plot and the alert's latest message whole (no table cut off at the margin).
+fn assert_prints(browser: &Path, what: &str, html: &str, date: &str, message: &str) {
+    let message = message.split_whitespace().collect::<Vec<_>>().join(" ");
+    for (paper, size) in [("A4", (595.3, 841.9)), ("letter", (612.0, 792.0))] {
+        let p = print_pdf(browser, html, paper);
+        assert!(
+            (p.size.0 - size.0).abs() < 1.0 && (p.size.1 - size.1).abs() < 1.0,
+            "{what} on {paper}: page size {:?}",
+            p.size
+        );
+        assert!((1..=12).contains(&p.pages), "{what} on {paper}: {} pages", p.pages);
+        assert!(p.text.contains(&format!("limit reached {date}")), "{what} on {paper}: no projected date");
+        assert!(p.text.contains(&message), "{what} on {paper}: the alert's message is cut: {message}");
+    }
+}
+
+/// The demo's reports in a real browser at 1280 px and 420 px (and at 718 px, the printable
+/// width of A4), then printed on A4 and Letter: the projected cleaning date is written visibly
+/// on the plot and in the headline, and equals the date of the alert's latest event in the
+/// alert log; the residual plot's baseline and limits are the monitor's (its checkpoint and
+/// the alert's evidence); nothing overflows; no console error.
 #[test]
-#[ignore = "needs chromium (apt-get install chromium); .ci/run runs it"]
+#[ignore = "needs chromium and poppler-utils (apt-get install chromium poppler-utils); .ci/run runs it"]
 fn demo_reports_agree_with_their_alerts_in_a_real_browser() {
     let browser = browser();
     let demo = demo_site();
     let html = std::fs::read_to_string(&demo.last_report).unwrap();
+    let date = &demo.fouling_date;
     for width in [1280, 718, 420] {
         let (l, console) = layout(&browser, &html, width);
         assert_fits("the demo's last report", width, &l, &console);
         let note = l.note.clone().expect("the projected date is written on the effectiveness plot");
         let card = l.card.clone().expect("the projected date is in the headline");
         assert!(l.note_visible && l.card_visible, "at {width} px the projected date is not on screen: {l:?}");
-        // The alert (its latest message, in the headline) gives the same date as the plot.
+        assert!(
+            note.starts_with(&format!("limit reached {date}")) && card == *date,
+            "alert {date}, plot {note}, headline {card}"
+        );
+        // The headline shows the alert's latest message, with the same date.
         let fouling = l
             .messages
             .iter()
             .find(|m| m.contains("the heater is fouling"))
             .expect("the fouling alert in the headline");
-        let date = alert_date(fouling).expect("a projected date in the alert");
-        assert!(
-            note.contains(&format!("limit reached {date} (")) && card == date,
-            "alert {date}, plot {note}, headline {card}"
-        );
-        // The residual plot's baseline is the monitor's: the alert's evidence says it.
+        assert_eq!(alert_date(fouling).as_deref(), Some(date.as_str()), "{fouling}");
+        // The residual plot's baseline and limits are the monitor's.
+        assert_limits(&format!("the demo's last report at {width} px"), &l.limits, &demo.limits);
         let baseline = l.limits.iter().find(|(c, _)| c.contains("baseline")).expect("a baseline line").1;
         assert!(
             (baseline - demo.fouling_baseline_k).abs() < 6e-4,
             "plot baseline {baseline}, alert {}",
             demo.fouling_baseline_k
         );
-        assert_eq!(l.limits.iter().filter(|(c, _)| c.contains("alert-limit")).count(), 2, "{:?}", l.limits);
     }
+    let message = demo_message(&html);
+    assert_prints(&browser, "the demo's last report", &html, date, &message);
     // The thermometer shift: its baseline line is the alert's baseline too.
     let r = reported();
     let html = std::fs::read_to_string(&r.html).unwrap();
@@ -509,43 +643,38 @@ fn demo_reports_agree_with_their_alerts_in_a_real_browser() {
         assert_fits("the thermometer shift's report", width, &l, &console);
         let baseline = l.limits.iter().find(|(c, _)| c.contains("baseline")).expect("a baseline line").1;
         assert!((baseline - r.baseline_k).abs() < 6e-4, "plot baseline {baseline}, alert {}", r.baseline_k);
-    }
-    // Printed on A4 and on Letter.
-    for (paper, media) in [("A4", [595.0, 842.0]), ("letter", [612.0, 792.0])] {
-        let dir = tempfile::tempdir().unwrap();
-        let page = dir.path().join("page.html");
-        std::fs::write(&page, html.replace("</style>", &format!("@page{{size:{paper}}}</style>"))).unwrap();
-        let pdf = dir.path().join("out.pdf");
-        chromium(
-            &browser,
-            &dir.path().join("p"),
-            &[&format!("--print-to-pdf={}", pdf.display()), "--no-pdf-header-footer"],
-            &format!("file://{}", page.display()),
-        );
-        let bytes = std::fs::read(&pdf).unwrap();
-        assert!(bytes.starts_with(b"%PDF"), "{paper}: not a PDF");
-        let text = String::from_utf8_lossy(&bytes);
-        let pages = text.matches("/Type /Page\n").count()
-            + text.matches("/Type /Page ").count()
-            + text.matches("/Type /Page>").count()
-            + text.matches("/Type /Page/").count();
-        assert!((1..=12).contains(&pages), "{paper}: {pages} pages");
-        let mb = text.split("/MediaBox [").nth(1).and_then(|s| s.split(']').next()).expect("a media box");
-        let dims: Vec<f64> = mb.split_whitespace().filter_map(|v| v.parse().ok()).collect();
-        assert!(
-            (dims[2] - media[0]).abs() < 2.0 && (dims[3] - media[1]).abs() < 2.0,
-            "{paper}: media box {dims:?}"
-        );
+        assert_eq!(l.limits.iter().filter(|(c, _)| c.contains("alert-limit")).count(), 2, "{:?}", l.limits);
     }
 }
 
+/// The fouling alert's message as the headline of `html` shows it (its text without markup).
+fn demo_message(html: &str) -> String {
+    let at = html.find("the heater is fouling").expect("the fouling alert's message");
+    let start = html[..at].rfind('>').unwrap() + 1;
+    let end = at + html[at..].find('<').unwrap();
+    html[start..end].replace("&amp;", "&").replace("&#39;", "'").replace("&quot;", "\"")
+}
+
+/// The console-error check sees what it is there to see: a page whose script fails.
+fn assert_console_check_works(browser: &Path) {
+    let dir = tempfile::tempdir().unwrap();
+    let page = dir.path().join("bad.html");
+    std::fs::write(&page, "<!doctype html><p>x</p><script>no_such_function();</script>").unwrap();
+    let out =
+        chromium(browser, &dir.path().join("p"), &["--dump-dom"], &format!("file://{}", page.display()));
+    assert!(!console_errors(&out.stderr).is_empty(), "a failing script is not seen as a console error");
+}
+
 /// The service's live pages in a real browser: the overview and the unit's shift so far at
-/// 1280 px and 420 px; the live view's projected date equals the alert list's; no overflow, no
-/// console error (also loaded from the service itself, under its content security policy).
+/// 1280 px and 420 px, and the unit's page printed on A4 and Letter; the live view's projected
+/// date equals the alert list's, its plotted limits equal the monitor's (the checkpoint the
+/// service writes when it stops); no overflow, no console error (also loaded from the service
+/// itself, under its content security policy).
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-#[ignore = "needs chromium (apt-get install chromium); .ci/run runs it"]
+#[ignore = "needs chromium and poppler-utils (apt-get install chromium poppler-utils); .ci/run runs it"]
 async fn live_pages_render_in_a_real_browser() {
     let browser = browser();
+    assert_console_check_works(&browser);
     let live = live_service().await;
     let addr = live.addr;
     let get = |path: &'static str| tokio::task::spawn_blocking(move || crate::util::http_get(addr, path));
@@ -558,22 +687,29 @@ async fn live_pages_render_in_a_real_browser() {
         .iter()
         .filter_map(|a| a["message"].as_str().map(str::to_string))
         .collect();
-    let date = messages.iter().find_map(|m| alert_date(m)).expect("a fouling alert with a projected date");
+    let message =
+        messages.iter().find(|m| alert_date(m).is_some()).expect("a fouling alert with a projected date");
+    let date = alert_date(message).unwrap();
     let (code, unit) = get("/unit/R-204").await.unwrap();
     assert_eq!(code, 200, "{unit}");
     let (code, overview) = get("/").await.unwrap();
     assert_eq!(code, 200, "{overview}");
     assert!(overview.contains("/unit/R-204") && overview.contains("heater_fouling"), "{overview}");
+    let mut plotted = Vec::new();
     for width in [1280, 420] {
         let (l, console) = layout(&browser, &unit, width);
         assert_fits("the live view", width, &l, &console);
         assert!(
-            l.note_visible && l.note.as_deref().is_some_and(|n| n.starts_with(&date)),
+            l.note_visible
+                && l.note.as_deref().is_some_and(|n| n.starts_with(&format!("limit reached {date}"))),
             "at {width} px: alert {date}, {l:?}"
         );
+        assert_eq!(l.card.as_deref(), Some(date.as_str()), "the headline's date at {width} px");
+        plotted.push(l.limits);
         let (l, console) = layout(&browser, &overview, width);
         assert_fits("the overview", width, &l, &console);
     }
+    assert_prints(&browser, "the live view", &unit, &date, message);
     let profile = tempfile::tempdir().unwrap();
     for path in ["/", "/unit/R-204", "/reports/"] {
         let out = chromium(
@@ -585,7 +721,14 @@ async fn live_pages_render_in_a_real_browser() {
         let errors = console_errors(&out.stderr);
         assert!(errors.is_empty(), "{path}: {errors:?}");
     }
-    live.stop().await;
+    // Stopped, the service writes its checkpoint (the folder stays until the end of the test).
+    let LiveService { _dir: dir, cfg, running, .. } = live;
+    running.stop().await;
+    let monitor = monitor_limits(&cfg);
+    for (width, limits) in [1280, 420].iter().zip(&plotted) {
+        assert_limits(&format!("the live view at {width} px"), limits, &monitor);
+    }
+    drop(dir);
 }
 
 /// The residual plot draws the monitor's baseline (the value in the instrument alert's
@@ -596,12 +739,18 @@ fn the_residual_plot_draws_the_monitors_baseline_and_limits() {
     let html = std::fs::read_to_string(&r.html).unwrap();
     let plot =
         &html[html.find("id=\"plot-residual\"").unwrap()..html.find("id=\"plot-effectiveness\"").unwrap()];
-    let value = |class: &str| -> Vec<f64> {
-        plot.split(&format!("class=\"limit {class}\" data-value=\""))
+    // The wide drawing, and the narrow one (for phones) with the same lines.
+    let narrow_at = plot.find("id=\"svg-residual-n\"").expect("a narrow drawing");
+    let value_in = |svg: &str, class: &str| -> Vec<f64> {
+        svg.split(&format!("class=\"limit {class}\" data-value=\""))
             .skip(1)
             .filter_map(|s| s.split('"').next()?.parse().ok())
             .collect()
     };
+    let value = |class: &str| value_in(&plot[..narrow_at], class);
+    for class in ["baseline", "alert-limit", "gross-limit"] {
+        assert_eq!(value(class), value_in(&plot[narrow_at..], class), "{class} in both drawings");
+    }
     let base = value("baseline");
     assert_eq!(base.len(), 1, "one baseline line");
     assert!((base[0] - r.baseline_k).abs() < 6e-4, "plot {} vs alert {}", base[0], r.baseline_k);

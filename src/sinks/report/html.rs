@@ -14,7 +14,7 @@ use std::fmt::Write as _;
 
 use super::data::{ReportData, state_of};
 use super::svg::{
-    Axis, BAND, INK, LIMIT, MARK, MEAS, PRED, Plot, SERIES, esc, fmt_num, hour_ticks, hours_of, local,
+    Axis, BAND, Frame, INK, LIMIT, MARK, MEAS, PRED, Plot, SERIES, esc, fmt_num, hour_ticks, hours_of, local,
 };
 use crate::core::alerts::EventKind;
 use crate::core::monitor::stats::LineFit;
@@ -104,11 +104,17 @@ struct ShiftAxis {
     spans: Vec<(f64, f64, Option<MonitorState>)>,
     /// Alerts raised in the shift: (hours, number in the alert table, tooltip).
     raised: Vec<(f64, usize, String)>,
+    /// The drawing (wide or narrow) its plots are for.
+    frame: Frame,
 }
 
 impl ShiftAxis {
-    fn new(d: &ReportData) -> ShiftAxis {
-        let (hours, ticks) = hour_ticks(&d.shift, &d.tz);
+    fn new(d: &ReportData, frame: Frame) -> ShiftAxis {
+        let (hours, mut ticks) = hour_ticks(&d.shift, &d.tz);
+        if frame == Frame::Narrow && ticks.len() > 6 {
+            // Every other hour: the labels of a narrow plot would touch.
+            ticks = ticks.into_iter().step_by(2).collect();
+        }
         let raised = d
             .lifecycles
             .iter()
@@ -128,12 +134,14 @@ impl ShiftAxis {
             label: format!("local time ({})", d.tz.iana_name().unwrap_or("local")),
             spans: spans(d),
             raised,
+            frame,
         }
     }
 
     /// A plot on this axis: shaded states and gaps, ticks, gaps in lines, alert markers.
     fn plot(&self, d: &ReportData, id: &str, title: &str, y: Axis, y_label: &str, h: f64) -> Plot {
-        let mut p = Plot::new(id, title, self.hours, y, y_label, &self.label, h);
+        let label = if self.frame == Frame::Narrow { "local time" } else { self.label.as_str() };
+        let mut p = Plot::new(id, title, self.hours, y, y_label, label, h, self.frame);
         for (a, b, s) in &self.spans {
             match s {
                 None => p.shade(*a, *b, "nodata", "no-data"),
@@ -319,7 +327,7 @@ fn signed(v: f64, decimals: usize) -> String {
 }
 
 /// Heater effectiveness over the trend window, the monitor's trend and its projection.
-fn effectiveness_figure(d: &ReportData) -> Figure {
+fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
     let limit = d.extra.effectiveness_limit;
     let monitor = d.extra.monitor.as_ref();
     let end = d.live_until_ms.unwrap_or(d.shift.end_ms);
@@ -349,25 +357,30 @@ fn effectiveness_figure(d: &ReportData) -> Figure {
         "effectiveness",
         "local date",
         250.0,
+        frame,
     );
     let span = hi.max(1.0);
-    let step = if span > 40.0 {
-        7
-    } else if span > 16.0 {
-        3
-    } else if span > 8.0 {
-        2
-    } else {
-        1
-    };
+    let narrow = frame == Frame::Narrow;
+    let step = if narrow { 2 } else { 1 }
+        * if span > 40.0 {
+            7
+        } else if span > 16.0 {
+            3
+        } else if span > 8.0 {
+            2
+        } else {
+            1
+        };
     let ticks: Vec<(f64, String)> = (0..=(span.floor() as i64))
         .step_by(step)
         .map(|k| (k as f64, local(t0 + k * 86_400_000, &d.tz, "%m-%d")))
         .collect();
     p.x_ticks(&ticks);
     p.shade(day(d.shift.start_ms), day(end), "#eef3f6", "this-shift");
-    p.gaps_over(1.6 * monitor.map_or(4.0 * 3_600_000.0, |_| 4.0 * 3_600_000.0) / DAY_MS);
-    p.hline(limit, LIMIT, "6 4", &format!("cleaning limit {:.0} %", limit * 100.0), "cleaning-limit");
+    // A gap in the 4-hour means is a gap in the line.
+    p.gaps_over(1.6 * 4.0 * 3_600_000.0 / DAY_MS);
+    let limit_label = if narrow { "limit" } else { "cleaning limit" };
+    p.hline(limit, LIMIT, "6 4", &format!("{limit_label} {:.0} %", limit * 100.0), "cleaning-limit");
     if let Some((m, _)) = monitor.and_then(|m| m.baseline).and_then(|b| b.eff) {
         p.hline(m, INK, "none", &format!("baseline {:.1} %", m * 100.0), "baseline");
     }
@@ -413,7 +426,18 @@ fn effectiveness_figure(d: &ReportData) -> Figure {
         p.note(
             day(pr.at_ms),
             limit + 0.09 * (ya.hi - ya.lo),
-            &format!("limit reached {} ({} to {})", pr.date, pr.range.0, pr.range.1),
+            &if narrow {
+                // On two lines, the range without the date when it is the projected day.
+                fn same<'a>(r: &'a str, date: &str) -> Option<&'a str> {
+                    r.strip_prefix(date).map(str::trim).filter(|t| !t.is_empty())
+                }
+                match (same(&pr.range.0, &pr.date), same(&pr.range.1, &pr.date)) {
+                    (Some(a), Some(b)) => format!("limit reached {}\n(between {a} and {b})", pr.date),
+                    _ => format!("limit reached {}\n({} to {})", pr.date, pr.range.0, pr.range.1),
+                }
+            } else {
+                format!("limit reached {} ({} to {})", pr.date, pr.range.0, pr.range.1)
+            },
             "projected-date",
         );
         let _ = write!(caption, "At the fitted rate the {}.", pr.text);
@@ -583,8 +607,11 @@ figure{margin:8px 0 14px;break-inside:avoid}figure svg{width:100%;height:auto;di
 .states{font-size:12px}.states span{display:inline-block;padding:0 6px;margin-right:6px;border:1px solid #ccc}\
 footer{font-size:12px;color:#4f5f6b;margin-top:24px;border-top:1px solid #d5dbe0;padding-top:8px}\
 .spark{width:100%;max-width:160px;height:auto;display:block}\
-@media (max-width:600px){main{padding:10px}.plotwrap{overflow-x:auto}.plotwrap svg{min-width:560px}h1{font-size:18px}.cards{grid-template-columns:1fr 1fr}table.alerts col.ev{width:34%}\
-table.alerts th:nth-child(1),table.alerts td:nth-child(1){width:2em}}\
+svg.plot.narrow{display:none}\
+@media (max-width:600px){main{padding:10px}svg.plot.wide{display:none}svg.plot.narrow{display:block}h1{font-size:18px}.cards{grid-template-columns:1fr 1fr}table.alerts col.ev{width:34%}\
+table.alerts th:nth-child(1),table.alerts td:nth-child(1){width:2em}\
+table.units,table.units tbody{display:block}table.units thead,table.units colgroup{display:none}table.units tr{display:block;border-bottom:1px solid #d5dbe0;padding:6px 0}table.units td{display:block;width:auto;border:0;padding:2px 0}\
+table.units td[data-k]::before{content:attr(data-k) ': ';color:#4f5f6b;font-size:12px}}\
 @page{margin:12mm 10mm}\
 @media print{body{background:#fff;font-size:11.5px}main{max-width:none;padding:0}h2{break-after:avoid}figure,.card,.alert,tr{break-inside:avoid}.advisory{background:none}}";
 
@@ -710,7 +737,8 @@ fn legend_html(items: &[(String, String, &'static str)]) -> String {
 
 /// The plots, the inputs and the state legend.
 fn write_plots(s: &mut String, d: &ReportData) {
-    let x = ShiftAxis::new(d);
+    let x = ShiftAxis::new(d, Frame::Wide);
+    let xn = ShiftAxis::new(d, Frame::Narrow);
     s.push_str("<section id=\"plots\"><h2>Trends</h2><div class=\"states\">monitor state shading: <span style=\"background:#fff\">watching</span>");
     for st in [MonitorState::Learning, MonitorState::Unsteady, MonitorState::Settling, MonitorState::Paused] {
         if let Some((fill, name)) = state_shade(st) {
@@ -718,13 +746,31 @@ fn write_plots(s: &mut String, d: &ReportData) {
         }
     }
     s.push_str("<span style=\"background:repeating-linear-gradient(45deg,#f4f4f4 0 4px,#c8c8c8 4px 6px)\">no data</span> &middot; A1, A2 …: alerts raised (numbers of the alert table)</div>");
-    let mut figures = vec![
-        temperature_figure(d, &x),
-        residual_figure(d, &x),
-        effectiveness_figure(d),
-        conversion_figure(d, &x),
-    ];
-    let inputs = input_figures(d, &x);
+    // Each figure in both drawings, the page's style shows the one for its width.
+    let both = |wide: Vec<Figure>, narrow: Vec<Figure>| -> Vec<Figure> {
+        wide.into_iter()
+            .zip(narrow)
+            .map(|(mut w, n)| {
+                w.svg.push_str(&n.svg);
+                w
+            })
+            .collect()
+    };
+    let figures = both(
+        vec![
+            temperature_figure(d, &x),
+            residual_figure(d, &x),
+            effectiveness_figure(d, Frame::Wide),
+            conversion_figure(d, &x),
+        ],
+        vec![
+            temperature_figure(d, &xn),
+            residual_figure(d, &xn),
+            effectiveness_figure(d, Frame::Narrow),
+            conversion_figure(d, &xn),
+        ],
+    );
+    let inputs = both(input_figures(d, &x), input_figures(d, &xn));
     for f in &figures {
         write_figure(s, f);
     }
@@ -734,7 +780,6 @@ fn write_plots(s: &mut String, d: &ReportData) {
             "<p>The inputs are not recorded for this shift (the service records them with its report).</p>",
         );
     }
-    figures.clear();
     for f in &inputs {
         write_figure(s, f);
     }
@@ -973,7 +1018,7 @@ pub fn overview_html(site: &str, units: &[OverviewUnit], now_ms: i64) -> String 
     page_start(&mut s, &format!("efftemp: {site}"));
     let _ = write!(
         s,
-        "<header><h1>{} <span class=\"sub\">efftemp {}</span></h1><p class=\"advisory\">Advisory only: not a safety function and not for automatic control. {}</p><div class=\"sub\"><a href=\"/reports/\">shift reports</a> &middot; <a href=\"/alerts.json\">alerts (JSON)</a> &middot; <a href=\"/metrics\">metrics</a></div></header><section id=\"units\"><h2>Units</h2><table class=\"units\"><colgroup><col style=\"width:17%\"><col style=\"width:14%\"><col><col style=\"width:17%\"><col style=\"width:24%\"></colgroup><thead><tr><th>unit</th><th>state</th><th>active alerts</th><th>last interval (data age)</th><th>residual, last hours</th></tr></thead><tbody>",
+        "<header><h1>{} <span class=\"sub\">efftemp {}</span></h1><p class=\"advisory\"><b>Caution.</b> {}</p><div class=\"sub\"><a href=\"/reports/\">shift reports</a> &middot; <a href=\"/alerts.json\">alerts (JSON)</a> &middot; <a href=\"/metrics\">metrics</a></div></header><section id=\"units\"><h2>Units</h2><table class=\"units\"><colgroup><col style=\"width:17%\"><col style=\"width:14%\"><col><col style=\"width:17%\"><col style=\"width:24%\"></colgroup><thead><tr><th>unit</th><th>state</th><th>active alerts</th><th>last interval (data age)</th><th>residual, last hours</th></tr></thead><tbody>",
         esc(site),
         env!("CARGO_PKG_VERSION"),
         esc(crate::CAUTION)
@@ -1005,7 +1050,7 @@ pub fn overview_html(site: &str, units: &[OverviewUnit], now_ms: i64) -> String 
             .map_or(String::new(), |p| format!("<br><span class=\"sub\">{}</span>", esc(p)));
         let _ = write!(
             s,
-            "<tr class=\"unit\" id=\"unit-{n}\"><td><a href=\"/unit/{n}\">{n}</a><br><span class=\"sub\">{}</span>{problem}</td><td><span class=\"state state-{state}\">{state}</span></td><td>{alerts}</td><td>{last}</td><td>{}</td></tr>",
+            "<tr class=\"unit\" id=\"unit-{n}\"><td><a href=\"/unit/{n}\">{n}</a><br><span class=\"sub\">{}</span>{problem}</td><td><span class=\"state state-{state}\">{state}</span></td><td>{alerts}</td><td data-k=\"last interval\">{last}</td><td data-k=\"residual, last hours\">{}</td></tr>",
             esc(&u.description),
             sparkline(&u.recent, u.delta_symbol),
             n = esc(&u.name),

@@ -192,15 +192,37 @@ pub(super) struct Plot {
     max_gap: f64,
 }
 
+/// The two drawings of every plot: wide (screens and paper) and narrow (phones; the page's
+/// style shows one or the other), each at about its own pixel size so that text stays legible.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(super) enum Frame {
+    /// 720 units wide.
+    Wide,
+    /// 420 units wide, for viewports below 600 px.
+    Narrow,
+}
+
 impl Plot {
-    /// A plot with the id `id` (unique in the page) and `title` (for screen readers).
-    pub(super) fn new(id: &str, title: &str, x: Axis, y: Axis, y_label: &str, x_label: &str, h: f64) -> Plot {
+    /// A plot with the id `id` (unique in the page for its frame) and `title` (for screen
+    /// readers), drawn in `frame`.
+    #[allow(clippy::too_many_arguments)]
+    pub(super) fn new(
+        id: &str,
+        title: &str,
+        x: Axis,
+        y: Axis,
+        y_label: &str,
+        x_label: &str,
+        h: f64,
+        frame: Frame,
+    ) -> Plot {
+        let narrow = frame == Frame::Narrow;
         let mut p = Plot {
-            id: id.to_string(),
-            w: 720.0,
+            id: if narrow { format!("{id}-n") } else { id.to_string() },
+            w: if narrow { 420.0 } else { 720.0 },
             h,
-            left: 62.0,
-            right: 132.0,
+            left: if narrow { 54.0 } else { 62.0 },
+            right: if narrow { 104.0 } else { 132.0 },
             top: 10.0,
             bottom: 42.0,
             x,
@@ -212,14 +234,16 @@ impl Plot {
         };
         let _ = write!(
             p.back,
-            r##"<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h}" role="img" aria-label="{t}" class="plot" id="svg-{id}"><title>{t}</title><defs><clipPath id="clip-{id}"><rect x="{l}" y="{tp}" width="{cw}" height="{ch}"/></clipPath><pattern id="nodata-{id}" width="8" height="8" patternUnits="userSpaceOnUse" patternTransform="rotate(45)"><rect width="8" height="8" fill="#f4f4f4"/><line x1="0" y1="0" x2="0" y2="8" stroke="#c8c8c8" stroke-width="2"/></pattern></defs><rect x="0" y="0" width="{w}" height="{h}" fill="white"/>"##,
+            r##"<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h}" role="img" aria-label="{t}" class="plot {fc}" id="svg-{id}"><title>{t}</title><defs><clipPath id="clip-{id}"><rect x="{l}" y="{tp}" width="{cw}" height="{ch}"/></clipPath><pattern id="nodata-{id}" width="8" height="8" patternUnits="userSpaceOnUse" patternTransform="rotate(45)"><rect width="8" height="8" fill="#f4f4f4"/><line x1="0" y1="0" x2="0" y2="8" stroke="#c8c8c8" stroke-width="2"/></pattern></defs><rect x="0" y="0" width="{w}" height="{h}" fill="white"/>"##,
             w = p.w,
             h = p.h,
             l = p.left,
             tp = p.top,
             cw = p.w - p.left - p.right,
             ch = p.h - p.top - p.bottom,
-            t = esc(title)
+            t = esc(title),
+            id = p.id,
+            fc = if narrow { "narrow" } else { "wide" }
         );
         p.axes(y_label, x_label);
         p
@@ -441,7 +465,10 @@ impl Plot {
     /// Text written on the plot (with a white halo), anchored at (x, y) in data units; kept
     /// inside the frame.
     pub(super) fn note(&mut self, x: f64, y: f64, text: &str, class: &str) {
-        let approx_w = 6.6 * text.chars().count() as f64;
+        // One line per `\n`, the lines of a note stacked downwards from `y`.
+        let lines: Vec<&str> = text.split('\n').collect();
+        let widest = lines.iter().map(|l| l.chars().count()).max().unwrap_or(0);
+        let approx_w = 7.2 * widest as f64;
         let (x0, x1) = (self.left + 4.0, self.w - self.right - 4.0);
         let xx = self.px(x);
         let (anchor, xx) = if xx + approx_w / 2.0 > x1 {
@@ -451,14 +478,21 @@ impl Plot {
         } else {
             ("middle", xx)
         };
-        let yy = self.py(y).clamp(self.top + 14.0, self.h - self.bottom - 6.0);
+        // The last line at `y`, the others above it.
+        let above = 15.0 * lines.len().saturating_sub(1) as f64;
+        let yy = (self.py(y) - above)
+            .clamp(self.top + 14.0, (self.h - self.bottom - 6.0 - above).max(self.top + 14.0));
         let _ = write!(
             self.svg,
-            r#"<text class="note {class}" x="{xx_c}" y="{yy_c}" font-size="12.5" font-weight="600" text-anchor="{anchor}" fill="{INK}" stroke="white" stroke-width="4" paint-order="stroke">{}</text>"#,
-            esc(text),
+            r#"<text class="note {class}" x="{xx_c}" y="{yy_c}" font-size="12.5" font-weight="600" text-anchor="{anchor}" fill="{INK}" stroke="white" stroke-width="4" paint-order="stroke">"#,
             xx_c = C(xx),
             yy_c = C(yy)
         );
+        for (i, line) in lines.iter().enumerate() {
+            let dy = if i == 0 { "0" } else { "15" };
+            let _ = write!(self.svg, r#"<tspan x="{}" dy="{dy}">{}</tspan>"#, C(xx), esc(line));
+        }
+        self.svg.push_str("</text>");
     }
 
     /// An alert marker at x: a dotted vertical line with a triangle, its label at the top.
@@ -591,13 +625,21 @@ mod tests {
             push_coord(&mut s, v);
             s.push(' ');
         }
-        assert_eq!(s, "0.0 1.3 0.0 -4.0 123.4 1000000000000000.0 ");
+        assert_eq!(s, "0.0 1.3 0.0 -4.0 123.4 100000000000000.0 ");
     }
 
     #[test]
     fn limit_labels_never_overlap() {
-        let mut p =
-            Plot::new("t", "t", Axis { lo: 0.0, hi: 1.0 }, Axis { lo: 0.0, hi: 1.0 }, "y", "x", 250.0);
+        let mut p = Plot::new(
+            "t",
+            "t",
+            Axis { lo: 0.0, hi: 1.0 },
+            Axis { lo: 0.0, hi: 1.0 },
+            "y",
+            "x",
+            250.0,
+            Frame::Wide,
+        );
         for y in [0.50, 0.51, 0.52, 0.9] {
             p.hline(y, INK, "4 3", "label", "x");
         }
