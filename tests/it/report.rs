@@ -634,6 +634,11 @@ fn demo_reports_agree_with_their_alerts_in_a_real_browser() {
         );
     }
     let message = demo_message(&html);
+    // The alert table gives the evidence of that same latest message: its projected range.
+    let range = message.split("(between ").nth(1).and_then(|r| r.split(')').next()).expect("a range");
+    let row = html.split("<tr id=\"alert-").find(|r| r.contains("heater_fouling")).expect("the alert's row");
+    let row = &row[..row.find("</tr>").unwrap()];
+    assert!(row.contains(&range.replace(" and ", " to ")), "evidence of another message than {range}: {row}");
     assert_prints(&browser, "the demo's last report", &html, date, &message);
     // The thermometer shift: its baseline line is the alert's baseline too.
     let r = reported();

@@ -164,6 +164,9 @@ pub struct AlertView {
     pub severity: Severity,
     /// Latest message.
     pub message: String,
+    /// The evidence of the latest message (none in a record written before it was kept).
+    #[serde(default)]
+    pub evidence: serde_json::Map<String, serde_json::Value>,
     /// Whether it is shelved.
     pub shelved: bool,
 }
@@ -357,6 +360,7 @@ fn from_files(
             raised_ms: first.time_ms,
             severity: last.severity,
             message: last.message.clone(),
+            evidence: last.evidence.clone(),
             shelved: false,
         })
         .collect();

@@ -859,6 +859,16 @@ fn evidence_html(ev: &serde_json::Map<String, serde_json::Value>) -> String {
                     )
                 }
             }),
+            // Probabilities by cause, the likeliest first.
+            serde_json::Value::Object(m) => {
+                let mut p: Vec<(&String, f64)> =
+                    m.iter().filter_map(|(c, v)| Some((c, v.as_f64()?))).collect();
+                p.sort_by(|a, b| b.1.total_cmp(&a.1));
+                p.iter()
+                    .map(|(c, v)| format!("{} {}", c.replace('_', " "), fmt_num(*v, 2)))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            }
             other => other.to_string(),
         };
         let _ =
@@ -880,10 +890,13 @@ fn write_alerts(s: &mut String, d: &ReportData) {
     for (i, (first, last)) in d.lifecycles.iter().enumerate() {
         let active = d.extra.active.iter().find(|a| a.alert_id == first.alert_id);
         let cleared = if last.event == EventKind::Cleared { when(last.time_ms, d) } else { "active".into() };
-        let message = match (active, last.event) {
-            (Some(a), _) => a.message.as_str(),
-            (None, EventKind::Cleared) => first.message.as_str(),
-            (None, _) => last.message.as_str(),
+        // An active alert's latest message and its evidence (the alert book's: a message
+        // updated without an event, such as a refitted projection, is not in the log).
+        let (message, evidence) = match (active, last.event) {
+            (Some(a), _) if !a.evidence.is_empty() => (a.message.as_str(), &a.evidence),
+            (Some(a), _) => (a.message.as_str(), &last.evidence),
+            (None, EventKind::Cleared) => (first.message.as_str(), &last.evidence),
+            (None, _) => (last.message.as_str(), &last.evidence),
         };
         let _ = write!(
             s,
@@ -896,7 +909,7 @@ fn write_alerts(s: &mut String, d: &ReportData) {
             esc(&first.subject),
             esc(last.severity.as_str()),
             esc(message),
-            evidence_html(&last.evidence)
+            evidence_html(evidence)
         );
     }
     s.push_str("</tbody></table></section>");

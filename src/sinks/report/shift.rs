@@ -158,6 +158,7 @@ impl ShiftBook {
                         raised_ms: a.raised_ms,
                         severity: a.severity,
                         message: a.message,
+                        evidence: a.evidence,
                         shelved: a.shelved,
                     })
                     .collect(),
