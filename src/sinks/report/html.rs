@@ -326,6 +326,21 @@ fn signed(v: f64, decimals: usize) -> String {
     if s.starts_with('−') || s.chars().all(|c| c == '0' || c == '.') { s } else { format!("+{s}") }
 }
 
+/// The projected date and range written on the effectiveness plot; for a narrow plot on two
+/// lines, and the range without the date when it is the projected day.
+fn projection_note(pr: &Projection, narrow: bool) -> String {
+    fn same<'a>(r: &'a str, date: &str) -> Option<&'a str> {
+        r.strip_prefix(date).map(str::trim).filter(|t| !t.is_empty())
+    }
+    if !narrow {
+        return format!("limit reached {} ({} to {})", pr.date, pr.range.0, pr.range.1);
+    }
+    match (same(&pr.range.0, &pr.date), same(&pr.range.1, &pr.date)) {
+        (Some(a), Some(b)) => format!("limit reached {}\n(between {a} and {b})", pr.date),
+        _ => format!("limit reached {}\n({} to {})", pr.date, pr.range.0, pr.range.1),
+    }
+}
+
 /// Heater effectiveness over the trend window, the monitor's trend and its projection.
 fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
     let limit = d.extra.effectiveness_limit;
@@ -423,23 +438,7 @@ fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
             p.hspan(a, b, limit, LIMIT, "projection-range");
         }
         p.vline(day(pr.at_ms), LIMIT, "3 3", "projection");
-        p.note(
-            day(pr.at_ms),
-            limit + 0.09 * (ya.hi - ya.lo),
-            &if narrow {
-                // On two lines, the range without the date when it is the projected day.
-                fn same<'a>(r: &'a str, date: &str) -> Option<&'a str> {
-                    r.strip_prefix(date).map(str::trim).filter(|t| !t.is_empty())
-                }
-                match (same(&pr.range.0, &pr.date), same(&pr.range.1, &pr.date)) {
-                    (Some(a), Some(b)) => format!("limit reached {}\n(between {a} and {b})", pr.date),
-                    _ => format!("limit reached {}\n({} to {})", pr.date, pr.range.0, pr.range.1),
-                }
-            } else {
-                format!("limit reached {} ({} to {})", pr.date, pr.range.0, pr.range.1)
-            },
-            "projected-date",
-        );
+        p.note(day(pr.at_ms), limit + 0.09 * (ya.hi - ya.lo), &projection_note(pr, narrow), "projected-date");
         let _ = write!(caption, "At the fitted rate the {}.", pr.text);
     }
     Figure {
