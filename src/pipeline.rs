@@ -19,6 +19,7 @@ use tracing::{info, warn};
 use crate::config::SiteConfig;
 use crate::ingest::tail::PollLimits;
 use crate::sinks::checkpoint::StateDir;
+use crate::sinks::durable::SyncSet;
 use crate::sinks::syslog::Forwarder;
 
 mod counters;
@@ -42,6 +43,10 @@ pub enum Mode {
     },
 }
 
+/// The current day's ingest counters are rewritten at most this often by routine checkpoints
+/// (200 units: 200 file replacements per checkpoint otherwise).
+pub const INGEST_COUNTS_EVERY_MS: u64 = 60_000;
+
 /// The pipeline of a site.
 pub struct Pipeline {
     /// Units.
@@ -54,6 +59,11 @@ pub struct Pipeline {
     /// The unit a bounded pass starts with (the one after the unit that spent the last
     /// pass's budget), so that every unit gets its turn while one of them catches up.
     next_unit: usize,
+    /// The last checkpoint's fsyncs did not all succeed: the next one syncs every open file.
+    sync_failed: bool,
+    /// When the current day's ingest counters were last written (monotonic ms; `None`: never
+    /// or by a final checkpoint).
+    counts_written_ms: Option<u64>,
 }
 
 /// How much one pass may do (see [`Pipeline::pass_within`]).
@@ -104,6 +114,8 @@ impl Pipeline {
             notes: Vec::new(),
             refused_requests: Default::default(),
             next_unit: 0,
+            sync_failed: false,
+            counts_written_ms: None,
         }
     }
 
@@ -133,7 +145,15 @@ impl Pipeline {
                 .map_err(|source| PipelineError::Output { unit: u.spec.name.clone(), source })?;
             units.push(rt);
         }
-        Ok(Pipeline { units, state, notes, refused_requests: Default::default(), next_unit: 0 })
+        Ok(Pipeline {
+            units,
+            state,
+            notes,
+            refused_requests: Default::default(),
+            next_unit: 0,
+            sync_failed: false,
+            counts_written_ms: None,
+        })
     }
 
     /// One pass over every unit, reading everything there is.
@@ -231,19 +251,68 @@ impl Pipeline {
     }
 
     /// Sync the outputs, then write the checkpoint (outputs are never behind the checkpoint).
+    ///
+    /// Every unit's files are flushed first and fsynced together (in parallel); after a failed
+    /// fsync the next checkpoint syncs every open file again.
     pub fn checkpoint(&mut self) -> Result<(), PipelineError> {
-        for u in &mut self.units {
-            u.sync().map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;
+        self.checkpoint_inner(None)
+    }
+
+    /// A routine checkpoint of the running service at monotonic time `now_ms`: as
+    /// [`Pipeline::checkpoint`], but the ingest counters of the current day (read only by
+    /// reports) are rewritten at most once per [`INGEST_COUNTS_EVERY_MS`].
+    pub fn checkpoint_at(&mut self, now_ms: u64) -> Result<(), PipelineError> {
+        self.checkpoint_inner(Some(now_ms))
+    }
+
+    fn checkpoint_inner(&mut self, now_ms: Option<u64>) -> Result<(), PipelineError> {
+        let counts_due = match (now_ms, self.counts_written_ms) {
+            (Some(now), Some(then)) => now.saturating_sub(then) >= INGEST_COUNTS_EVERY_MS,
+            _ => true,
+        };
+        if counts_due {
+            self.counts_written_ms = now_ms;
         }
+        let mut set = SyncSet::new(self.sync_failed);
+        // Until the set is synced, a file it named may not be durable: force the next one.
+        self.sync_failed = true;
+        for u in &mut self.units {
+            set.begin(&u.cfg.spec.name);
+            u.sync(&mut set, counts_due)
+                .map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;
+        }
+        // The outputs are synced while the checkpoint is written beside the current one; it is
+        // put in force only once they are durable.
+        let dir = self.state.as_ref().map(|d| d.path().to_path_buf());
+        let units = &self.units;
+        let (synced, prepared) = std::thread::scope(|s| {
+            let syncing = s.spawn(move || set.finish());
+            let prepared = dir.map(|dir| {
+                let units = units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect();
+                StateDir::prepare(&dir, &StoredRef::new(units))
+            });
+            let synced = syncing
+                .join()
+                .unwrap_or_else(|_| Err((String::new(), io::Error::other("an fsync thread panicked"))));
+            (synced, prepared)
+        });
+        synced.map_err(|(unit, source)| PipelineError::Output { unit, source })?;
+        self.sync_failed = false;
         if let Some(dir) = self.state.as_mut() {
-            let units = self.units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect();
-            match dir.save(&StoredRef::new(units)) {
-                Ok(()) => {
-                    for u in &mut self.units {
-                        u.checkpoint_written();
+            match prepared {
+                Some(Ok(p)) => match dir.commit(p) {
+                    Ok(()) => {
+                        for u in &mut self.units {
+                            u.checkpoint_written();
+                        }
                     }
+                    Err(e) => warn!(error = %e, "checkpoint write failed; will retry"),
+                },
+                Some(Err(e)) => {
+                    dir.failed();
+                    warn!(error = %e, "checkpoint write failed; will retry");
                 }
-                Err(e) => warn!(error = %e, "checkpoint write failed; will retry"),
+                None => {}
             }
         }
         Ok(())

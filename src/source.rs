@@ -5,6 +5,7 @@
 //! spans; the checking stage reports key paths. [`SourceText`] turns either into a
 //! [`Location`] by walking the spanned TOML document, so checked-model code never carries spans.
 
+use std::collections::HashMap;
 use std::fmt;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
@@ -12,7 +13,7 @@ use std::path::{Path, PathBuf};
 use toml::de::{DeTable, DeValue};
 
 /// One segment of a key path: a table key or a 0-based array index.
-#[derive(Debug, Clone, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
 pub enum Seg {
     /// A table key.
     Key(String),
@@ -131,6 +132,29 @@ impl From<LocatedError> for LocatedErrors {
     }
 }
 
+/// Record the span of every value under `node` (at `path`) in `map`.
+fn collect_spans(node: &DeValue<'_>, path: &mut Vec<Seg>, map: &mut HashMap<Vec<Seg>, Range<usize>>) {
+    match node {
+        DeValue::Table(t) => {
+            for (k, v) in t {
+                path.push(Seg::Key(k.get_ref().to_string()));
+                map.insert(path.clone(), v.span());
+                collect_spans(v.get_ref(), path, map);
+                path.pop();
+            }
+        }
+        DeValue::Array(a) => {
+            for (i, v) in a.iter().enumerate() {
+                path.push(Seg::Index(i));
+                map.insert(path.clone(), v.span());
+                collect_spans(v.get_ref(), path, map);
+                path.pop();
+            }
+        }
+        _ => {}
+    }
+}
+
 /// The text of one input file, kept so that errors can be located after parsing.
 #[derive(Debug, Clone)]
 pub struct SourceText {
@@ -138,12 +162,15 @@ pub struct SourceText {
     pub path: PathBuf,
     /// Full text.
     pub text: String,
+    /// The span of every key path in the text, built the first time one is asked for (a
+    /// check of a large site locates many problems: one parse, not one per problem).
+    spans: std::sync::OnceLock<HashMap<Vec<Seg>, Range<usize>>>,
 }
 
 impl SourceText {
     /// Wrap text read from `path`.
     pub fn new(path: impl Into<PathBuf>, text: impl Into<String>) -> Self {
-        SourceText { path: path.into(), text: text.into() }
+        SourceText { path: path.into(), text: text.into(), spans: std::sync::OnceLock::new() }
     }
 
     /// Read a file; the error is located at the file itself.
@@ -170,24 +197,15 @@ impl SourceText {
     /// The byte span of the value at `key`, or of the deepest existing parent when the key is
     /// missing (so "missing key" errors point at the table that should contain it).
     pub fn span_of(&self, key: &KeyPath) -> Option<Range<usize>> {
-        let doc = DeTable::parse(&self.text).ok()?;
-        let root = DeValue::Table(doc.into_inner());
-        let mut node = &root;
-        let mut span = None;
-        for seg in &key.0 {
-            let next = match seg {
-                Seg::Key(k) => node.get(k.as_str()),
-                Seg::Index(i) => node.get(*i),
-            };
-            match next {
-                Some(spanned) => {
-                    span = Some(spanned.span());
-                    node = spanned.get_ref();
-                }
-                None => break,
+        let spans = self.spans.get_or_init(|| {
+            let mut map = HashMap::new();
+            if let Ok(doc) = DeTable::parse(&self.text) {
+                let root = DeValue::Table(doc.into_inner());
+                collect_spans(&root, &mut Vec::new(), &mut map);
             }
-        }
-        span
+            map
+        });
+        (1..=key.0.len()).rev().find_map(|n| spans.get(&key.0[..n]).cloned())
     }
 
     /// Locate a key path.

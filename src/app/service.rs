@@ -409,7 +409,8 @@ impl Service {
         }
         let started = std::time::Instant::now();
         let pipeline = std::mem::replace(&mut self.pipeline, Pipeline::empty());
-        let (p, res) = blocking(pipeline, Pipeline::checkpoint).await?;
+        let now = self.clock.now_ms();
+        let (p, res) = blocking(pipeline, move |p| p.checkpoint_at(now)).await?;
         self.pipeline = p;
         res?;
         let took_ms = u64::try_from(started.elapsed().as_millis()).unwrap_or(u64::MAX);

@@ -20,6 +20,7 @@ use crate::ingest::reader::{ExportReader, Read};
 use crate::ingest::repeat::{RepeatLog, warn_summary};
 use crate::ingest::tail::{PollLimits, PollStats, TailOptions};
 use crate::sinks::alert_log::AlertWriter;
+use crate::sinks::durable::SyncSet;
 use crate::sinks::journal::{Journal, Span};
 use crate::sinks::report::ReportUnit;
 use crate::sinks::report::ShiftReports;
@@ -42,6 +43,8 @@ pub struct UnitRuntime {
     core: UnitCore,
     sinks: Sinks,
     tally: Tally,
+    /// The ingest counters as last written, per day (only changed days are rewritten).
+    ingest_written: BTreeMap<String, crate::sinks::report::IngestDay>,
     /// The unit's output directory.
     dir: PathBuf,
     /// Counters.
@@ -321,6 +324,7 @@ impl UnitRuntime {
             core: UnitCore::new(spec, saved.monitor, saved.alerts),
             sinks,
             tally: Tally::new(saved.ingest),
+            ingest_written: BTreeMap::new(),
             dir,
             counters: Counters::default(),
             last: None,
@@ -487,12 +491,22 @@ impl UnitRuntime {
         request.apply(&mut self.core)
     }
 
-    /// Sync the sinks and write the ingest counters (before the checkpoint).
-    pub(super) fn sync(&mut self) -> io::Result<()> {
-        self.sinks.sync()?;
-        ingest_counts::write_days(&self.dir, &self.cfg.spec.name, &self.tally.days);
+    /// Flush the sinks and the journal, naming their files to fsync in `set`, and write the
+    /// ingest counters that changed (the newest day's only when `counts_due`) before the
+    /// checkpoint.
+    pub(super) fn sync(&mut self, set: &mut SyncSet, counts_due: bool) -> io::Result<()> {
+        self.sinks.sync_into(set)?;
+        let newest = self.tally.days.keys().next_back().cloned();
+        let skip = if counts_due { None } else { newest.as_deref() };
+        ingest_counts::write_days(
+            &self.dir,
+            &self.cfg.spec.name,
+            &self.tally.days,
+            skip,
+            &mut self.ingest_written,
+        );
         if let Some(j) = self.journal.as_mut() {
-            self.history_span = j.sync(&self.core.monitor().history)?;
+            self.history_span = j.sync(&self.core.monitor().history, set)?;
         }
         Ok(())
     }

@@ -12,7 +12,8 @@ use crate::core::Outcome;
 use crate::core::alerts::AlertEvent;
 use crate::core::calendar::DayCache;
 use crate::sinks::Sink;
-use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, last_complete_line};
+use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, flush_day_into, last_complete_line};
+use crate::sinks::durable::SyncSet;
 
 /// Alert JSON-lines writer of one unit.
 pub struct AlertWriter {
@@ -98,6 +99,10 @@ impl Sink for AlertWriter {
 
     fn sync(&mut self) -> io::Result<()> {
         flush_day(&mut self.current, true)
+    }
+
+    fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()> {
+        flush_day_into(&mut self.current, set)
     }
 }
 

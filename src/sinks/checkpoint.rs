@@ -22,6 +22,9 @@ pub const VERSION: u32 = 1;
 const CURRENT: &str = "state.json";
 const PREVIOUS: &str = "state.prev.json";
 const TEMP: &str = "state.json.tmp";
+/// The next checkpoint while the outputs it describes are synced (never loaded: until it is
+/// renamed to `CURRENT` they may not be durable).
+const PENDING: &str = "state.json.pending";
 const LOCK: &str = "efftemp.lock";
 
 /// Why the state directory cannot be used.
@@ -143,7 +146,37 @@ impl StateDir {
 
     /// Write a checkpoint atomically, keeping the previous generation.
     pub fn save<T: Serialize>(&mut self, value: &T) -> io::Result<()> {
-        let r = self.save_inner(value);
+        match Self::prepare(&self.dir, value) {
+            Ok(p) => self.commit(p),
+            Err(e) => {
+                self.failures += 1;
+                Err(e)
+            }
+        }
+    }
+
+    /// Write the next checkpoint beside the current one, durable but not yet in use (a crash
+    /// now leaves the current one in force). Runs while the outputs it describes are being
+    /// synced; [`StateDir::commit`] puts it in force once they are.
+    ///
+    /// # Errors
+    /// When it cannot be serialized or written.
+    pub fn prepare<T: Serialize>(dir: &Path, value: &T) -> io::Result<Prepared> {
+        let payload = serde_json::to_string(value).map_err(io::Error::other)?;
+        let path = dir.join(PENDING);
+        let mut f = File::create(&path)?;
+        writeln!(f, "efftemp-state {VERSION} {:016x}", fnv1a64(payload.as_bytes()))?;
+        f.write_all(payload.as_bytes())?;
+        f.sync_all()?;
+        Ok(Prepared { path })
+    }
+
+    /// Put a prepared checkpoint in force, keeping the previous generation.
+    ///
+    /// # Errors
+    /// When a rename or the directory sync fails.
+    pub fn commit(&mut self, prepared: Prepared) -> io::Result<()> {
+        let r = self.commit_inner(&prepared.path);
         match &r {
             Ok(()) => self.writes += 1,
             Err(_) => self.failures += 1,
@@ -151,22 +184,25 @@ impl StateDir {
         r
     }
 
-    fn save_inner<T: Serialize>(&self, value: &T) -> io::Result<()> {
-        let payload = serde_json::to_string(value).map_err(io::Error::other)?;
-        let tmp = self.dir.join(TEMP);
-        {
-            let mut f = File::create(&tmp)?;
-            writeln!(f, "efftemp-state {VERSION} {:016x}", fnv1a64(payload.as_bytes()))?;
-            f.write_all(payload.as_bytes())?;
-            f.sync_all()?;
-        }
+    fn commit_inner(&self, pending: &Path) -> io::Result<()> {
         let cur = self.dir.join(CURRENT);
         if cur.exists() {
             fs::rename(&cur, self.dir.join(PREVIOUS))?;
         }
-        fs::rename(&tmp, &cur)?;
+        fs::rename(pending, &cur)?;
         sync_dir(&self.dir)
     }
+
+    /// A failed checkpoint that never reached [`StateDir::commit`] (counted for `/metrics`).
+    pub fn failed(&mut self) {
+        self.failures += 1;
+    }
+}
+
+/// A checkpoint written but not yet in force ([`StateDir::prepare`]).
+#[derive(Debug)]
+pub struct Prepared {
+    path: PathBuf,
 }
 
 fn sync_dir(dir: &Path) -> io::Result<()> {

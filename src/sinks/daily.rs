@@ -6,6 +6,8 @@ use std::fs::{self, File, OpenOptions};
 use std::io::{self, BufWriter, Read, Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
 
+use super::durable::SyncSet;
+
 /// Read the last complete line of a file. With `repair`, a half-written tail is truncated
 /// first (the writers, at start); without, it is only skipped (readers such as the report).
 pub fn last_complete_line(path: &Path, repair: bool) -> io::Result<Option<String>> {
@@ -57,19 +59,27 @@ pub struct DayFile {
     pub day: String,
     /// The buffered file.
     pub out: BufWriter<File>,
+    /// Its path.
+    pub path: PathBuf,
+    /// Its length when it was last named for an fsync (or opened).
+    pub synced_len: u64,
 }
 
 /// Open (create) the file `name` of `day` for appending, writing `header` into a new file.
 pub fn open_day(dir: &Path, name: &str, day: &str, header: Option<&str>) -> io::Result<DayFile> {
     fs::create_dir_all(dir)?;
     let path = dir.join(name);
-    let fresh = fs::metadata(&path).map(|m| m.len() == 0).unwrap_or(true);
+    let len = fs::metadata(&path).map(|m| m.len()).unwrap_or(0);
     let file = OpenOptions::new().create(true).append(true).open(&path)?;
     let mut out = BufWriter::with_capacity(64 * 1024, file);
-    if fresh && let Some(h) = header {
+    if len == 0
+        && let Some(h) = header
+    {
         writeln!(out, "{h}")?;
     }
-    Ok(DayFile { day: day.to_string(), out })
+    // A file that existed was synced before the checkpoint that names it; a new one was not.
+    let synced_len = if len == 0 { u64::MAX } else { len };
+    Ok(DayFile { day: day.to_string(), out, path, synced_len })
 }
 
 /// The file of `day` (`<prefix><day><suffix>`), switching to it from the current one (which
@@ -90,6 +100,23 @@ pub fn day_file<'a>(
         Some(c) => Ok(c),
         None => Ok(current.insert(open_day(dir, &format!("{prefix}{day}{suffix}"), day, header)?)),
     }
+}
+
+/// Flush the current file and name it in `set` for an fsync if it grew since it was last
+/// named (or always, when the set is forced).
+///
+/// # Errors
+/// When the flush fails.
+pub fn flush_day_into(current: &mut Option<DayFile>, set: &mut SyncSet) -> io::Result<()> {
+    if let Some(c) = current.as_mut() {
+        c.out.flush()?;
+        let len = c.out.get_ref().metadata()?.len();
+        if set.force || len != c.synced_len {
+            set.add(c.out.get_ref(), c.path.clone(), true)?;
+            c.synced_len = len;
+        }
+    }
+    Ok(())
 }
 
 /// Flush the current file, and fsync it when `sync`.

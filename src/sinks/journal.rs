@@ -24,6 +24,7 @@ use std::path::{Path, PathBuf};
 use serde::{Deserialize, Serialize};
 
 use crate::core::monitor::BlockRecord;
+use crate::sinks::durable::SyncSet;
 
 /// The live part of a unit's journal, as a checkpoint names it.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -125,13 +126,14 @@ impl Journal {
         Ok((blocks, note))
     }
 
-    /// Append the blocks of `history` completed since the last call and make them durable;
-    /// rewrite the journal when it holds more dead lines than live ones. Returns the span to
-    /// name in the checkpoint about to be written. Call [`Journal::named`] once it is written.
+    /// Append the blocks of `history` completed since the last call and name the journal in
+    /// `set` to be made durable with the other outputs; rewrite the journal when it holds more
+    /// dead lines than live ones. Returns the span to name in the checkpoint about to be
+    /// written. Call [`Journal::named`] once it is written.
     ///
     /// # Errors
     /// When the journal cannot be written (the checkpoint must then not be written either).
-    pub fn sync(&mut self, history: &VecDeque<BlockRecord>) -> io::Result<Option<Span>> {
+    pub fn sync(&mut self, history: &VecDeque<BlockRecord>, set: &mut SyncSet) -> io::Result<Option<Span>> {
         let span = Span::of(history);
         let keep_from = self.named_first.iter().flatten().copied().chain(span.map(|s| s.first_end_ms)).min();
         let dead = self.lines.saturating_sub(history.len());
@@ -142,22 +144,28 @@ impl Journal {
             self.rewrite(&keep)?;
             return Ok(span);
         }
-        let new: Vec<&BlockRecord> =
-            history.iter().filter(|b| self.written_end_ms.is_none_or(|w| b.end_ms > w)).collect();
-        if new.is_empty() {
+        // The blocks completed since the last call are the newest ones: count them from the back.
+        let fresh =
+            history.iter().rev().take_while(|b| self.written_end_ms.is_none_or(|w| b.end_ms > w)).count();
+        if fresh == 0 {
+            if set.force
+                && let Some(f) = self.file.as_ref()
+            {
+                set.add(f, self.path.clone(), false)?;
+            }
             return Ok(span);
         }
         let mut text = String::new();
-        for b in &new {
+        for b in history.range(history.len() - fresh..) {
             text.push_str(&serde_json::to_string(b).map_err(io::Error::other)?);
             text.push('\n');
         }
         if let Some(f) = self.file.as_mut() {
             f.write_all(text.as_bytes())?;
-            f.sync_data()?;
+            set.add(f, self.path.clone(), false)?;
         }
-        self.lines += new.len();
-        self.written_end_ms = new.last().map(|b| b.end_ms);
+        self.lines += fresh;
+        self.written_end_ms = history.back().map(|b| b.end_ms);
         Ok(span)
     }
 
@@ -197,6 +205,14 @@ impl Journal {
 mod tests {
     use super::*;
 
+    /// Append and make durable, as a checkpoint does.
+    fn sync(j: &mut Journal, history: &VecDeque<BlockRecord>) -> Option<Span> {
+        let mut set = SyncSet::default();
+        let span = j.sync(history, &mut set).unwrap();
+        set.finish().unwrap();
+        span
+    }
+
     fn block(end_ms: i64) -> BlockRecord {
         BlockRecord {
             end_ms,
@@ -223,14 +239,14 @@ mod tests {
         let mut j = Journal::new(dir.path(), "R-1");
         let (h0, note) = j.load(None).unwrap();
         assert!(h0.is_empty() && note.is_none());
-        let span = j.sync(&history(0..10)).unwrap();
+        let span = sync(&mut j, &history(0..10));
         j.named(span);
         let size = fs::metadata(j.path()).unwrap().len();
         // Nothing new: nothing written.
-        j.sync(&history(0..10)).unwrap();
+        sync(&mut j, &history(0..10));
         assert_eq!(fs::metadata(j.path()).unwrap().len(), size);
         // Two more blocks (the first two dropped from the window): two lines appended.
-        let span = j.sync(&history(2..12)).unwrap();
+        let span = sync(&mut j, &history(2..12));
         assert_eq!(span, Some(Span { first_end_ms: 2, last_end_ms: 11, count: 10 }));
         let text = fs::read_to_string(j.path()).unwrap();
         assert_eq!(text.lines().count(), 12);
@@ -246,10 +262,10 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let mut j = Journal::new(dir.path(), "R-1");
         j.load(None).unwrap();
-        let named = j.sync(&history(0..5)).unwrap();
+        let named = sync(&mut j, &history(0..5));
         j.named(named);
         // Appended for a checkpoint that was never written, then a torn line.
-        j.sync(&history(0..8)).unwrap();
+        sync(&mut j, &history(0..8));
         let mut f = OpenOptions::new().append(true).open(j.path()).unwrap();
         f.write_all(b"{\"end_ms\": 9, \"resid").unwrap();
         let mut again = Journal::new(dir.path(), "R-1");
@@ -258,7 +274,7 @@ mod tests {
         assert!(note.is_none(), "{note:?}");
         assert_eq!(fs::read_to_string(again.path()).unwrap().lines().count(), 5);
         // The journal goes on from there.
-        let span = again.sync(&history(1..7)).unwrap();
+        let span = sync(&mut again, &history(1..7));
         let (h, _) = Journal::new(dir.path(), "R-1").load(span).unwrap();
         assert_eq!(h, history(1..7));
     }
@@ -281,7 +297,7 @@ mod tests {
         let mut spans = Vec::new();
         for end in 0..2_000i64 {
             let h = history((end - window + 1).max(0)..end + 1);
-            let span = j.sync(&h).unwrap();
+            let span = sync(&mut j, &h);
             j.named(span);
             spans.push(span);
             let lines = fs::read_to_string(j.path()).unwrap().lines().count();
@@ -295,7 +311,7 @@ mod tests {
             let newest = history(2_000 - window..2_000);
             let mut j = Journal::new(dir.path(), "R-1");
             j.load(None).unwrap();
-            j.sync(&newest).unwrap();
+            sync(&mut j, &newest);
         }
     }
 }

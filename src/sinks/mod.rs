@@ -17,6 +17,7 @@ use crate::core::alerts::AlertEvent;
 pub mod alert_log;
 pub mod checkpoint;
 pub mod daily;
+pub mod durable;
 pub mod ingest_counts;
 pub mod journal;
 pub mod report;
@@ -25,6 +26,7 @@ pub mod softtags;
 pub mod syslog;
 
 use alert_log::AlertWriter;
+use durable::SyncSet;
 use report::ShiftReports;
 use softtags::SoftTagWriter;
 use syslog::SyslogSink;
@@ -37,6 +39,12 @@ pub trait Sink {
     fn flush(&mut self) -> io::Result<()>;
     /// Make what was written durable (before a checkpoint is written).
     fn sync(&mut self) -> io::Result<()>;
+    /// Flush what was written and name the files to fsync in `set` (before a checkpoint is
+    /// written; the set is synced in parallel). By default, [`Sink::sync`] at once.
+    fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()> {
+        let _ = set;
+        self.sync()
+    }
 }
 
 /// The sinks of one unit, in their fixed order.
@@ -87,10 +95,10 @@ impl Sinks {
         Ok(())
     }
 
-    /// Sync every sink.
-    pub fn sync(&mut self) -> io::Result<()> {
+    /// Flush every sink and name its files to fsync in `set`.
+    pub fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()> {
         for s in self.in_order() {
-            s.sync()?;
+            s.sync_into(set)?;
         }
         Ok(())
     }

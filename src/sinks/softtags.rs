@@ -18,7 +18,8 @@ use crate::core::flags::{FlagNames, write_codes};
 use crate::core::model::Evaluation;
 use crate::core::monitor::MonitorState;
 use crate::sinks::Sink;
-use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, last_complete_line};
+use crate::sinks::daily::{DayFile, dated_files, day_file, flush_day, flush_day_into, last_complete_line};
+use crate::sinks::durable::SyncSet;
 use crate::units::{self, Quantity, Unit};
 
 /// The soft-tag CSV header (stable; documented in docs/outputs.md). A unit with informational
@@ -277,6 +278,10 @@ impl Sink for SoftTagWriter {
 
     fn sync(&mut self) -> io::Result<()> {
         flush_day(&mut self.current, true)
+    }
+
+    fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()> {
+        flush_day_into(&mut self.current, set)
     }
 }
 
