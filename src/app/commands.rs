@@ -154,10 +154,12 @@ pub fn run(path: &Path, format: LogFormat, level: &str) -> Result<(), Failure> {
         if let Some(addr) = site.service.http_address {
             match tokio::net::TcpListener::bind(addr).await {
                 Ok(listener) => {
-                    tracing::info!(address = %addr, "health and metrics at /healthz, /readyz, /metrics");
-                    tokio::spawn(crate::app::http::serve(
+                    tracing::info!(address = %addr, "health and metrics at /healthz, /readyz, /metrics; pages at /, /unit/<name>, /reports/, /alerts.json");
+                    let pages = crate::app::http::Pages { site: site.name.clone(), output_dir: site.output_dir.clone() };
+                    tokio::spawn(crate::app::http::serve_with_pages(
                         listener,
                         snap_rx,
+                        Some(pages),
                         std::future::pending(),
                         crate::app::http::HttpLimits::default(),
                     ));
@@ -356,8 +358,12 @@ pub fn report(path: &Path, unit: Option<&str>, shift: Option<&str>) -> Result<()
         };
         let shift = shift.ok_or_else(|| Failure::Runtime("cannot determine the shift".into()))?;
         let unit = crate::sinks::report::ReportUnit::new(&site.name, &u.description, &u.spec);
-        let (path, text) = crate::sinks::report::write(&unit, &site.output_dir, &shift)
-            .map_err(|e| Failure::Runtime(format!("cannot write the report: {e}")))?;
+        // A shift without data writes nothing (and creates no folder): exit 2 with the reason.
+        let (path, text) =
+            crate::sinks::report::write_from_files(&unit, &site.output_dir, &shift).map_err(|e| match e {
+                crate::sinks::report::ReportError::NoData(e) => Failure::Usage(e.to_string()),
+                e @ crate::sinks::report::ReportError::Io(_) => Failure::Runtime(e.to_string()),
+            })?;
         say(text.trim_end_matches('\n'))?;
         say(format_args!("  report: {}", path.display()))?;
     }

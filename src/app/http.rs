@@ -1,6 +1,10 @@
 //! Health and metrics over HTTP (loopback by default): `/healthz` (the process is alive),
 //! `/readyz` (the pipeline has completed a pass recently and every unit can read its export
-//! directory) and `/metrics` in the Prometheus text exposition format (version 0.0.4).
+//! directory) and `/metrics` in the Prometheus text exposition format (version 0.0.4). With
+//! [`Pages`], also the engineer's read-only pages: `/` (all units: state, active alerts, last
+//! interval, data age, a residual sparkline), `/unit/{name}` (the shift so far, laid out as the
+//! shift report), `/reports/` (the archive of shift reports) and `/alerts.json` (the alert
+//! list). The pages carry no scripts and fetch nothing (a content security policy says so).
 //!
 //! The service publishes a [`Snapshot`] after every pass through a `watch` channel; the HTTP
 //! side only renders the latest one, so scraping never touches the pipeline.
@@ -331,11 +335,25 @@ pub async fn serve(
     shutdown: impl Future<Output = ()> + Send + 'static,
     limits: HttpLimits,
 ) -> std::io::Result<()> {
-    let app = Router::new()
+    serve_with_pages(listener, rx, None, shutdown, limits).await
+}
+
+/// [`serve`], with the engineer's pages when `pages` is given.
+pub async fn serve_with_pages(
+    listener: TcpListener,
+    rx: watch::Receiver<Snapshot>,
+    pages: Option<Pages>,
+    shutdown: impl Future<Output = ()> + Send + 'static,
+    limits: HttpLimits,
+) -> std::io::Result<()> {
+    let mut app = Router::new()
         .route("/healthz", get(healthz))
         .route("/readyz", get(readyz))
         .route("/metrics", get(metrics))
-        .with_state(rx);
+        .with_state(rx.clone());
+    if let Some(p) = pages {
+        app = app.merge(pages::router(std::sync::Arc::new(pages::State { pages: p, rx })));
+    }
     let permits = std::sync::Arc::new(tokio::sync::Semaphore::new(limits.max_connections.max(1)));
     let mut connections = tokio::task::JoinSet::new();
     tokio::pin!(shutdown);
@@ -374,6 +392,18 @@ pub async fn serve(
     connections.abort_all();
     Ok(())
 }
+
+/// What the engineer's pages read: the site's name and output directory (the live board of
+/// its units' shift books is found by it, and the report archive is under it).
+#[derive(Debug, Clone)]
+pub struct Pages {
+    /// Site name.
+    pub site: String,
+    /// The site's output directory.
+    pub output_dir: std::path::PathBuf,
+}
+
+mod pages;
 
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]

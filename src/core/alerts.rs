@@ -184,6 +184,8 @@ pub struct ActiveAlert {
     pub severity: Severity,
     /// Latest message.
     pub message: String,
+    /// The evidence of the latest message.
+    pub evidence: serde_json::Map<String, serde_json::Value>,
     /// Whether it is shelved.
     pub shelved: bool,
 }
@@ -204,6 +206,7 @@ impl AlertBook {
                     raised_ms: a.raised_ms,
                     severity: a.severity.unwrap_or(Severity::Low),
                     message: e.last.as_ref().map(|c| c.message.clone()).unwrap_or_default(),
+                    evidence: e.last.as_ref().map(|c| c.evidence.clone()).unwrap_or_default(),
                     shelved: self.shelved(&a.alert_id, cause, k),
                 })
             })
@@ -216,6 +219,7 @@ impl AlertBook {
                 raised_ms: f.raised_ms,
                 severity: Severity::Medium,
                 message: format!("{} alerts grouped", f.members.len()),
+                evidence: serde_json::Map::new(),
                 shelved: false,
             });
         }

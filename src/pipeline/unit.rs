@@ -227,6 +227,17 @@ impl Downstream<'_> {
             self.counters.not_computed += 1;
             self.counters.solver_failures += u64::from(ev.flags.contains(&Flag::SolverFailed));
         }
+        // The shift report keeps the shift in memory: what the monitor and the alert book hold
+        // now, and what was read before this interval closed.
+        if let Some(r) = self.sinks.reports.as_mut() {
+            let c = &*self.counters;
+            let read = crate::sinks::report::ReadCounts {
+                records: c.records,
+                late: c.late,
+                rejected: Some(&c.rejected),
+            };
+            r.observe(self.core, read);
+        }
         let written = self.sinks.write(&o)?;
         for e in written.events {
             let k = (e.cause.as_str().to_string(), e.event.as_str().to_string());

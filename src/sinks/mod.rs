@@ -69,8 +69,8 @@ pub struct Written {
 }
 
 impl Sinks {
-    /// Write one outcome to every sink in order. A shift report reads the soft tags and the
-    /// alert log, so they are flushed before it is written.
+    /// Write one outcome to every sink in order (a shift report is rendered from memory, not
+    /// from the files the sinks before it write).
     pub fn write(&mut self, outcome: &Outcome) -> io::Result<Written> {
         let before = self.alert_log.last_sequence;
         self.soft_tags.write(outcome)?;
@@ -81,10 +81,6 @@ impl Sinks {
         let events = outcome.events.iter().filter(|e| e.sequence > before).cloned().collect();
         let mut report = None;
         if let Some(r) = self.reports.as_mut() {
-            if r.due(outcome) {
-                self.soft_tags.flush()?;
-                self.alert_log.flush()?;
-            }
             r.write(outcome)?;
             report = r.take_written();
         }

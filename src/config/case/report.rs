@@ -10,6 +10,9 @@ use crate::source::{KeyPath, LocatedErrors};
 use crate::thermo::balance::{Basis, Effluent, FlowValue, Outcome, SolveError, Unknown};
 use crate::thermo::uncertainty::{InputRef, UncertaintyReport, propagate};
 
+/// The one residual convention of every output (soft tags, alerts, reports, `calc`).
+pub const RESIDUAL_SIGN: &str = "measured - predicted";
+
 impl Case {
     /// Solve the case; a failure is located at the input most likely responsible.
     pub fn run(&self) -> Result<Report, LocatedErrors> {
@@ -164,8 +167,12 @@ pub struct Report {
     pub effluent_temperature_degc: f64,
     /// Measured effluent temperature (when given and not used as an input), K.
     pub measured_temperature_k: Option<f64>,
-    /// Predicted minus measured, K.
+    /// Residual: measured minus predicted, K (the soft tags' and the report's sign: positive
+    /// when the effluent is hotter than the balance says).
     pub residual_k: Option<f64>,
+    /// How the residual is signed: always `measured - predicted` (present with `residual_k`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub residual_sign: Option<&'static str>,
     /// Heater duty, W.
     pub duty_w: f64,
     /// Heat loss, W.
@@ -262,7 +269,8 @@ impl Report {
             effluent_temperature_k: o.t_out,
             effluent_temperature_degc: o.t_out - 273.15,
             measured_temperature_k: measured,
-            residual_k: measured.map(|m| o.t_out - m),
+            residual_k: measured.map(|m| m - o.t_out),
+            residual_sign: measured.map(|_| RESIDUAL_SIGN),
             duty_w: o.duty,
             heat_loss_w: o.heat_loss,
             conversion,
@@ -402,7 +410,7 @@ impl Report {
         let _ = writeln!(s, "  solved for: {}", self.solved_for);
         let _ = writeln!(s, "  effluent temperature: {}", kelvin(self.effluent_temperature_k));
         if let (Some(m), Some(r)) = (self.measured_temperature_k, self.residual_k) {
-            let _ = writeln!(s, "  measured: {}; predicted - measured: {r:+.3} K", kelvin(m));
+            let _ = writeln!(s, "  measured: {}; residual (measured - predicted): {r:+.3} K", kelvin(m));
         }
         let _ = writeln!(s, "  heater duty: {:.3} W ({:.4} MW)", self.duty_w, self.duty_w / 1e6);
         for r in &self.reactions {

@@ -235,6 +235,33 @@ impl Watch<'_> {
         }
         if self.active.iter().any(|a| a.cause == Cause::HeaterFouling) || charted.eff.is_some() {
             *self.trend = self.fit_trend(now);
+            self.refresh_projection();
+        }
+    }
+
+    /// A held heater-fouling condition keeps the projection of the trend just fitted (its
+    /// message and evidence), so the alert and the report give the same date.
+    fn refresh_projection(&mut self) {
+        let (cfg, unit) = (self.cfg, self.unit);
+        let text = projection(self.trend.as_ref(), cfg, unit);
+        let trend = self.trend.clone();
+        for a in self.active.iter_mut().filter(|a| a.cause == Cause::HeaterFouling) {
+            const HEAD: &str = "the heater is fouling";
+            const TAIL: &str = ". Plan an inspection";
+            if let (Some(i), Some(j)) = (a.message.find(HEAD), a.message.find(TAIL)) {
+                let i = i + HEAD.len();
+                if i <= j {
+                    a.message.replace_range(i..j, &text);
+                }
+            }
+            for k in
+                ["trend_pct_per_day", "trend_t", "trend_model", "projected_limit_date", "projected_range"]
+            {
+                a.evidence.remove(k);
+            }
+            if let Some(t) = &trend {
+                trend_evidence(&mut a.evidence, t, unit);
+            }
         }
     }
 
@@ -602,16 +629,7 @@ impl Watch<'_> {
             ("z", round(last.z, 2)),
         ]);
         if let Some(t) = &*self.trend {
-            evidence.insert("trend_pct_per_day".into(), round(t.slope_per_day * 100.0, 3));
-            evidence.insert("trend_t".into(), round(t.t, 2));
-            evidence.insert("trend_model".into(), t.model.as_str().into());
-            if let Some(at) = t.limit_ms {
-                evidence.insert("projected_limit_date".into(), day(at, unit).into());
-            }
-            if let Some((lo, hi)) = t.range_ms {
-                evidence
-                    .insert("projected_range".into(), format!("{}/{}", day(lo, unit), day(hi, unit)).into());
-            }
+            trend_evidence(&mut evidence, t, unit);
         }
         let severity = match self.trend.as_ref().and_then(|t| t.limit_ms) {
             Some(at) if at - now < 7 * 86_400_000 => Severity::Medium,
@@ -787,19 +805,41 @@ fn ambient_fit(rows: &[AmbientRow], amb: &[&BlockRecord], te: usize, dev_k: f64)
     AmbientFit { rho, slope, spread: stats::std_dev(&aa), consistent }
 }
 
+/// The trend's figures in a fouling alert's evidence.
+fn trend_evidence(evidence: &mut serde_json::Map<String, serde_json::Value>, t: &Trend, unit: &UnitSpec) {
+    evidence.insert("trend_pct_per_day".into(), round(t.slope_per_day * 100.0, 3));
+    evidence.insert("trend_t".into(), round(t.t, 2));
+    evidence.insert("trend_model".into(), t.model.as_str().into());
+    if let Some(at) = t.limit_ms {
+        evidence.insert("projected_limit_date".into(), day(at, unit).into());
+    }
+    if let Some((lo, hi)) = t.range_ms {
+        let (a, b) = super::trend::range_text(lo, hi, &unit.time_zone);
+        evidence.insert("projected_range".into(), format!("{a}/{b}").into());
+    }
+}
+
 /// The projection part of a fouling message.
 fn projection(trend: Option<&Trend>, cfg: &MonitorConfig, unit: &UnitSpec) -> String {
     match trend {
         Some(t) => match (t.limit_ms, t.range_ms) {
-            (Some(at), Some((lo, hi))) => format!(
-                "; at the fitted rate ({:+.2} %/day, {} model) it reaches the cleaning limit {:.0} % on {} (between {} and {})",
+            (Some(at), Some((lo, hi))) if lo == hi => format!(
+                "; at the fitted rate ({:+.2} %/day, {} model) it has reached the cleaning limit {:.0} % ({})",
                 t.slope_per_day * 100.0,
                 t.model,
                 cfg.effectiveness_limit * 100.0,
-                day(at, unit),
-                day(lo, unit),
-                day(hi, unit)
+                day(at, unit)
             ),
+            (Some(at), Some((lo, hi))) => {
+                let (a, b) = super::trend::range_text(lo, hi, &unit.time_zone);
+                format!(
+                    "; at the fitted rate ({:+.2} %/day, {} model) it reaches the cleaning limit {:.0} % on {} (between {a} and {b})",
+                    t.slope_per_day * 100.0,
+                    t.model,
+                    cfg.effectiveness_limit * 100.0,
+                    day(at, unit),
+                )
+            }
             (None, _) if t.asymptote.is_some() => format!(
                 "; the fouling is levelling off near {:.1} % and is not expected to reach the cleaning limit",
                 t.asymptote.unwrap_or(0.0) * 100.0

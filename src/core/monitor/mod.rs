@@ -45,7 +45,7 @@ mod trend;
 pub use attribution::BlockRecord;
 pub use baseline::Baseline;
 pub use state::{Monitor, MonitorOutput, MonitorState};
-pub use trend::{Trend, TrendModel};
+pub use trend::{Trend, TrendModel, range_text};
 
 #[cfg(test)]
 mod tests;

@@ -56,6 +56,22 @@ pub struct Trend {
 
 const DAY_MS: f64 = 86_400_000.0;
 
+/// The earliest and latest projected times in words, local time: dates, or dates and hours
+/// when the range is shorter than two days (so that a tight range never reads "between
+/// 2026-12-11 and 2026-12-11"). The alerts and the shift report both write them so.
+pub fn range_text(lo_ms: i64, hi_ms: i64, tz: &jiff::tz::TimeZone) -> (String, String) {
+    let fmt = |ms: i64, f: &str| {
+        jiff::Timestamp::from_millisecond(ms)
+            .map(|t| t.to_zoned_datetime(tz.clone()).strftime(f).to_string())
+            .unwrap_or_default()
+    };
+    if hi_ms - lo_ms < 2 * 86_400_000 {
+        (fmt(lo_ms, "%Y-%m-%d %H:00"), fmt(hi_ms + 3_599_999, "%Y-%m-%d %H:00"))
+    } else {
+        (crate::core::calendar::day_of(lo_ms + 1, tz), crate::core::calendar::day_of(hi_ms + 1, tz))
+    }
+}
+
 /// Effectiveness trend on points spaced `trend_point_ms` over the trend window, from a day
 /// before the current episode began (the decline, not the flat baseline before it). `blocks`
 /// are the (end, effectiveness) of the blocks kept, oldest first.

@@ -1,58 +1,69 @@
-//! The shift-report sink: when an interval passes the end of the shift the previous interval
-//! belonged to, the report of that shift is written (see [`write`](super::write)).
+//! The shift-report sink: it keeps the shift in progress in memory ([`ShiftBook`]) and, when
+//! an interval ends past its shift, renders that shift's report from memory and writes it
+//! (the HTML page and the record of what the soft tags do not hold). The book is also on the
+//! live board, for the service's pages.
 
 use std::io;
 use std::path::PathBuf;
+use std::sync::{Arc, Mutex, PoisonError};
 
 use jiff::civil::Time;
 use tracing::{info, warn};
 
 use super::ReportUnit;
-use crate::core::Outcome;
-use crate::core::calendar::{Shift, shift_containing};
+use super::live::{Board, SharedBook, board};
+use super::shift::{ReadCounts, ShiftBook};
+use crate::core::{Outcome, UnitCore};
 use crate::sinks::Sink;
 
 /// Writes each unit's shift report as its shift ends, in event time.
 pub struct ShiftReports {
-    unit: ReportUnit,
+    book: Option<SharedBook>,
+    board: Option<Arc<Board>>,
+    name: String,
     output_dir: PathBuf,
-    shifts: Vec<Time>,
-    enabled: bool,
     /// End of the last interval seen (kept in the checkpoint).
     pub last_end_ms: Option<i64>,
-    /// The shift whose report the next write renders (found by [`ShiftReports::due`]).
-    pending: Option<Shift>,
     /// The report written last: path and text summary.
     written: Option<(PathBuf, String)>,
 }
 
 impl ShiftReports {
     /// Reports of `unit` under `output_dir` for the shift pattern `shifts`; with `enabled`
-    /// false only the interval ends are tracked.
+    /// false only the interval ends are tracked (no book, no live view).
     pub fn new(
-        unit: ReportUnit,
+        mut unit: ReportUnit,
         output_dir: PathBuf,
         shifts: Vec<Time>,
         enabled: bool,
         last_end_ms: Option<i64>,
     ) -> ShiftReports {
-        ShiftReports { unit, output_dir, shifts, enabled, last_end_ms, pending: None, written: None }
+        unit.output_dir = output_dir.clone();
+        unit.shifts = shifts;
+        let name = unit.name.clone();
+        let book = enabled.then(|| {
+            let mut book = ShiftBook::new(Arc::new(unit));
+            // After a restart the shift in progress is loaded from the files once, so that the
+            // live view and the shift's report have its first part.
+            if let Some(t) = last_end_ms {
+                book.begin(t + 1, Some(t));
+            }
+            Arc::new(Mutex::new(book))
+        });
+        let board = book.as_ref().map(|b| {
+            let board = board(&output_dir);
+            board.register(&name, b.clone());
+            board
+        });
+        ShiftReports { book, board, name, output_dir, last_end_ms, written: None }
     }
 
-    fn ended(&self, outcome: &Outcome) -> Option<Shift> {
-        if !self.enabled {
-            return None;
+    /// Take what the unit's monitor and alert book hold after the interval about to be
+    /// written, and the pipeline's read counters.
+    pub fn observe(&mut self, core: &UnitCore, read: ReadCounts<'_>) {
+        if let Some(b) = &self.book {
+            b.lock().unwrap_or_else(PoisonError::into_inner).observe(core, read);
         }
-        let end = outcome.evaluation.end_ms;
-        let shift = shift_containing(self.last_end_ms?, &self.shifts, &self.unit.time_zone)?;
-        (end >= shift.end_ms).then_some(shift)
-    }
-
-    /// Whether writing this outcome ends a shift (its report reads the other sinks' files,
-    /// which must be flushed first).
-    pub fn due(&mut self, outcome: &Outcome) -> bool {
-        self.pending = self.ended(outcome);
-        self.pending.is_some()
     }
 
     /// The report written by the last [`Sink::write`], if any.
@@ -61,19 +72,37 @@ impl ShiftReports {
     }
 }
 
+impl Drop for ShiftReports {
+    fn drop(&mut self) {
+        if let (Some(board), Some(book)) = (&self.board, &self.book) {
+            board.unregister(&self.name, book);
+        }
+    }
+}
+
 impl Sink for ShiftReports {
     fn write(&mut self, outcome: &Outcome) -> io::Result<()> {
-        let shift = self.pending.take().or_else(|| self.ended(outcome));
-        self.last_end_ms = Some(outcome.evaluation.end_ms);
-        let Some(shift) = shift else { return Ok(()) };
-        // A report that cannot be written is logged; the data it would show are on disk.
-        match super::write(&self.unit, &self.output_dir, &shift) {
-            Ok((path, text)) => {
-                info!(unit = %self.unit.name, report = %path.display(), "shift report written");
-                self.written = Some((path, text));
+        let end = outcome.evaluation.end_ms;
+        self.last_end_ms = Some(end);
+        let Some(book) = &self.book else { return Ok(()) };
+        let mut book = book.lock().unwrap_or_else(PoisonError::into_inner);
+        if book.shift.is_none() {
+            book.begin(end, None);
+        } else if book.ends_shift(end) {
+            // A report that cannot be written is logged; its data are in the soft tags.
+            if let Some(data) = book.data(false) {
+                match super::write_report(&data, &self.output_dir) {
+                    Ok((path, text)) => {
+                        info!(unit = %self.name, report = %path.display(), "shift report written");
+                        self.written = Some((path, text));
+                    }
+                    Err(e) => warn!(unit = %self.name, error = %e, "cannot write the shift report"),
+                }
             }
-            Err(e) => warn!(unit = %self.unit.name, error = %e, "cannot write the shift report"),
+            book.close();
+            book.begin(end, None);
         }
+        book.add(outcome);
         Ok(())
     }
 
