@@ -1003,10 +1003,11 @@ fn a_backlog_under_systemd_keeps_the_watchdog_fed_and_stops_promptly() {
         .replace("max_wait = \"3m\"", "max_wait = \"2s\"")
         .replace("[service]", "[service]\nhttp_address = \"off\"\ncatch_up_slice = \"50ms\"");
     std::fs::write(&plant.config, &cfg).unwrap();
-    let days = 30;
+    // Long enough that an idle machine is still catching up after three keep-alives (30 days
+    // were read in 1.2 s).
+    let days = 90;
     for d in 0..days {
-        plant
-            .append(&format!("plant_202612{:02}.csv", d + 1), &TestPlant::rows(d * 86_400, (d + 1) * 86_400));
+        plant.append(&format!("plant_day{:03}.csv", d + 1), &TestPlant::rows(d * 86_400, (d + 1) * 86_400));
     }
     let sock_path = plant.state.parent().unwrap().join("notify.sock");
     let sock = UnixDatagram::bind(&sock_path).unwrap();
