@@ -18,9 +18,11 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use efftemp::pipeline::{Mode, PassLimits, Pipeline};
+use efftemp::pipeline::{Mode, Pipeline, PollLimits};
+use efftemp::rng::Rng;
 
-const HEADER: &str = "Timestamp,FI-101,TI-102,JI-103,TI-109";
+mod common;
+use common::{HEADER, unit_block};
 
 struct Options {
     units: Vec<usize>,
@@ -48,50 +50,16 @@ fn options() -> Options {
     o
 }
 
-fn unit_block(name: &str) -> String {
-    format!(
-        r#"
-[[unit]]
-name = "{name}"
-[unit.input]
-directory = "exports"
-pattern = "plant_*.csv"
-timestamp_column = "Timestamp"
-[unit.timing]
-interval = "1m"
-[[unit.feed]]
-flow = {{ tag = "FI-101", unit = "mol/s", uncertainty = "1 %" }}
-temperature = {{ tag = "TI-102", unit = "degC", uncertainty = "0.5 K" }}
-composition = {{ water = 1.0 }}
-[unit.heater]
-duty = {{ tag = "JI-103", unit = "kW", uncertainty = "2 %" }}
-[unit.effluent]
-temperature = {{ tag = "TI-109", unit = "degC", uncertainty = "0.3 K" }}
-"#
-    )
-}
-
-/// A small deterministic noise source (xorshift), values in [-1, 1).
-struct Noise(u64);
-impl Noise {
-    fn next(&mut self) -> f64 {
-        self.0 ^= self.0 << 13;
-        self.0 ^= self.0 >> 7;
-        self.0 ^= self.0 << 17;
-        (self.0 >> 11) as f64 / (1u64 << 52) as f64 - 1.0
-    }
-}
-
-/// One export row at `t` (s since the epoch): a water heater at steady state with noise.
-fn row(t: i64, n: &mut Noise) -> String {
+/// One export row at `t` (s since the epoch): a water heater at steady state with normal noise.
+fn row(t: i64, n: &mut Rng) -> String {
     let ts = jiff::Timestamp::from_second(t).unwrap().strftime("%Y-%m-%dT%H:%M:%SZ");
     // 10 mol/s of water heated by 30 kW from 30 °C: about 69.8 °C out.
     format!(
         "{ts},{:.3},{:.3},{:.3},{:.3}\n",
-        10.0 + 0.02 * n.next(),
-        30.0 + 0.05 * n.next(),
-        30.0 + 0.06 * n.next(),
-        69.8 + 0.05 * n.next()
+        10.0 + 0.02 * n.normal(),
+        30.0 + 0.05 * n.normal(),
+        30.0 + 0.06 * n.normal(),
+        69.8 + 0.05 * n.normal()
     )
 }
 
@@ -101,7 +69,7 @@ fn day_file(exports: &Path, t: i64) -> PathBuf {
 }
 
 /// `days` of 1-minute rows ending at `end` (s), one file per UTC day. Returns the next minute.
-fn generate(exports: &Path, end: i64, days: i64, n: &mut Noise) -> i64 {
+fn generate(exports: &Path, end: i64, days: i64, n: &mut Rng) -> i64 {
     std::fs::create_dir_all(exports).unwrap();
     let mut t = end - days * 86_400;
     let mut out: Option<(PathBuf, std::io::BufWriter<std::fs::File>)> = None;
@@ -144,10 +112,10 @@ fn wall_ms() -> i64 {
 fn run(units: usize, days: i64, live: usize) {
     let dir = tempfile::tempdir().unwrap();
     let exports = dir.path().join("exports");
-    let mut noise = Noise(0x9e37_79b9_7f4a_7c15);
+    let mut noise = Rng::new(0x9e37_79b9_7f4a_7c15);
     let end = wall_ms() / 60_000 * 60 - 60;
     let mut next = generate(&exports, end, days, &mut noise);
-    let blocks: String = (0..units).map(|u| unit_block(&format!("U-{u:03}"))).collect();
+    let blocks: String = (0..units).map(|u| unit_block(&format!("U-{u:03}"), "exports", "1m")).collect();
     let cfg = dir.path().join("site.toml");
     std::fs::write(
         &cfg,
@@ -164,7 +132,7 @@ fn run(units: usize, days: i64, live: usize) {
     // Catch-up: bounded passes (the service's largest slice), a checkpoint after each.
     let mut catch_up: Vec<(f64, f64)> = Vec::new();
     loop {
-        let limits = PassLimits { now_ms: mono(), wall_ms: Some(wall_ms()), budget_bytes: 16 << 20 };
+        let limits = PollLimits { now_ms: mono(), wall_ms: Some(wall_ms()), budget_bytes: 16 << 20 };
         let s = p.pass_within(&limits, false).unwrap();
         let t0 = Instant::now();
         p.checkpoint_at(mono()).unwrap();
@@ -199,7 +167,7 @@ fn run(units: usize, days: i64, live: usize) {
         f.write_all(row(next, &mut noise).as_bytes()).unwrap();
         drop(f);
         next += 60;
-        let limits = PassLimits { now_ms: mono(), wall_ms: Some(wall_ms()), budget_bytes: u64::MAX };
+        let limits = PollLimits { now_ms: mono(), wall_ms: Some(wall_ms()), budget_bytes: u64::MAX };
         p.pass_within(&limits, false).unwrap();
         let t0 = Instant::now();
         p.checkpoint_at(mono()).unwrap();

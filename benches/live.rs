@@ -12,32 +12,10 @@ use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
-const HEADER: &str = "Timestamp,FI-101,TI-102,JI-103,TI-109";
-const BASE: i64 = 1_796_083_200; // 2026-12-01T00:00:00Z
+mod common;
+use common::{HEADER, unit_block};
 
-fn unit_block(name: &str, dir: &str, interval: &str) -> String {
-    format!(
-        r#"
-[[unit]]
-name = "{name}"
-[unit.input]
-directory = "{dir}"
-pattern = "plant_*.csv"
-timestamp_column = "Timestamp"
-[unit.timing]
-interval = "{interval}"
-max_wait = "30s"
-[[unit.feed]]
-flow = {{ tag = "FI-101", unit = "mol/s", uncertainty = "1 %" }}
-temperature = {{ tag = "TI-102", unit = "degC", uncertainty = "0.5 K" }}
-composition = {{ water = 1.0 }}
-[unit.heater]
-duty = {{ tag = "JI-103", unit = "kW", uncertainty = "2 %" }}
-[unit.effluent]
-temperature = {{ tag = "TI-109", unit = "degC", uncertainty = "0.3 K" }}
-"#
-    )
-}
+const BASE: i64 = 1_796_083_200; // 2026-12-01T00:00:00Z
 
 fn site(root: &Path, units: &str, watch: &str) -> PathBuf {
     let cfg = root.join("site.toml");

@@ -17,7 +17,9 @@ use std::sync::Arc;
 use tracing::{info, warn};
 
 use crate::config::SiteConfig;
-use crate::ingest::tail::PollLimits;
+/// How much one pass may do (see [`Pipeline::pass_within`]): the tailer's limits, the budget
+/// shared by the units in turn.
+pub use crate::ingest::tail::PollLimits;
 use crate::sinks::checkpoint::StateDir;
 use crate::sinks::durable::SyncSet;
 use crate::sinks::syslog::Forwarder;
@@ -64,18 +66,6 @@ pub struct Pipeline {
     /// When the current day's ingest counters were last written (monotonic ms; `None`: never
     /// or by a final checkpoint).
     counts_written_ms: Option<u64>,
-}
-
-/// How much one pass may do (see [`Pipeline::pass_within`]).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct PassLimits {
-    /// Monotonic time, ms.
-    pub now_ms: u64,
-    /// Wall-clock time, ms since the Unix epoch (to tell a backlog of old files from files
-    /// being written), if the caller has one.
-    pub wall_ms: Option<i64>,
-    /// Export bytes to read at most in this pass, over all units (`u64::MAX`: no limit).
-    pub budget_bytes: u64,
 }
 
 /// What a pass did.
@@ -145,20 +135,12 @@ impl Pipeline {
                 .map_err(|source| PipelineError::Output { unit: u.spec.name.clone(), source })?;
             units.push(rt);
         }
-        Ok(Pipeline {
-            units,
-            state,
-            notes,
-            refused_requests: Default::default(),
-            next_unit: 0,
-            sync_failed: false,
-            counts_written_ms: None,
-        })
+        Ok(Pipeline { units, state, notes, ..Pipeline::empty() })
     }
 
     /// One pass over every unit, reading everything there is.
     pub fn pass(&mut self, now_mono: u64, flush: bool) -> Result<PassSummary, PipelineError> {
-        self.pass_within(&PassLimits { now_ms: now_mono, wall_ms: None, budget_bytes: u64::MAX }, flush)
+        self.pass_within(&PollLimits { now_ms: now_mono, wall_ms: None, budget_bytes: u64::MAX }, flush)
     }
 
     /// One bounded pass: the units, starting with the one after the unit that stopped the
@@ -168,7 +150,7 @@ impl Pipeline {
     /// a checkpoint, a watchdog keep-alive and a look at its shutdown signal in between. The
     /// records of a unit arrive in the same order as in one unlimited pass, so the outputs do
     /// not depend on the budget.
-    pub fn pass_within(&mut self, limits: &PassLimits, flush: bool) -> Result<PassSummary, PipelineError> {
+    pub fn pass_within(&mut self, limits: &PollLimits, flush: bool) -> Result<PassSummary, PipelineError> {
         let mut summary = PassSummary::default();
         self.apply_requests();
         for u in &mut self.units {
@@ -188,7 +170,7 @@ impl Pipeline {
                 break;
             }
             let before = u.counters.intervals;
-            let poll = PollLimits { now_ms: limits.now_ms, wall_ms: limits.wall_ms, budget_bytes: budget };
+            let poll = PollLimits { budget_bytes: budget, ..*limits };
             let stats = u
                 .pass(&poll, flush)
                 .map_err(|source| PipelineError::Output { unit: u.cfg.spec.name.clone(), source })?;

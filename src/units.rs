@@ -392,6 +392,20 @@ pub fn format_in(si: f64, unit: &Unit, decimals: usize) -> String {
     format!("{:.*} {}", decimals, unit.from_si(si), unit.symbol)
 }
 
+/// An age or a lag in ms for people: `45 s`, `12 min`, `5.2 h`, `36.1 d`.
+pub fn human_age(ms: i64) -> String {
+    let s = ms as f64 / 1000.0;
+    if s < 120.0 {
+        format!("{s:.0} s")
+    } else if s < 7_200.0 {
+        format!("{:.0} min", s / 60.0)
+    } else if s < 172_800.0 {
+        format!("{:.1} h", s / 3_600.0)
+    } else {
+        format!("{:.1} d", s / 86_400.0)
+    }
+}
+
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
 mod tests {

@@ -67,20 +67,6 @@ pub fn human_bytes(n: u64) -> String {
     }
 }
 
-/// A duration in ms for people: `45 s`, `12 min`, `5.2 h`, `36.1 d`.
-fn human_ms(ms: i64) -> String {
-    let s = ms as f64 / 1000.0;
-    if s < 120.0 {
-        format!("{s:.0} s")
-    } else if s < 7_200.0 {
-        format!("{:.0} min", s / 60.0)
-    } else if s < 172_800.0 {
-        format!("{:.1} h", s / 3_600.0)
-    } else {
-        format!("{:.1} d", s / 86_400.0)
-    }
-}
-
 fn esc(v: &str) -> String {
     v.replace('\\', "\\\\").replace('"', "\\\"").replace('\n', "\\n")
 }
@@ -267,7 +253,7 @@ fn readiness(s: &Snapshot, now: i64) -> (StatusCode, String) {
                 let lag = u.last_data_ms.map_or(i64::MAX, |t| now - t);
                 let data = u.last_data_ms.map_or_else(
                     || "no data yet".to_string(),
-                    |t| format!("data up to {} ({} behind)", fmt_ms(t), human_ms(lag)),
+                    |t| format!("data up to {} ({} behind)", fmt_ms(t), crate::units::human_age(lag)),
                 );
                 Some((lag, format!("unit {}: {} unread, {data}", u.name, human_bytes(bytes))))
             })

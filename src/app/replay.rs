@@ -6,7 +6,7 @@ use std::path::PathBuf;
 use std::time::Duration;
 
 use crate::config::{SiteConfig, UnitConfig};
-use crate::pipeline::{Mode, PassLimits, Pipeline, PipelineError, UnitRuntime};
+use crate::pipeline::{Mode, Pipeline, PipelineError, PollLimits, UnitRuntime};
 
 /// What a replay did.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -106,7 +106,7 @@ pub fn replay(site: &SiteConfig, output: Option<PathBuf>) -> Result<ReplaySummar
     // Monotonic time stands still during a replay: only event time matters. Passes are bounded
     // so that the progress bar moves and a backlog of thousands of files is not held open at
     // once (files untouched for longer than the seal delay are closed once read).
-    let limits = PassLimits {
+    let limits = PollLimits {
         now_ms: 0,
         wall_ms: Some(jiff::Timestamp::now().as_millisecond()),
         budget_bytes: REPLAY_SLICE_BYTES,

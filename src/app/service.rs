@@ -18,7 +18,7 @@ use crate::app::http::Snapshot;
 use crate::app::notify::Notifier;
 use crate::config::SiteConfig;
 use crate::ingest::watch::{self, Watch, WatchStatus};
-use crate::pipeline::{Mode, PassLimits, Pipeline, PipelineError};
+use crate::pipeline::{Mode, Pipeline, PipelineError, PollLimits};
 use crate::sinks::syslog::Forwarder;
 
 /// A monotonic clock in milliseconds (tokio time, so tests can pause it).
@@ -324,7 +324,7 @@ impl Service {
 
     /// One pipeline pass at the current monotonic time, bounded by the read budget.
     async fn pass(&mut self) -> Result<(), ServiceError> {
-        let limits = PassLimits {
+        let limits = PollLimits {
             now_ms: self.clock.now_ms(),
             wall_ms: Some(jiff::Timestamp::now().as_millisecond()),
             budget_bytes: self.slice_bytes,

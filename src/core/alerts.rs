@@ -169,8 +169,8 @@ pub fn alert_id(unit: &str, cause: Cause, subject: &str, raised_ms: i64) -> Stri
     format!("{unit}-{short}-{:08x}", h as u32)
 }
 
-/// An active alert, for reports.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+/// An active alert, for reports (and in the record a shift report keeps beside its HTML).
+#[derive(Debug, Clone, PartialEq, Serialize, serde::Deserialize)]
 pub struct ActiveAlert {
     /// Id.
     pub alert_id: String,
@@ -180,11 +180,12 @@ pub struct ActiveAlert {
     pub subject: String,
     /// Raised at, ms.
     pub raised_ms: i64,
-    /// Priority.
+    /// Severity.
     pub severity: Severity,
     /// Latest message.
     pub message: String,
-    /// The evidence of the latest message.
+    /// The evidence of the latest message (none in a report record written before it was kept).
+    #[serde(default)]
     pub evidence: serde_json::Map<String, serde_json::Value>,
     /// Whether it is shelved.
     pub shelved: bool,

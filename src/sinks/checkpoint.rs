@@ -144,17 +144,6 @@ impl StateDir {
         (None, notes)
     }
 
-    /// Write a checkpoint atomically, keeping the previous generation.
-    pub fn save<T: Serialize>(&mut self, value: &T) -> io::Result<()> {
-        match Self::prepare(&self.dir, value) {
-            Ok(p) => self.commit(p),
-            Err(e) => {
-                self.failures += 1;
-                Err(e)
-            }
-        }
-    }
-
     /// Write the next checkpoint beside the current one, durable but not yet in use (a crash
     /// now leaves the current one in force). Runs while the outputs it describes are being
     /// synced; [`StateDir::commit`] puts it in force once they are.
@@ -235,6 +224,14 @@ fn decode<T: DeserializeOwned>(text: &str) -> Result<T, String> {
 #[allow(clippy::unwrap_used)]
 mod tests {
     use super::*;
+
+    impl StateDir {
+        /// Prepare and commit at once (the pipeline overlaps the two with the outputs' sync).
+        fn save<T: Serialize>(&mut self, value: &T) -> io::Result<()> {
+            let p = Self::prepare(&self.dir, value)?;
+            self.commit(p)
+        }
+    }
 
     #[test]
     fn round_trip_generations_and_corruption() {

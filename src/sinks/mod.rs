@@ -37,14 +37,9 @@ pub trait Sink {
     fn write(&mut self, outcome: &Outcome) -> io::Result<()>;
     /// Make what was written visible to readers (no fsync).
     fn flush(&mut self) -> io::Result<()>;
-    /// Make what was written durable (before a checkpoint is written).
-    fn sync(&mut self) -> io::Result<()>;
-    /// Flush what was written and name the files to fsync in `set` (before a checkpoint is
-    /// written; the set is synced in parallel). By default, [`Sink::sync`] at once.
-    fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()> {
-        let _ = set;
-        self.sync()
-    }
+    /// Flush what was written and name the files to fsync in `set`, so that it is durable
+    /// before a checkpoint is written (the set is synced in parallel).
+    fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()>;
 }
 
 /// The sinks of one unit, in their fixed order.

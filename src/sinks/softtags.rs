@@ -276,10 +276,6 @@ impl Sink for SoftTagWriter {
         flush_day(&mut self.current, false)
     }
 
-    fn sync(&mut self) -> io::Result<()> {
-        flush_day(&mut self.current, true)
-    }
-
     fn sync_into(&mut self, set: &mut SyncSet) -> io::Result<()> {
         flush_day_into(&mut self.current, set)
     }

@@ -15,7 +15,6 @@ use super::ReportUnit;
 use crate::core::alerts::{AlertEvent, EventKind};
 use crate::core::calendar::Shift;
 use crate::core::monitor::{MonitorState, Trend};
-use crate::core::vocabulary::{Cause, Severity};
 pub use crate::sinks::alert_log::load_events;
 pub use crate::sinks::softtags::{Row, load_rows};
 use crate::units::Unit;
@@ -150,26 +149,7 @@ pub struct Quality {
 }
 
 /// An alert active at the end of the shift, as the alert book holds it (its latest message).
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct AlertView {
-    /// Id.
-    pub alert_id: String,
-    /// Cause.
-    pub cause: Cause,
-    /// Subject (tag, heater, analyzer).
-    pub subject: String,
-    /// Raised at, ms.
-    pub raised_ms: i64,
-    /// Severity.
-    pub severity: Severity,
-    /// Latest message.
-    pub message: String,
-    /// The evidence of the latest message (none in a record written before it was kept).
-    #[serde(default)]
-    pub evidence: serde_json::Map<String, serde_json::Value>,
-    /// Whether it is shelved.
-    pub shelved: bool,
-}
+pub use crate::core::alerts::ActiveAlert as AlertView;
 
 /// A shelf in force during the shift.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

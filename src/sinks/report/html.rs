@@ -1049,11 +1049,10 @@ pub fn overview_html(site: &str, units: &[OverviewUnit], now_ms: i64) -> String 
                 .collect::<String>()
         };
         let last = u.last_ms.map_or("none".to_string(), |t| {
-            let age = (now_ms - t).max(0) / 1000;
             format!(
                 "{}<br><span class=\"sub\">{} ago</span>",
                 local(t, &u.tz, "%Y-%m-%d %H:%M"),
-                age_text(age)
+                crate::units::human_age((now_ms - t).max(0))
             )
         });
         let problem = u
@@ -1070,18 +1069,6 @@ pub fn overview_html(site: &str, units: &[OverviewUnit], now_ms: i64) -> String 
     }
     s.push_str("</tbody></table></section><footer><p>Residual = measured − predicted. Read-only pages of the running service; the alert list is at <code>/alerts.json</code>.</p></footer></main></body></html>");
     s
-}
-
-fn age_text(s: i64) -> String {
-    if s < 120 {
-        format!("{s} s")
-    } else if s < 7200 {
-        format!("{} min", s / 60)
-    } else if s < 172_800 {
-        format!("{} h", s / 3600)
-    } else {
-        format!("{} days", s / 86_400)
-    }
 }
 
 /// A small residual sparkline with its last value.

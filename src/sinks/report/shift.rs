@@ -148,21 +148,7 @@ impl ShiftBook {
         let book = core.alerts();
         if changed || book.shelves.len() != self.next.shelves.len() {
             self.next_changed = true;
-            self.next.active = Arc::new(
-                book.active()
-                    .into_iter()
-                    .map(|a| AlertView {
-                        alert_id: a.alert_id,
-                        cause: a.cause,
-                        subject: a.subject,
-                        raised_ms: a.raised_ms,
-                        severity: a.severity,
-                        message: a.message,
-                        evidence: a.evidence,
-                        shelved: a.shelved,
-                    })
-                    .collect(),
-            );
+            self.next.active = Arc::new(book.active());
             self.next.shelves = Arc::new(
                 book.shelves
                     .iter()

@@ -15,6 +15,7 @@ use super::live::{Board, SharedBook, board};
 use super::shift::{ReadCounts, ShiftBook};
 use crate::core::{Outcome, UnitCore};
 use crate::sinks::Sink;
+use crate::sinks::durable::SyncSet;
 
 /// Writes each unit's shift report as its shift ends, in event time.
 pub struct ShiftReports {
@@ -110,7 +111,7 @@ impl Sink for ShiftReports {
         Ok(())
     }
 
-    fn sync(&mut self) -> io::Result<()> {
+    fn sync_into(&mut self, _: &mut SyncSet) -> io::Result<()> {
         Ok(())
     }
 }

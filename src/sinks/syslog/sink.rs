@@ -6,6 +6,7 @@ use std::sync::Arc;
 use super::Forwarder;
 use crate::core::Outcome;
 use crate::sinks::Sink;
+use crate::sinks::durable::SyncSet;
 
 /// Alert events to the syslog forwarder's disk queue, each once: events already in the alert
 /// log when the service started are not sent again.
@@ -38,7 +39,7 @@ impl Sink for SyslogSink {
         Ok(())
     }
 
-    fn sync(&mut self) -> io::Result<()> {
+    fn sync_into(&mut self, _: &mut SyncSet) -> io::Result<()> {
         Ok(())
     }
 }
