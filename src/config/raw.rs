@@ -194,6 +194,9 @@ pub struct RawFeed {
     pub basis: Option<String>,
     /// Rescale analyzer fractions that do not sum to 1 (flagged when off by more than 1e-3).
     pub normalize: Option<bool>,
+    /// Standard uncertainty (absolute fraction) of fixed fractions that state none, for the
+    /// reconciliation of an effluent analyzer.
+    pub composition_uncertainty: Option<f64>,
 }
 
 /// `[unit.heater]`.
@@ -309,6 +312,10 @@ pub struct RawMonitor {
     pub clear_blocks: Option<u32>,
     /// Heater effectiveness at which cleaning is due.
     pub effectiveness_limit: Option<f64>,
+    /// Smallest loss of heater effectiveness named as fouling (fraction of the baseline).
+    pub min_fouling_loss: Option<f64>,
+    /// Smallest change of the key conversion named as a conversion drift.
+    pub min_conversion_change: Option<f64>,
     /// Trend window, e.g. "14d".
     pub trend_window: Option<String>,
     /// Trend point spacing, e.g. "4h".

@@ -507,6 +507,10 @@ fn feed(
     let (Some((flow, fq)), Some((temperature, _))) = (flow, temperature) else { return None };
     fixed_positive(ck, &fk.key("flow"), flow);
     fixed_positive(ck, &fk.key("temperature"), temperature);
+    let composition_uncertainty = f.composition_uncertainty.map_or(DESIGN_COMPOSITION_U, |u| {
+        ck.within(&fk.key("composition_uncertainty"), u, Range::UnitClosedBelow)
+            .unwrap_or(DESIGN_COMPOSITION_U)
+    });
     Some(FeedConfig {
         name: fname,
         flow,
@@ -515,8 +519,14 @@ fn feed(
         composition,
         basis,
         normalize: f.normalize.unwrap_or(true),
+        composition_uncertainty,
     })
 }
+
+/// How well a typed-in feed composition is known when it says nothing (absolute fraction).
+/// An assumption, common practice for design compositions of feeds from upstream units or
+/// tanks: they wander by one to a few mol% between laboratory checks; 0.02 covers most of it.
+const DESIGN_COMPOSITION_U: f64 = 0.02;
 
 /// A feed's fractions per unit component: analyzer tags, or fixed fractions that sum to 1
 /// (unless `normalize = true`).
@@ -886,6 +896,13 @@ fn check_monitor(ck: &mut Checker<'_>, key: &KeyPath, m: &RawMonitor, interval_m
         ("clear_z", m.clear_z, &mut c.clear_z, Range::Positive),
         ("effectiveness_limit", m.effectiveness_limit, &mut c.effectiveness_limit, Range::OpenUnit),
         ("min_feed_fraction", m.min_feed_fraction, &mut c.min_feed_fraction, Range::OpenUnit),
+        ("min_fouling_loss", m.min_fouling_loss, &mut c.min_fouling_loss, Range::UnitClosedBelow),
+        (
+            "min_conversion_change",
+            m.min_conversion_change,
+            &mut c.min_conversion_change,
+            Range::UnitClosedBelow,
+        ),
     ];
     for (name, v, target, range) in settings {
         if let Some(x) = v

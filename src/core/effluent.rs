@@ -52,14 +52,14 @@ pub struct AnalysisCheck {
     pub gross_error: bool,
 }
 
-/// Take an analysis in. `feed_total`: the feed per component, mol/s (asked for only when the
-/// analysis is new); `reported`: per component, the analyzer's fraction and its standard
+/// Take an analysis in. `feed`: the feed per component and its standard uncertainty, mol/s
+/// (asked for only when the analysis is new); `reported`: per component, the analyzer's fraction and its standard
 /// uncertainty (`None` for components it does not report); `prior`: the estimate so far.
 /// Returns the new estimate and, when the analysis is new, its check (`Err` when it cannot
 /// be reconciled at all).
 pub fn take_in(
     sys: &System,
-    feed_total: impl FnOnce() -> Vec<f64>,
+    feed: impl FnOnce() -> (Vec<f64>, Vec<f64>),
     reported: &[Option<(f64, f64)>],
     basis: crate::thermo::Basis,
     prior: Option<&ExtentEstimate>,
@@ -70,7 +70,9 @@ pub fn take_in(
     if let Some(p) = prior.filter(|p| p.last_seen == seen && p.conversions.len() == sys.reactions.len()) {
         return Ok((p.clone(), None));
     }
-    let rec: Reconciled = sys.reconcile(&feed_total(), reported, basis).map_err(|e| e.to_string())?;
+    let (feed_total, feed_sigma) = feed();
+    let rec: Reconciled =
+        sys.reconcile(&feed_total, &feed_sigma, reported, basis).map_err(|e| e.to_string())?;
     let gross_error = rec.chi_square > chi_square_999(rec.dof);
     let check = AnalysisCheck {
         sum: if rec.normalised { rec.sum } else { 1.0 },
@@ -142,10 +144,11 @@ mod tests {
                 est.as_ref().unwrap().last_seen.iter().map(|v| v.map(|v| (v, 0.003))).collect()
             };
             let (next, check) =
-                take_in(&sys, || feed.to_vec(), &a, Basis::Mole, est.as_ref(), now, tau).unwrap();
+                take_in(&sys, || (feed.to_vec(), Vec::new()), &a, Basis::Mole, est.as_ref(), now, tau)
+                    .unwrap();
             assert_eq!(check.is_some(), minute % 10 == 0, "minute {minute}");
             if minute % 10 == 0 && minute > 720 {
-                raw.push(sys.reconcile(&feed, &a, Basis::Mole).unwrap().conversions[0] - x);
+                raw.push(sys.reconcile(&feed, &[], &a, Basis::Mole).unwrap().conversions[0] - x);
                 smooth.push(next.conversions[0] - x);
             }
             // Taken in at its update, unless it failed the global test (about 1 in 1000).
@@ -170,20 +173,43 @@ mod tests {
         let sys = system();
         let feed = [2.0, 6.0, 0.0, 0.0];
         let mut rng = Rng::new(6);
-        let (first, _) =
-            take_in(&sys, || feed.to_vec(), &analysis(0.5, 0.0, &mut rng), Basis::Mole, None, 0, 7_200_000)
-                .unwrap();
+        let (first, _) = take_in(
+            &sys,
+            || (feed.to_vec(), Vec::new()),
+            &analysis(0.5, 0.0, &mut rng),
+            Basis::Mole,
+            None,
+            0,
+            7_200_000,
+        )
+        .unwrap();
         let mut bad = analysis(0.5, 0.0, &mut rng);
         bad[3] = bad[3].map(|(y, u)| (y + 0.05, u));
-        let (next, check) =
-            take_in(&sys, || feed.to_vec(), &bad, Basis::Mole, Some(&first), 600_000, 7_200_000).unwrap();
+        let (next, check) = take_in(
+            &sys,
+            || (feed.to_vec(), Vec::new()),
+            &bad,
+            Basis::Mole,
+            Some(&first),
+            600_000,
+            7_200_000,
+        )
+        .unwrap();
         assert!(check.unwrap().gross_error);
         assert_eq!(next.conversions, first.conversions);
         assert_eq!(next.updated_ms, 0);
         // Still failing after a time constant (a new analysis, as bad): taken in.
         bad[0] = bad[0].map(|(y, u)| (y + 1e-4, u));
-        let (later, _) =
-            take_in(&sys, || feed.to_vec(), &bad, Basis::Mole, Some(&next), 7_200_000, 7_200_000).unwrap();
+        let (later, _) = take_in(
+            &sys,
+            || (feed.to_vec(), Vec::new()),
+            &bad,
+            Basis::Mole,
+            Some(&next),
+            7_200_000,
+            7_200_000,
+        )
+        .unwrap();
         assert_eq!(later.updated_ms, 7_200_000);
     }
 }

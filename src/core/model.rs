@@ -498,7 +498,7 @@ impl Builder<'_, '_> {
         let estimate = if usable && feeds.len() == unit.feeds.len() {
             match take_in(
                 sys,
-                || sys.feed_total(feeds),
+                || (sys.feed_total(feeds), self.feed_sigma(feeds)),
                 &reported,
                 basis,
                 prior.estimate,
@@ -531,6 +531,39 @@ impl Builder<'_, '_> {
         }
         signals.extent_estimate = Some(estimate);
         Effluent::Reacted { conversions }
+    }
+}
+
+impl Builder<'_, '_> {
+    /// The standard uncertainty of each component's feed, mol/s, for the reconciliation of the
+    /// effluent analyzer: a fraction's own stated uncertainty, else (a typed-in fraction) the
+    /// feed's `composition_uncertainty` for components that are neither absent nor the whole
+    /// feed, else (a feed analyzer) 0.3 % absolute. Flow meter errors are left out: they
+    /// scale every component alike, which the analyzer's fractions cannot see.
+    fn feed_sigma(&self, feeds: &[FeedInput]) -> Vec<f64> {
+        let (unit, rd) = (self.unit, self.rd);
+        let sys = &unit.system;
+        let mut var = vec![0.0; sys.len()];
+        for (f, fc) in feeds.iter().zip(&unit.feeds) {
+            let flows = sys.feed_flows(f);
+            let total: f64 = flows.iter().sum();
+            let mass: f64 = flows.iter().zip(&sys.components).map(|(n, c)| n * c.molar_mass).sum::<f64>();
+            for (i, (v, s)) in var.iter_mut().zip(&fc.composition).enumerate() {
+                let u = match (*s, rd.get(*s)) {
+                    (Signal::Fixed { u, .. }, _) if u > 0.0 => u,
+                    (Signal::Fixed { si, .. }, _) if si > 0.0 && si < 1.0 => fc.composition_uncertainty,
+                    (Signal::Fixed { .. }, _) => 0.0,
+                    (Signal::Tag(_), Ok((_, u))) if u > 0.0 => u,
+                    (Signal::Tag(_), _) => 0.003,
+                };
+                let scale = match f.basis {
+                    crate::thermo::Basis::Mole => total,
+                    crate::thermo::Basis::Mass => mass / sys.components[i].molar_mass.max(1e-9),
+                };
+                *v += (u * scale).powi(2);
+            }
+        }
+        var.into_iter().map(f64::sqrt).collect()
     }
 }
 

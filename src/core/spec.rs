@@ -159,6 +159,9 @@ pub struct FeedConfig {
     pub basis: Basis,
     /// Rescale fractions not summing to 1.
     pub normalize: bool,
+    /// Standard uncertainty of fixed fractions that state none (absolute), used where an
+    /// effluent analyzer is reconciled with the feed.
+    pub composition_uncertainty: f64,
 }
 
 /// A reaction's conversion settings.

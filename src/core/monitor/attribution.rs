@@ -609,6 +609,12 @@ impl Watch<'_> {
         let Some(last) = self.history.back().cloned() else { return };
         let (Some(eff), Some((m, _))) = (last.eff, b.eff) else { return };
         let loss = (m - eff) / m * 100.0;
+        // Practical significance (alarm practice: every alert must call for an action): a
+        // statistically clear loss smaller than this is not yet worth a cleaning plan, and a
+        // heater that delivers more than its baseline is not fouling at all.
+        if loss < cfg.min_fouling_loss * 100.0 {
+            return;
+        }
         *self.trend = self.fit_trend(now);
         let projection = projection(self.trend.as_ref(), cfg, unit);
         let message = format!(
@@ -649,6 +655,13 @@ impl Watch<'_> {
             .map_or("key reactant".to_string(), |r| unit.system.components[r.key].id.clone());
         let base = b.conv.or(b.conv_measured).map(|c| c.0);
         let mut evidence = ev(&[("residual_k", round(last.residual, 3)), ("baseline_k", round(b.mu, 3))]);
+        if let Some((dx, _)) = change
+            && dx.abs() < self.cfg.min_conversion_change
+        {
+            // Statistically clear but too small to act on (catalyst wander, a residence-time
+            // change after a feed move).
+            return;
+        }
         let (message, magnitude) = match (change, base) {
             (Some((dx, zx)), Some(base)) => {
                 evidence.insert("conversion_change".into(), round(dx, 4));
@@ -892,6 +905,8 @@ mod tests {
         attribution: Attribution,
         trend: Option<Trend>,
         i: i64,
+        /// The conversion analyzer's reading for the next blocks.
+        conv_measured: Option<f64>,
         /// The causes held after each block.
         log: Vec<Vec<Cause>>,
     }
@@ -911,6 +926,7 @@ mod tests {
                 attribution: Attribution::default(),
                 trend: None,
                 i: 0,
+                conv_measured: None,
                 log: Vec::new(),
             }
         }
@@ -928,7 +944,7 @@ mod tests {
                 z: 0.0,
                 eff: Some(1.0 + residual * c / duty),
                 conv: None,
-                conv_measured: None,
+                conv_measured: self.conv_measured,
                 duty: Some(duty),
                 key_feed: Some(0.1 * feed),
                 heat_capacity: Some(c),
@@ -989,11 +1005,12 @@ mod tests {
         );
         assert!((a.magnitude - 3.0).abs() < 0.1, "loss {} %", a.magnitude);
         // Back to normal. The first block still signals (two of the last three blocks beyond
-        // the Shewhart limit) and refreshes the alert; the condition clears after the six
-        // clean blocks that follow, and the episode ends.
+        // the Shewhart limit) but its effectiveness is back within `min_fouling_loss` of the
+        // baseline, so it does not refresh the alert: the condition clears after six clean
+        // blocks, and the episode ends.
         judge.moving(30..40, |feed, _| 0.01 * feed * CP * rng.normal());
         let cleared: Vec<bool> = judge.log[30..].iter().map(Vec::is_empty).collect();
-        assert_eq!(cleared, [false, false, false, false, false, false, true, true, true, true]);
+        assert_eq!(cleared, [false, false, false, false, false, true, true, true, true, true]);
         assert_eq!(judge.attribution.episode_ms, None);
     }
 
@@ -1012,6 +1029,45 @@ mod tests {
             "{}",
             a.message
         );
+    }
+
+    #[test]
+    fn a_clear_but_small_effectiveness_loss_is_not_named_fouling() {
+        // 1 % of the duty does not reach the liquid: statistically clear (the noise is a
+        // twentieth of the deficit), but below `min_fouling_loss` (2 %): not worth a
+        // cleaning plan, so no fouling alert.
+        let mut judge = Judge::new();
+        let mut rng = Rng::new(23);
+        judge.moving(0..30, |_, duty| -0.01 * duty + 5.0 * rng.normal());
+        assert!(!judge.log.iter().flatten().any(|c| *c == Cause::HeaterFouling), "{:?}", judge.log);
+        // With the threshold lowered to 0.5 % the same data are named fouling.
+        let mut judge = Judge::new();
+        judge.cfg.min_fouling_loss = 0.005;
+        let mut rng = Rng::new(23);
+        judge.moving(0..30, |_, duty| -0.01 * duty + 5.0 * rng.normal());
+        assert_eq!(judge.held(), vec![Cause::HeaterFouling]);
+    }
+
+    #[test]
+    fn a_measured_conversion_change_is_named_only_from_min_conversion_change() {
+        // A conversion analyzer with a baseline of 0.500 ± 0.002. A shift of +0.010 is five
+        // of its σ (statistically clear) but below `min_conversion_change` (0.02): no alert.
+        // A shift of +0.030 is named, with the analyzer as the evidence.
+        for (shift, named) in [(0.010, false), (0.030, true)] {
+            let mut judge = Judge::new();
+            judge.b.conv_measured = Some((0.5, 0.002));
+            judge.conv_measured = Some(0.5 + shift);
+            let mut rng = Rng::new(24);
+            // The reaction absorbs more heat: the effluent runs cooler, in proportion to the feed.
+            judge.moving(0..30, |feed, _| -9_000.0 * shift * 0.1 * feed + 5.0 * rng.normal());
+            let held = judge.log.iter().flatten().any(|c| *c == Cause::ConversionDrift);
+            assert_eq!(held, named, "shift {shift}: {:?}", judge.log);
+            if named {
+                let a = judge.active.iter().find(|a| a.cause == Cause::ConversionDrift).unwrap();
+                assert!(a.message.contains("the conversion analyzer confirms it"), "{}", a.message);
+                assert!((a.magnitude - shift).abs() < 1e-9, "{}", a.magnitude);
+            }
+        }
     }
 
     #[test]

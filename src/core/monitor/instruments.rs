@@ -266,6 +266,16 @@ struct Step {
     measurement: f64,
 }
 
+/// The input that moved most across a step, in units of its interval noise, and how many
+/// other inputs moved too (an operating change moves several: a feed step and the duty
+/// that follows it).
+#[derive(Debug, Clone, Copy)]
+struct Moved {
+    tag: usize,
+    by: f64,
+    count: usize,
+}
+
 /// Which side moved in the step.
 #[derive(Debug, Clone, Copy)]
 struct Sides {
@@ -336,6 +346,7 @@ impl StepWindow {
         let (moved, frozen) = self.inputs_across(unit, b);
         let sides = self.sides(step, lag);
         let Some((tag_idx, why)) = suspect(unit, frozen, moved, sides, step) else { return };
+        let input_moved = moved.is_some();
         // A frozen input explains a residual that moves while the prediction does not.
         if tag_idx == unit.effluent_temperature && active.iter().any(|a| a.subject.ends_with(":stuck")) {
             self.0.clear();
@@ -346,9 +357,11 @@ impl StepWindow {
             return;
         }
         let step_ms = self.0[20].0;
-        if tag_idx != unit.effluent_temperature && frozen != Some(tag_idx) {
+        if frozen != Some(tag_idx) && (tag_idx != unit.effluent_temperature || input_moved) {
             // An input meter moved and the plant temperature has not followed yet: the plant may
-            // only be slow. Judged again once it has had time to answer.
+            // only be slow. Judged again once it has had time to answer. The same for a
+            // thermometer step that came with an input move: the measurement may be the
+            // plant's own answer to the move, faster or slower than the compensation.
             let wait = METER_WAIT_MS.max(2 * (cfg.dead_time_ms + cfg.lag_ms));
             *pending = Some(PendingMeter { tag: tag_idx, why, step, step_ms, due_ms: step_ms + wait });
             return;
@@ -406,8 +419,8 @@ impl StepWindow {
     /// Which input changed most across the step, in units of its interval noise (at least six
     /// of them), and which one, if any, is frozen (no noise in the after-window although the
     /// baseline saw noise).
-    fn inputs_across(&self, unit: &UnitSpec, b: &Baseline) -> (Option<(usize, f64)>, Option<usize>) {
-        let mut moved: Option<(usize, f64)> = None;
+    fn inputs_across(&self, unit: &UnitSpec, b: &Baseline) -> (Option<Moved>, Option<usize>) {
+        let mut moved: Option<Moved> = None;
         let mut frozen: Option<usize> = None;
         for (i, tag) in unit.tags.iter().enumerate() {
             if i == unit.effluent_temperature || tag.kind != TagKind::Continuous || tag.info {
@@ -428,8 +441,12 @@ impl StepWindow {
             // Moved: the change of the medians exceeds six times the tag's interval noise
             // (the noise of a 10-against-20 median difference is about 0.4 of it).
             let d = (stats::median(&after) - stats::median(&before)) / noise.max(1e-9 * hi.abs().max(1.0));
-            if d.abs() >= 6.0 && moved.is_none_or(|(_, v)| d.abs() > v.abs()) {
-                moved = Some((i, d));
+            if d.abs() >= 6.0 {
+                moved = Some(match moved {
+                    None => Moved { tag: i, by: d, count: 0 },
+                    Some(m) if d.abs() > m.by.abs() => Moved { tag: i, by: d, count: m.count + 1 },
+                    Some(m) => Moved { count: m.count + 1, ..m },
+                });
             }
         }
         (moved, frozen)
@@ -511,13 +528,13 @@ impl StepWindow {
 }
 
 /// The tag to suspect and why: a frozen input first, then the thermometer when the
-/// measurement made the change, then an input meter that stepped while the plant temperature
-/// did not follow. A gradual change, an operating change, or the prediction stepping on an
+/// measurement made the change, then an input meter that stepped alone while the plant
+/// temperature did not follow. A gradual change, an operating change, or the prediction stepping on an
 /// analyzer update is not an instrument step (the drift charts judge what persists).
 fn suspect(
     unit: &UnitSpec,
     frozen: Option<usize>,
-    moved: Option<(usize, f64)>,
+    moved: Option<Moved>,
     sides: Sides,
     step: Step,
 ) -> Option<(usize, String)> {
@@ -532,7 +549,10 @@ fn suspect(
                 "the measurement jumped within two intervals, faster than the prediction can move".to_string()
             },
         )),
-        (None, Some((i, d))) if sides.abrupt && sides.meter_consistent && dm.abs() < dr.abs() / 3.0 => {
+        // One meter alone: when other inputs moved with it, it was an operating move.
+        (None, Some(Moved { tag: i, by: d, count: 0 }))
+            if sides.abrupt && sides.meter_consistent && dm.abs() < dr.abs() / 3.0 =>
+        {
             Some((
                 i,
                 format!(
@@ -735,6 +755,65 @@ mod tests {
             p.meas += if t > 0.0 { rise * (1.0 - (-t / 15.0).exp()) } else { 0.0 };
         });
         assert!(checks.log.iter().all(Vec::is_empty), "{:?}", checks.held());
+    }
+
+    #[test]
+    fn a_feed_step_with_a_duty_follow_up_is_an_operating_move_not_a_meter_fault() {
+        // The operators cut the feed by 10 % and follow with the duty two minutes later; the
+        // plant holds its temperature, but after the move the model runs 0.6 K cooler (its
+        // design conversion no longer fits the longer residence time). Two inputs moved
+        // together: an operating change, not a meter that stepped on its own.
+        let mut rng = Rng::new(9);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 120, |k, p| {
+            if k >= 20 {
+                p.feed *= 0.9;
+            }
+            if k >= 22 {
+                p.duty *= 0.9;
+                p.pred -= 0.6;
+            }
+        });
+        assert!(checks.log.iter().all(Vec::is_empty), "{:?}", checks.held());
+    }
+
+    #[test]
+    fn a_thermometer_jump_after_an_input_move_waits_for_the_plant_to_settle() {
+        // The duty rises 5 % (2 K of heating) and the plant answers after 4 min within two
+        // intervals, overshooting by 1.5 K that dies out with a time constant of 10 min: the
+        // measurement jumps, but it is the plant's own answer. Judged once the plant has had
+        // time to settle: nothing stands. (The prediction is computed from the noise-free
+        // inputs, so that the residual's noise is the thermometer's, as the baseline says.)
+        let mut rng = Rng::new(10);
+        let nominal = Point::nominal();
+        let predicted = |k: i64| {
+            let duty = nominal.duty * if k >= 20 { 1.05 } else { 1.0 };
+            (duty, nominal.feed_t + duty / (nominal.feed * CP))
+        };
+        let rise = 0.05 * nominal.duty / (nominal.feed * CP);
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 150, |k, p| {
+            let (duty, pred) = predicted(k);
+            (p.duty, p.pred) = (p.duty * duty / nominal.duty, pred);
+            if k >= 24 {
+                let t = (k - 24) as f64;
+                p.meas += (rise + 1.5 * (-t / 10.0).exp()) * (1.0 - (-t / 1.5).exp());
+            }
+        });
+        let first = checks.log.iter().position(|h| !h.is_empty());
+        assert!(first.is_none(), "raised at {first:?}: {:?}", checks.held());
+        // A thermometer that steps by 1 K at that moment is still raised, once the wait is over.
+        let mut checks = Checks::new();
+        checks.intervals(&mut rng, 150, |k, p| {
+            let (duty, pred) = predicted(k);
+            (p.duty, p.pred) = (p.duty * duty / nominal.duty, pred);
+            if k >= 24 {
+                p.meas += rise + 1.0;
+            }
+        });
+        let first = checks.log.iter().position(|h| !h.is_empty()).expect("raised");
+        assert!(first <= 24 + 60, "raised at interval {first}");
+        assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "TI-109".to_string())]);
     }
 
     #[test]

@@ -35,6 +35,10 @@ pub struct MonitorConfig {
     pub step_z: f64,
     /// Heater effectiveness at which cleaning is due (0.85).
     pub effectiveness_limit: f64,
+    /// Smallest loss of heater effectiveness named as fouling, fraction of the baseline (0.02).
+    pub min_fouling_loss: f64,
+    /// Smallest change of the key conversion named as a conversion drift (0.02).
+    pub min_conversion_change: f64,
     /// Trend window, ms (14 d).
     pub trend_window_ms: i64,
     /// Trend point spacing, ms (4 h).
@@ -78,6 +82,8 @@ impl Default for MonitorConfig {
             clear_blocks: 6,
             step_z: 3.0,
             effectiveness_limit: 0.85,
+            min_fouling_loss: 0.02,
+            min_conversion_change: 0.02,
             trend_window_ms: 14 * 86_400_000,
             trend_point_ms: 4 * 3_600_000,
             trend_t_min: 2.0,
