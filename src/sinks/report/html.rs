@@ -559,6 +559,9 @@ fn conversion_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
     }
 }
 
+/// A line's points: (x, y), `None` where there is no value.
+type Points = Vec<(f64, Option<f64>)>;
+
 /// The inputs of the balance, one plot per group and unit (duty, feed flows, feed
 /// temperatures).
 fn input_figures(d: &ReportData, x: &ShiftAxis) -> Vec<Figure> {
@@ -591,7 +594,7 @@ fn input_figures(d: &ReportData, x: &ShiftAxis) -> Vec<Figure> {
                 "flow" => "Feed flows",
                 _ => "Feed temperatures",
             };
-            let members: Vec<(&str, &str, Vec<(f64, Option<f64>)>)> = members
+            let members: Vec<(&str, &str, Points)> = members
                 .iter()
                 .enumerate()
                 .map(|(k, m)| {
