@@ -21,9 +21,11 @@ pub mod vocabulary;
 use alerts::{AlertBook, AlertEvent, Shelf};
 use assembly::Closed;
 use calendar::DayCache;
-use model::{Evaluation, evaluate};
+use model::{Evaluation, evaluate_with};
 use monitor::{Monitor, MonitorState};
 use spec::UnitSpec;
+
+use crate::thermo::vapor::BubbleMemo;
 
 /// A line for the log that an interval produced.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -55,13 +57,15 @@ pub struct UnitCore {
     alerts: AlertBook,
     /// Local dates of interval ends, for the events' RFC 3339 times.
     days: DayCache,
+    /// The last bubble point of the effluent (a cache: not part of the saved state).
+    bubble: BubbleMemo,
 }
 
 impl UnitCore {
     /// A unit's core, from its saved monitor and alert book (or fresh ones).
     pub fn new(spec: Arc<UnitSpec>, monitor: Option<Monitor>, alerts: AlertBook) -> UnitCore {
         let monitor = monitor.unwrap_or_else(|| Monitor::new(&spec.monitor, spec.interval_ms));
-        UnitCore { spec, monitor, alerts, days: DayCache::default() }
+        UnitCore { spec, monitor, alerts, days: DayCache::default(), bubble: BubbleMemo::default() }
     }
 
     /// The unit it computes for.
@@ -82,7 +86,8 @@ impl UnitCore {
     /// Evaluate one closed interval, step the monitor and the alert lifecycle.
     pub fn step(&mut self, closed: &Closed) -> Outcome {
         let spec = &*self.spec;
-        let mut evaluation = evaluate(spec, closed, self.monitor.extent_estimate());
+        let estimate = self.monitor.extent_estimate();
+        let mut evaluation = evaluate_with(spec, closed, estimate, &mut self.bubble);
         let mo = self.monitor.step(&spec.monitor, spec, &mut evaluation);
         let mut notes: Vec<Note> = mo.note.into_iter().map(Note::Monitor).collect();
         evaluation.flags.extend(mo.flags);

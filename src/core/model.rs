@@ -13,6 +13,7 @@ use crate::core::spec::{FeedConfig, Signal, UnitSpec};
 use crate::core::vocabulary::{Cause, Condition, Severity, TagKind};
 use crate::thermo::balance::{Effluent, FeedInput, FlowValue, Inputs, Unknown};
 use crate::thermo::uncertainty::{InputRef, combined};
+use crate::thermo::vapor::BubbleMemo;
 
 /// Default tolerance on analyzer fractions summing to 1 (`[unit.model] analyzer_sum_tolerance`).
 /// Common practice: analyzers that report each component separately sum to 98-102 % in normal
@@ -176,6 +177,17 @@ impl Label {
 /// Evaluate one closed interval of a unit. `estimate`: the effluent analyzer's estimate of
 /// the conversions so far (kept by the monitor), if the unit has one.
 pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstimate>) -> Evaluation {
+    evaluate_with(unit, closed, estimate, &mut BubbleMemo::default())
+}
+
+/// [`evaluate`] with the unit's memo of its last bubble point (the same evaluation; a unit
+/// whose effluent composition and pressure did not change does not solve it again).
+pub fn evaluate_with(
+    unit: &UnitSpec,
+    closed: &Closed,
+    estimate: Option<&ExtentEstimate>,
+    memo: &mut BubbleMemo,
+) -> Evaluation {
     let rd = Reader { unit, closed };
     let mut flags: Vec<Flag> = Vec::new();
     let mut conditions: Vec<Condition> = Vec::new();
@@ -268,7 +280,8 @@ pub fn evaluate(unit: &UnitSpec, closed: &Closed, estimate: Option<&ExtentEstima
     ) {
         Err(reason) => eval.reason = Some(reason),
         Ok((inputs, uncertain)) => {
-            solve_all(unit, &inputs, &uncertain, measured, &mut eval, &mut flags, &mut conditions)
+            let found = (&mut eval, &mut flags, &mut conditions);
+            solve_all(unit, &inputs, &uncertain, measured, found, memo)
         }
     }
     if eval.reason.is_some() {
@@ -596,12 +609,11 @@ fn solve_all(
     inputs: &Inputs,
     uncertain: &UncertainInputs,
     measured: Option<(f64, f64)>,
-    eval: &mut Evaluation,
-    flags: &mut Vec<Flag>,
-    conditions: &mut Vec<Condition>,
+    (eval, flags, conditions): (&mut Evaluation, &mut Vec<Flag>, &mut Vec<Condition>),
+    memo: &mut BubbleMemo,
 ) {
     let sys = &unit.system;
-    let outcome = match sys.solve(inputs, Unknown::Temperature) {
+    let outcome = match sys.solve_with(inputs, Unknown::Temperature, memo) {
         Ok(o) => o,
         Err(e) => {
             eval.reason = Some(e.to_string());

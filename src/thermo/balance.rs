@@ -18,7 +18,7 @@ use std::sync::Arc;
 use super::component::{Component, DEFAULT_WATSON_N};
 use super::enthalpy::{EnthalpyPath, PureEnthalpy, T_REF};
 use super::solver::{Method, RootError, Tolerance, newton_brent};
-use super::vapor::{PsatModel, bubble_point};
+use super::vapor::{BubbleMemo, PsatModel};
 
 /// How a component's enthalpy path is chosen.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -1030,6 +1030,17 @@ impl System {
 
     /// Solve the balance for `unknown` and compute every reported figure.
     pub fn solve(&self, inputs: &Inputs, unknown: Unknown) -> Result<Outcome, SolveError> {
+        self.solve_with(inputs, unknown, &mut BubbleMemo::default())
+    }
+
+    /// [`System::solve`] with the caller's memo of the last bubble point (the same result;
+    /// an effluent whose composition and pressure did not change is not solved again).
+    pub fn solve_with(
+        &self,
+        inputs: &Inputs,
+        unknown: Unknown,
+        memo: &mut BubbleMemo,
+    ) -> Result<Outcome, SolveError> {
         check_feeds_finite(inputs)?;
         let mut streams = self.streams(inputs, true)?;
         // Finite inputs can still overflow on the way (a flow of 1e308 t/h is about 1e309
@@ -1046,7 +1057,7 @@ impl System {
             Unknown::Duty => self.solve_for_duty(inputs, &streams, h_in)?,
             Unknown::Conversion(r) => self.solve_for_conversion(inputs, &mut streams, h_in, r)?,
         };
-        self.outcome(inputs, unknown, streams, h_in, solution)
+        self.outcome(inputs, unknown, streams, h_in, solution, memo)
     }
 
     /// The effluent temperature for a given duty: `H_out(T) = H_in + Q − Q_loss`, solved from
@@ -1143,6 +1154,7 @@ impl System {
         streams: Streams,
         h_in: f64,
         solution: (f64, f64, Option<Method>),
+        memo: &mut BubbleMemo,
     ) -> Result<Outcome, SolveError> {
         let (t_out, duty, method) = solution;
         let at = self.enthalpies_at(t_out);
@@ -1186,7 +1198,7 @@ impl System {
             method,
         };
         self.element_balance(&mut outcome);
-        self.validity(inputs, &mut outcome);
+        self.validity(inputs, &mut outcome, memo);
         Ok(outcome)
     }
 
@@ -1219,7 +1231,7 @@ impl System {
         outcome.elements = elements;
     }
 
-    fn validity(&self, inputs: &Inputs, outcome: &mut Outcome) {
+    fn validity(&self, inputs: &Inputs, outcome: &mut Outcome, memo: &mut BubbleMemo) {
         let mut flags: Vec<Flag> = Vec::new();
         // Lowest and highest temperature each component is present at (feeds and effluent).
         let empty = (f64::INFINITY, f64::NEG_INFINITY);
@@ -1282,7 +1294,7 @@ impl System {
             let lacks = |((x, m), _): &((&f64, &Option<PsatModel>), &Component)| **x > 0.0 && m.is_none();
             let present = || x.iter().zip(&self.psat).zip(&self.components);
             if !present().any(|c| lacks(&c)) {
-                match bubble_point(&self.psat_filled, &x, p) {
+                match memo.bubble_point(&self.psat_filled, &x, p) {
                     Ok((t_b, y)) => {
                         for (i, c) in self.components.iter().enumerate() {
                             if x[i] > 0.0

@@ -14,7 +14,8 @@ use std::fmt::Write as _;
 
 use super::data::{ReportData, state_of};
 use super::svg::{
-    Axis, BAND, Frame, INK, LIMIT, MARK, MEAS, PRED, Plot, SERIES, esc, fmt_num, hour_ticks, hours_of, local,
+    Axis, BAND, FRAMES, Frame, INK, LIMIT, MARK, MEAS, PRED, Plot, SERIES, W, esc, fmt_num, hour_ticks,
+    hours_of, local, push_esc,
 };
 use crate::core::alerts::EventKind;
 use crate::core::monitor::stats::LineFit;
@@ -96,25 +97,22 @@ fn spans(d: &ReportData) -> Vec<(f64, f64, Option<MonitorState>)> {
     out
 }
 
-/// The time axis the in-shift plots share.
+/// The time axis the in-shift plots share, for both drawings.
 struct ShiftAxis {
     hours: Axis,
-    ticks: Vec<(f64, String)>,
+    /// Ticks of the wide drawing and of the narrow one.
+    ticks: [Vec<(f64, String)>; 2],
     label: String,
     spans: Vec<(f64, f64, Option<MonitorState>)>,
-    /// Alerts raised in the shift: (hours, number in the alert table, tooltip).
-    raised: Vec<(f64, usize, String)>,
-    /// The drawing (wide or narrow) its plots are for.
-    frame: Frame,
+    /// Alerts raised in the shift: (hours, label "A<number in the alert table>", tooltip).
+    raised: Vec<(f64, String, String)>,
 }
 
 impl ShiftAxis {
-    fn new(d: &ReportData, frame: Frame) -> ShiftAxis {
-        let (hours, mut ticks) = hour_ticks(&d.shift, &d.tz);
-        if frame == Frame::Narrow && ticks.len() > 6 {
-            // Every other hour: the labels of a narrow plot would touch.
-            ticks = ticks.into_iter().step_by(2).collect();
-        }
+    fn new(d: &ReportData) -> ShiftAxis {
+        let (hours, ticks) = hour_ticks(&d.shift, &d.tz);
+        // Every other hour in the narrow drawing: its labels would touch.
+        let narrow = if ticks.len() > 6 { ticks.iter().step_by(2).cloned().collect() } else { ticks.clone() };
         let raised = d
             .lifecycles
             .iter()
@@ -123,25 +121,35 @@ impl ShiftAxis {
             .map(|(i, (first, _))| {
                 (
                     hours_of(first.time_ms, &d.shift),
-                    i + 1,
+                    format!("A{}", i + 1),
                     format!("{} raised: {}", first.cause.as_str(), first.message),
                 )
             })
             .collect();
         ShiftAxis {
             hours,
-            ticks,
+            ticks: [ticks, narrow],
             label: format!("local time ({})", d.tz.iana_name().unwrap_or("local")),
             spans: spans(d),
             raised,
-            frame,
         }
     }
 
-    /// A plot on this axis: shaded states and gaps, ticks, gaps in lines, alert markers.
-    fn plot(&self, d: &ReportData, id: &str, title: &str, y: Axis, y_label: &str, h: f64) -> Plot {
-        let label = if self.frame == Frame::Narrow { "local time" } else { self.label.as_str() };
-        let mut p = Plot::new(id, title, self.hours, y, y_label, label, h, self.frame);
+    /// A plot on this axis in `frame`: shaded states and gaps, ticks, gaps in lines.
+    #[allow(clippy::too_many_arguments)]
+    fn plot(
+        &self,
+        d: &ReportData,
+        frame: Frame,
+        id: &str,
+        title: &str,
+        y: Axis,
+        y_label: &str,
+        h: f64,
+    ) -> Plot {
+        let narrow = frame == Frame::Narrow;
+        let label = if narrow { "local time" } else { self.label.as_str() };
+        let mut p = Plot::new(id, title, self.hours, y, y_label, label, h, frame);
         for (a, b, s) in &self.spans {
             match s {
                 None => p.shade(*a, *b, "nodata", "no-data"),
@@ -152,19 +160,31 @@ impl ShiftAxis {
                 }
             }
         }
-        p.x_ticks(&self.ticks);
+        p.x_ticks(&self.ticks[usize::from(narrow)]);
         p.gaps_over(1.5 * d.interval_ms as f64 / 3_600_000.0);
         p
     }
 
+    /// The markers of the alerts raised in the shift.
     fn markers(&self, p: &mut Plot) {
-        for (x, n, tip) in &self.raised {
-            p.marker(*x, &format!("A{n}"), tip);
+        for (x, label, tip) in &self.raised {
+            p.marker(*x, label, tip);
         }
     }
 }
 
-/// A figure: heading, legend, the SVG and a caption with the plot's numbers in words.
+/// Both drawings of a plot (wide, then narrow: the page's style shows the one for its
+/// width), from what was computed once for the figure.
+fn both(mut draw: impl FnMut(Frame) -> Plot) -> String {
+    let mut svg = String::with_capacity(16 * 1024);
+    for frame in FRAMES {
+        draw(frame).finish_into(&mut svg);
+    }
+    svg
+}
+
+/// A figure: heading, legend, the SVG (both drawings) and a caption with the plot's numbers
+/// in words.
 struct Figure {
     id: &'static str,
     title: String,
@@ -187,14 +207,8 @@ fn temperature_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
         [r.measured, r.predicted.map(|p| p - 2.0 * u), r.predicted.map(|p| p + 2.0 * u)]
     });
     let sym = d.unit_symbol();
-    let mut p = x.plot(
-        d,
-        "temperature",
-        "Effluent temperature",
-        Axis::of(temps.flatten(), 0.08),
-        &format!("temperature / {sym}"),
-        250.0,
-    );
+    let y = Axis::of(temps.flatten(), 0.08);
+    let y_label = format!("temperature / {sym}");
     let band: Vec<(f64, f64, f64)> = d
         .rows
         .iter()
@@ -203,10 +217,16 @@ fn temperature_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
             Some((hours_of(r.t_ms, &d.shift), r.predicted? - 2.0 * u, r.predicted? + 2.0 * u))
         })
         .collect();
-    p.band(&band);
-    p.line(&series(d, |r| r.predicted), PRED, 1.6, None, "predicted");
-    p.line(&series(d, |r| r.measured), MEAS, 1.4, None, "measured");
-    x.markers(&mut p);
+    let predicted = series(d, |r| r.predicted);
+    let measured = series(d, |r| r.measured);
+    let svg = both(|frame| {
+        let mut p = x.plot(d, frame, "temperature", "Effluent temperature", y, &y_label, 250.0);
+        p.band(&band);
+        p.line(&predicted, PRED, 1.6, None, "predicted");
+        p.line(&measured, MEAS, 1.4, None, "measured");
+        x.markers(&mut p);
+        p
+    });
     Figure {
         id: "temperature",
         title: format!("Effluent temperature, {sym}: predicted from the enthalpy balance and measured"),
@@ -215,7 +235,7 @@ fn temperature_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
             ("±2u of the prediction".into(), BAND.into(), "box"),
             ("measured".into(), MEAS.into(), "line"),
         ],
-        svg: p.finish(),
+        svg,
         caption: String::new(),
     }
 }
@@ -297,13 +317,18 @@ fn residual_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
             ya = Axis { lo: ya.lo.min(l.0), hi: ya.hi.max(l.0) };
         }
     }
-    let mut p = x.plot(d, "residual", "Residual", ya, &format!("residual / {ds}"), 250.0);
-    for (y, color, dash, label, class) in &lines {
-        p.hline(*y, color, dash, label, class);
-    }
-    p.line(&series(d, |r| r.residual), MEAS, 1.1, None, "residual");
-    p.dots(&blocks, INK, 2.6, "block");
-    x.markers(&mut p);
+    let y_label = format!("residual / {ds}");
+    let residuals = series(d, |r| r.residual);
+    let svg = both(|frame| {
+        let mut p = x.plot(d, frame, "residual", "Residual", ya, &y_label, 250.0);
+        for (y, color, dash, label, class) in &lines {
+            p.hline(*y, color, dash, label, class);
+        }
+        p.line(&residuals, MEAS, 1.1, None, "residual");
+        p.dots(&blocks, INK, 2.6, "block");
+        x.markers(&mut p);
+        p
+    });
     let mut legend =
         vec![("interval residual".into(), MEAS.into(), "line"), ("block mean".into(), INK.into(), "dot")];
     if baseline.is_some() {
@@ -315,7 +340,7 @@ fn residual_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
         id: "residual",
         title: format!("Residual (measured − predicted), {ds}, against the monitor's baseline and limits"),
         legend,
-        svg: p.finish(),
+        svg,
         caption,
     }
 }
@@ -341,41 +366,10 @@ fn projection_note(pr: &Projection, narrow: bool) -> String {
     }
 }
 
-/// Heater effectiveness over the trend window, the monitor's trend and its projection.
-fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
-    let limit = d.extra.effectiveness_limit;
-    let monitor = d.extra.monitor.as_ref();
-    let end = d.live_until_ms.unwrap_or(d.shift.end_ms);
-    let window = monitor.map_or(14 * 86_400_000, |m| m.trend_window_ms);
-    let t0 = end - window;
-    let day = |ms: i64| (ms - t0) as f64 / DAY_MS;
-    let points: Vec<(f64, f64)> = monitor
-        .map(|m| m.effectiveness.iter().filter(|p| p.0 > t0).map(|(t, e)| (day(*t), *e)).collect())
-        .unwrap_or_default();
-    let trend = monitor.and_then(|m| m.trend.as_ref());
-    let proj = projection(trend, limit, &d.tz);
-    let mut hi = day(end);
-    if let Some(p) = &proj {
-        hi = hi.max(day(p.range_ms.1).min(day(end) + 60.0)).max(day(p.at_ms).min(day(end) + 60.0));
-    }
-    let mut ys: Vec<f64> = points.iter().map(|p| p.1).collect();
-    ys.push(limit);
-    if let Some(b) = monitor.and_then(|m| m.baseline).and_then(|b| b.eff) {
-        ys.push(b.0);
-    }
-    let ya = Axis::of(ys.into_iter(), 0.08);
-    let mut p = Plot::new(
-        "effectiveness",
-        "Heater effectiveness",
-        Axis { lo: 0.0, hi: hi.max(1.0) },
-        ya,
-        "effectiveness",
-        "local date",
-        250.0,
-        frame,
-    );
-    let span = hi.max(1.0);
-    let narrow = frame == Frame::Narrow;
+/// The day ticks of the effectiveness plot over `span` days from `t0`, labelled in local
+/// dates: every day, or every 2nd, 3rd or 7th for longer spans (twice as far apart in the
+/// narrow drawing).
+fn day_ticks(d: &ReportData, t0: i64, span: f64, narrow: bool) -> Vec<(f64, String)> {
     let step = if narrow { 2 } else { 1 }
         * if span > 40.0 {
             7
@@ -386,34 +380,18 @@ fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
         } else {
             1
         };
-    let ticks: Vec<(f64, String)> = (0..=(span.floor() as i64))
+    (0..=(span.floor() as i64))
         .step_by(step)
         .map(|k| (k as f64, local(t0 + k * 86_400_000, &d.tz, "%m-%d")))
-        .collect();
-    p.x_ticks(&ticks);
-    p.shade(day(d.shift.start_ms), day(end), "#eef3f6", "this-shift");
-    // A gap in the 4-hour means is a gap in the line.
-    p.gaps_over(1.6 * 4.0 * 3_600_000.0 / DAY_MS);
-    let limit_label = if narrow { "limit" } else { "cleaning limit" };
-    p.hline(limit, LIMIT, "6 4", &format!("{limit_label} {:.0} %", limit * 100.0), "cleaning-limit");
-    if let Some((m, _)) = monitor.and_then(|m| m.baseline).and_then(|b| b.eff) {
-        p.hline(m, INK, "none", &format!("baseline {:.1} %", m * 100.0), "baseline");
-    }
-    p.line(&points.iter().map(|(x, y)| (*x, Some(*y))).collect::<Vec<_>>(), PRED, 1.3, None, "effectiveness");
-    p.dots(&points, PRED, 2.0, "eff-point");
+        .collect()
+}
+
+/// The effectiveness plot's caption: what it shows, the monitor's trend and its projection.
+fn effectiveness_caption(trend: Option<&Trend>, proj: Option<&Projection>) -> String {
     let mut caption = String::from(
         "Effectiveness = duty the balance needs to reach the measured temperature ÷ duty reported; 4-hour means of the monitor's steady blocks. ",
     );
     if let Some(t) = trend {
-        let fit_t: Vec<f64> = t.points.iter().map(|p| p.0 as f64 / DAY_MS).collect();
-        let fit_y: Vec<f64> = t.points.iter().map(|p| p.1).collect();
-        if let Some(line) = LineFit::fit(&fit_t, &fit_y) {
-            let from = t.points.first().map_or(t0, |p| p.0);
-            let to = proj.as_ref().map_or(end, |p| p.at_ms.max(end));
-            let at = |ms: i64| line.a + line.b * ms as f64 / DAY_MS;
-            p.gaps_over(f64::INFINITY);
-            p.line(&[(day(from), Some(at(from))), (day(to), Some(at(to)))], INK, 1.6, Some("7 4"), "trend");
-        }
         let _ = write!(
             caption,
             "The monitor's trend ({} model, fitted on {} points): {:+.2} %/day, t = {:.1}. ",
@@ -432,15 +410,91 @@ fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
     } else {
         caption.push_str("No trend: the monitor fits one while the heater is in doubt (a heater alert or an effectiveness chart signal).");
     }
-    if let Some(pr) = &proj {
-        let (a, b) = (day(pr.range_ms.0), day(pr.range_ms.1));
-        if b > a {
-            p.hspan(a, b, limit, LIMIT, "projection-range");
-        }
-        p.vline(day(pr.at_ms), LIMIT, "3 3", "projection");
-        p.note(day(pr.at_ms), limit + 0.09 * (ya.hi - ya.lo), &projection_note(pr, narrow), "projected-date");
+    if let Some(pr) = proj {
         let _ = write!(caption, "At the fitted rate the {}.", pr.text);
     }
+    caption
+}
+
+/// Heater effectiveness over the trend window, the monitor's trend and its projection.
+fn effectiveness_figure(d: &ReportData) -> Figure {
+    let limit = d.extra.effectiveness_limit;
+    let monitor = d.extra.monitor.as_ref();
+    let end = d.live_until_ms.unwrap_or(d.shift.end_ms);
+    let window = monitor.map_or(14 * 86_400_000, |m| m.trend_window_ms);
+    let t0 = end - window;
+    let day = |ms: i64| (ms - t0) as f64 / DAY_MS;
+    let points: Vec<(f64, f64)> = monitor
+        .map(|m| m.effectiveness.iter().filter(|p| p.0 > t0).map(|(t, e)| (day(*t), *e)).collect())
+        .unwrap_or_default();
+    let trend = monitor.and_then(|m| m.trend.as_ref());
+    let proj = projection(trend, limit, &d.tz);
+    let mut hi = day(end);
+    if let Some(p) = &proj {
+        hi = hi.max(day(p.range_ms.1).min(day(end) + 60.0)).max(day(p.at_ms).min(day(end) + 60.0));
+    }
+    let mut ys: Vec<f64> = points.iter().map(|p| p.1).collect();
+    ys.push(limit);
+    let baseline = monitor.and_then(|m| m.baseline).and_then(|b| b.eff);
+    if let Some(b) = baseline {
+        ys.push(b.0);
+    }
+    let ya = Axis::of(ys.into_iter(), 0.08);
+    let span = hi.max(1.0);
+    let line: Vec<(f64, Option<f64>)> = points.iter().map(|(x, y)| (*x, Some(*y))).collect();
+    // The trend's fitted line, from its first point to the projected date (or the end).
+    let fitted = trend.and_then(|t| {
+        let fit_t: Vec<f64> = t.points.iter().map(|p| p.0 as f64 / DAY_MS).collect();
+        let fit_y: Vec<f64> = t.points.iter().map(|p| p.1).collect();
+        let line = LineFit::fit(&fit_t, &fit_y)?;
+        let from = t.points.first().map_or(t0, |p| p.0);
+        let to = proj.as_ref().map_or(end, |p| p.at_ms.max(end));
+        let at = |ms: i64| line.a + line.b * ms as f64 / DAY_MS;
+        Some([(day(from), Some(at(from))), (day(to), Some(at(to)))])
+    });
+    let baseline_label = baseline.map(|(m, _)| (m, format!("baseline {:.1} %", m * 100.0)));
+    let svg = both(|frame| {
+        let narrow = frame == Frame::Narrow;
+        let mut p = Plot::new(
+            "effectiveness",
+            "Heater effectiveness",
+            Axis { lo: 0.0, hi: span },
+            ya,
+            "effectiveness",
+            "local date",
+            250.0,
+            frame,
+        );
+        p.x_ticks(&day_ticks(d, t0, span, narrow));
+        p.shade(day(d.shift.start_ms), day(end), "#eef3f6", "this-shift");
+        // A gap in the 4-hour means is a gap in the line.
+        p.gaps_over(1.6 * 4.0 * 3_600_000.0 / DAY_MS);
+        let limit_label = if narrow { "limit" } else { "cleaning limit" };
+        p.hline(limit, LIMIT, "6 4", &format!("{limit_label} {:.0} %", limit * 100.0), "cleaning-limit");
+        if let Some((m, label)) = &baseline_label {
+            p.hline(*m, INK, "none", label, "baseline");
+        }
+        p.line(&line, PRED, 1.3, None, "effectiveness");
+        p.dots(&points, PRED, 2.0, "eff-point");
+        if let Some(f) = &fitted {
+            p.gaps_over(f64::INFINITY);
+            p.line(f, INK, 1.6, Some("7 4"), "trend");
+        }
+        if let Some(pr) = &proj {
+            let (a, b) = (day(pr.range_ms.0), day(pr.range_ms.1));
+            if b > a {
+                p.hspan(a, b, limit, LIMIT, "projection-range");
+            }
+            p.vline(day(pr.at_ms), LIMIT, "3 3", "projection");
+            p.note(
+                day(pr.at_ms),
+                limit + 0.09 * (ya.hi - ya.lo),
+                &projection_note(pr, narrow),
+                "projected-date",
+            );
+        }
+        p
+    });
     Figure {
         id: "effectiveness",
         title: "Heater effectiveness over the trend window, the monitor's trend and its projection".into(),
@@ -450,8 +504,8 @@ fn effectiveness_figure(d: &ReportData, frame: Frame) -> Figure {
             ("cleaning limit".into(), LIMIT.into(), "dash"),
             ("this shift".into(), "#eef3f6".into(), "box"),
         ],
-        svg: p.finish(),
-        caption,
+        svg,
+        caption: effectiveness_caption(trend, proj.as_ref()),
     }
 }
 
@@ -460,15 +514,22 @@ fn conversion_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
     let design = d.extra.design_conversion;
     let base = d.extra.monitor.as_ref().and_then(|m| m.baseline).and_then(|b| b.conv).map(|c| c.0);
     let vals = d.rows.iter().filter_map(|r| r.conversion).chain(design).chain(base);
-    let mut p = x.plot(d, "conversion", "Apparent conversion", Axis::of(vals, 0.1), "conversion", 220.0);
-    if let Some(c) = design {
-        p.hline(c, MARK, "6 4", &format!("design {}", fmt_num(c, 3)), "design");
-    }
-    if let Some(c) = base {
-        p.hline(c, INK, "none", &format!("baseline {}", fmt_num(c, 3)), "baseline");
-    }
-    p.line(&series(d, |r| r.conversion), PRED, 1.3, None, "apparent conversion");
-    x.markers(&mut p);
+    let y = Axis::of(vals, 0.1);
+    let design_label = design.map(|c| format!("design {}", fmt_num(c, 3)));
+    let base_label = base.map(|c| format!("baseline {}", fmt_num(c, 3)));
+    let conversions = series(d, |r| r.conversion);
+    let svg = both(|frame| {
+        let mut p = x.plot(d, frame, "conversion", "Apparent conversion", y, "conversion", 220.0);
+        if let (Some(c), Some(label)) = (design, &design_label) {
+            p.hline(c, MARK, "6 4", label, "design");
+        }
+        if let (Some(c), Some(label)) = (base, &base_label) {
+            p.hline(c, INK, "none", label, "baseline");
+        }
+        p.line(&conversions, PRED, 1.3, None, "apparent conversion");
+        x.markers(&mut p);
+        p
+    });
     let mut caption = String::from(
         "The conversion of the key reactant that makes the balance reproduce the measured temperature. ",
     );
@@ -493,15 +554,21 @@ fn conversion_figure(d: &ReportData, x: &ShiftAxis) -> Figure {
             ("design".into(), MARK.into(), "dash"),
             ("baseline".into(), INK.into(), "line"),
         ],
-        svg: p.finish(),
+        svg,
         caption,
     }
 }
+
+/// A line's points: (x, y), `None` where there is no value.
+type Points = Vec<(f64, Option<f64>)>;
 
 /// The inputs of the balance, one plot per group and unit (duty, feed flows, feed
 /// temperatures).
 fn input_figures(d: &ReportData, x: &ShiftAxis) -> Vec<Figure> {
     let inputs = &d.extra.inputs;
+    if inputs.times.is_empty() {
+        return Vec::new();
+    }
     let mut groups: Vec<(String, String, Vec<usize>)> = Vec::new();
     for (i, s) in inputs.series.iter().enumerate() {
         match groups.iter_mut().find(|g| g.0 == s.group && g.1 == s.unit) {
@@ -509,38 +576,49 @@ fn input_figures(d: &ReportData, x: &ShiftAxis) -> Vec<Figure> {
             None => groups.push((s.group.clone(), s.unit.clone(), vec![i])),
         }
     }
+    let hours: Vec<f64> = inputs.times.iter().map(|t| hours_of(*t, &d.shift)).collect();
     let ids = ["input-duty", "input-flow", "input-temperature", "input-4", "input-5", "input-6"];
+    let empty = Vec::new();
     groups
         .iter()
         .enumerate()
-        .filter(|_| !inputs.times.is_empty())
         .map(|(gi, (group, unit, members))| {
             let vals = members
                 .iter()
                 .filter_map(|m| inputs.values.get(*m))
                 .flat_map(|v| v.iter().filter_map(|x| x.map(f64::from)));
+            let y = Axis::of(vals, 0.1);
             let id = ids[gi.min(ids.len() - 1)];
             let what = match group.as_str() {
                 "duty" => "Heater duty",
                 "flow" => "Feed flows",
                 _ => "Feed temperatures",
             };
-            let mut p = x.plot(d, id, what, Axis::of(vals, 0.1), unit, 170.0);
-            let mut legend = Vec::new();
-            for (k, m) in members.iter().enumerate() {
-                let color = SERIES[k % SERIES.len()];
-                let empty = Vec::new();
-                let values = inputs.values.get(*m).unwrap_or(&empty);
-                let pts: Vec<(f64, Option<f64>)> = inputs
-                    .times
-                    .iter()
-                    .zip(values)
-                    .map(|(t, v)| (hours_of(*t, &d.shift), v.map(f64::from)))
-                    .collect();
-                p.line(&pts, color, 1.3, None, &inputs.series[*m].label);
-                legend.push((inputs.series[*m].label.clone(), color.to_string(), "line"));
+            let members: Vec<(&str, &str, Points)> = members
+                .iter()
+                .enumerate()
+                .map(|(k, m)| {
+                    let values = inputs.values.get(*m).unwrap_or(&empty);
+                    let pts = hours.iter().zip(values).map(|(h, v)| (*h, v.map(f64::from))).collect();
+                    (SERIES[k % SERIES.len()], inputs.series[*m].label.as_str(), pts)
+                })
+                .collect();
+            let svg = both(|frame| {
+                let mut p = x.plot(d, frame, id, what, y, unit, 170.0);
+                for (color, label, pts) in &members {
+                    p.line(pts, color, 1.3, None, label);
+                }
+                p
+            });
+            let legend =
+                members.iter().map(|(color, label, _)| ((*label).to_string(), (*color).to_string(), "line"));
+            Figure {
+                id,
+                title: format!("{what}, {unit}"),
+                legend: legend.collect(),
+                svg,
+                caption: String::new(),
             }
-            Figure { id, title: format!("{what}, {unit}"), legend, svg: p.finish(), caption: String::new() }
         })
         .collect()
 }
@@ -631,7 +709,7 @@ pub fn render_html(d: &ReportData) -> String {
         && let Ok(json) = serde_json::to_string(&d.extra)
     {
         s.push_str(super::data::RECORD_OPEN);
-        s.push_str(&esc(&json));
+        push_esc(&mut s, &json);
         s.push_str("</template>");
     }
     s.push_str("</body></html>");
@@ -721,23 +799,28 @@ fn write_headline(s: &mut String, d: &ReportData, h: &Headline) {
     s.push_str("</section>");
 }
 
-fn legend_html(items: &[(String, String, &'static str)]) -> String {
-    let mut s = String::from("<div class=\"legend\">");
+fn legend_html(s: &mut String, items: &[(String, String, &'static str)]) {
+    s.push_str("<div class=\"legend\">");
     for (name, color, kind) in items {
-        let style = match *kind {
-            "box" | "dot" => format!("background:{color}"),
-            _ => format!("border-color:{color}"),
+        let what = match *kind {
+            "box" | "dot" => "background:",
+            _ => "border-color:",
         };
-        let _ = write!(s, "<span><i class=\"{kind}\" style=\"{style}\"></i>{}</span>", esc(name));
+        W(s).s("<span><i class=\"")
+            .s(kind)
+            .s("\" style=\"")
+            .s(what)
+            .s(color)
+            .s("\"></i>")
+            .e(name)
+            .s("</span>");
     }
     s.push_str("</div>");
-    s
 }
 
 /// The plots, the inputs and the state legend.
 fn write_plots(s: &mut String, d: &ReportData) {
-    let x = ShiftAxis::new(d, Frame::Wide);
-    let xn = ShiftAxis::new(d, Frame::Narrow);
+    let x = ShiftAxis::new(d);
     s.push_str("<section id=\"plots\"><h2>Trends</h2><div class=\"states\">monitor state shading: <span style=\"background:#fff\">watching</span>");
     for st in [MonitorState::Learning, MonitorState::Unsteady, MonitorState::Settling, MonitorState::Paused] {
         if let Some((fill, name)) = state_shade(st) {
@@ -745,34 +828,17 @@ fn write_plots(s: &mut String, d: &ReportData) {
         }
     }
     s.push_str("<span style=\"background:repeating-linear-gradient(45deg,#f4f4f4 0 4px,#c8c8c8 4px 6px)\">no data</span> &middot; A1, A2 …: alerts raised (numbers of the alert table)</div>");
-    // Each figure in both drawings, the page's style shows the one for its width.
-    let both = |wide: Vec<Figure>, narrow: Vec<Figure>| -> Vec<Figure> {
-        wide.into_iter()
-            .zip(narrow)
-            .map(|(mut w, n)| {
-                w.svg.push_str(&n.svg);
-                w
-            })
-            .collect()
-    };
-    let figures = both(
-        vec![
-            temperature_figure(d, &x),
-            residual_figure(d, &x),
-            effectiveness_figure(d, Frame::Wide),
-            conversion_figure(d, &x),
-        ],
-        vec![
-            temperature_figure(d, &xn),
-            residual_figure(d, &xn),
-            effectiveness_figure(d, Frame::Narrow),
-            conversion_figure(d, &xn),
-        ],
-    );
-    let inputs = both(input_figures(d, &x), input_figures(d, &xn));
+    // Each figure computed once, drawn in both frames (see `both`).
+    let figures = [
+        temperature_figure(d, &x),
+        residual_figure(d, &x),
+        effectiveness_figure(d),
+        conversion_figure(d, &x),
+    ];
     for f in &figures {
         write_figure(s, f);
     }
+    let inputs = input_figures(d, &x);
     s.push_str("<h2 id=\"inputs\">Inputs of the balance</h2>");
     if inputs.is_empty() {
         s.push_str(
@@ -786,16 +852,12 @@ fn write_plots(s: &mut String, d: &ReportData) {
 }
 
 fn write_figure(s: &mut String, f: &Figure) {
-    let _ = write!(
-        s,
-        "<figure id=\"plot-{}\"><h3>{}</h3>{}<div class=\"plotwrap\">{}</div>",
-        f.id,
-        esc(&f.title),
-        legend_html(&f.legend),
-        f.svg
-    );
+    s.reserve(f.svg.len() + 1024);
+    W(s).s("<figure id=\"plot-").s(f.id).s("\"><h3>").e(&f.title).s("</h3>");
+    legend_html(s, &f.legend);
+    W(s).s("<div class=\"plotwrap\">").s(&f.svg).s("</div>");
     if !f.caption.is_empty() {
-        let _ = write!(s, "<figcaption>{}</figcaption>", esc(&f.caption));
+        W(s).s("<figcaption>").e(&f.caption).s("</figcaption>");
     }
     s.push_str("</figure>");
 }

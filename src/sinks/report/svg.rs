@@ -12,7 +12,56 @@ use crate::core::calendar::Shift;
 
 /// Text escaped for HTML and SVG (element content and attribute values).
 pub(super) fn esc(s: &str) -> String {
-    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
+    let mut out = String::with_capacity(s.len() + 8);
+    push_esc(&mut out, s);
+    out
+}
+
+/// Append `s` escaped for HTML and SVG (`&`, `<`, `>`, `"`), in one pass.
+pub(super) fn push_esc(out: &mut String, s: &str) {
+    let mut from = 0;
+    for (i, b) in s.bytes().enumerate() {
+        let rep = match b {
+            b'&' => "&amp;",
+            b'<' => "&lt;",
+            b'>' => "&gt;",
+            b'"' => "&quot;",
+            _ => continue,
+        };
+        out.push_str(&s[from..i]);
+        out.push_str(rep);
+        from = i + 1;
+    }
+    out.push_str(&s[from..]);
+}
+
+/// Append `v` as `{v}` (`Display`) writes it: whole numbers by integer arithmetic, others
+/// through the formatter (the plots' sizes, margins and widths are mostly whole).
+pub(super) fn push_num(out: &mut String, v: f64) {
+    if v.is_finite() && v == v.trunc() && v.abs() < 1e15 && !(v == 0.0 && v.is_sign_negative()) {
+        push_int(out, v as i64);
+    } else {
+        let _ = write!(out, "{v}");
+    }
+}
+
+/// Append an integer in decimal.
+pub(super) fn push_int(out: &mut String, v: i64) {
+    let mut buf = [0u8; 20];
+    let mut i = buf.len();
+    let mut a = v.unsigned_abs();
+    loop {
+        i -= 1;
+        buf[i] = b'0' + (a % 10) as u8;
+        a /= 10;
+        if a == 0 {
+            break;
+        }
+    }
+    if v < 0 {
+        out.push('-');
+    }
+    out.push_str(std::str::from_utf8(&buf[i..]).unwrap_or("0"));
 }
 
 // Colours: ink (text and axes), grid, predicted, uncertainty band, measured, alert marks.
@@ -91,9 +140,17 @@ pub(super) fn fmt_num(v: f64, decimals: usize) -> String {
     if t < 0 {
         s.push('−');
     }
-    let _ = write!(s, "{}", a / p);
+    push_int(&mut s, (a / p) as i64);
     if d > 0 {
-        let _ = write!(s, ".{:0d$}", a % p);
+        s.push('.');
+        // The fraction's digits, zero-padded to `d`.
+        let mut digits = [b'0'; 9];
+        let mut f = a % p;
+        for k in (0..d).rev() {
+            digits[k] = b'0' + (f % 10) as u8;
+            f /= 10;
+        }
+        s.push_str(std::str::from_utf8(&digits[..d]).unwrap_or(""));
     }
     s
 }
@@ -133,16 +190,6 @@ fn coord(v: f64, buf: &mut [u8; 24]) -> &str {
     std::str::from_utf8(&buf[i..]).unwrap_or("0.0")
 }
 
-/// A coordinate written to one decimal (integer arithmetic, see [`push_coord`]).
-struct C(f64);
-
-impl std::fmt::Display for C {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        let mut buf = [0u8; 24];
-        f.write_str(coord(self.0, &mut buf))
-    }
-}
-
 /// Append the point "x,y ".
 fn push_point(out: &mut String, x: f64, y: f64) {
     push_coord(out, x);
@@ -173,6 +220,36 @@ fn simplify(p: &[(f64, f64)], out: &mut Vec<(f64, f64)>) {
     out.push(p[n - 1]);
 }
 
+/// Appends to an SVG being written: text, escaped text, numbers as `Display` writes them and
+/// coordinates to one decimal, without the formatting machinery (a report writes thousands).
+pub(super) struct W<'a>(pub(super) &'a mut String);
+
+impl W<'_> {
+    /// Text as it is.
+    pub(super) fn s(&mut self, s: &str) -> &mut Self {
+        self.0.push_str(s);
+        self
+    }
+
+    /// Text escaped for HTML and SVG.
+    pub(super) fn e(&mut self, s: &str) -> &mut Self {
+        push_esc(self.0, s);
+        self
+    }
+
+    /// A number as `{v}` writes it.
+    pub(super) fn n(&mut self, v: f64) -> &mut Self {
+        push_num(self.0, v);
+        self
+    }
+
+    /// A coordinate to one decimal.
+    pub(super) fn c(&mut self, v: f64) -> &mut Self {
+        push_coord(self.0, v);
+        self
+    }
+}
+
 /// A plot being drawn: its frame (size and margins), its axes and the SVG written so far.
 pub(super) struct Plot {
     id: String,
@@ -186,10 +263,15 @@ pub(super) struct Plot {
     y: Axis,
     back: String,
     svg: String,
+    /// ` clip-path="url(#clip-<id>)"`, written on everything clipped to the frame.
+    clip: String,
     /// Labels of limit lines: (y px, colour, text), placed in the right margin at the end.
     labels: Vec<(f64, String, String)>,
     /// Largest x step drawn as one line (longer is a gap).
     max_gap: f64,
+    /// Scratch buffers of the lines: a segment's points and those kept by `simplify`.
+    seg: Vec<(f64, f64)>,
+    kept: Vec<(f64, f64)>,
 }
 
 /// The two drawings of every plot: wide (screens and paper) and narrow (phones; the page's
@@ -201,6 +283,9 @@ pub(super) enum Frame {
     /// 420 units wide, for viewports below 600 px.
     Narrow,
 }
+
+/// Both drawings, in the order the page carries them.
+pub(super) const FRAMES: [Frame; 2] = [Frame::Wide, Frame::Narrow];
 
 impl Plot {
     /// A plot with the id `id` (unique in the page for its frame) and `title` (for screen
@@ -217,8 +302,11 @@ impl Plot {
         frame: Frame,
     ) -> Plot {
         let narrow = frame == Frame::Narrow;
+        let id = if narrow { format!("{id}-n") } else { id.to_string() };
+        let mut clip = String::with_capacity(id.len() + 24);
+        W(&mut clip).s(r#" clip-path="url(#clip-"#).s(&id).s(r#")""#);
         let mut p = Plot {
-            id: if narrow { format!("{id}-n") } else { id.to_string() },
+            id,
             w: if narrow { 420.0 } else { 720.0 },
             h,
             left: if narrow { 54.0 } else { 62.0 },
@@ -227,24 +315,46 @@ impl Plot {
             bottom: 42.0,
             x,
             y,
-            back: String::new(),
-            svg: String::new(),
+            back: String::with_capacity(2048),
+            svg: String::with_capacity(8192),
+            clip,
             labels: Vec::new(),
             max_gap: f64::INFINITY,
+            seg: Vec::new(),
+            kept: Vec::new(),
         };
-        let _ = write!(
-            p.back,
-            r##"<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h}" role="img" aria-label="{t}" class="plot {fc}" id="svg-{id}"><title>{t}</title><defs><clipPath id="clip-{id}"><rect x="{l}" y="{tp}" width="{cw}" height="{ch}"/></clipPath><pattern id="nodata-{id}" width="8" height="8" patternUnits="userSpaceOnUse" patternTransform="rotate(45)"><rect width="8" height="8" fill="#f4f4f4"/><line x1="0" y1="0" x2="0" y2="8" stroke="#c8c8c8" stroke-width="2"/></pattern></defs><rect x="0" y="0" width="{w}" height="{h}" fill="white"/>"##,
-            w = p.w,
-            h = p.h,
-            l = p.left,
-            tp = p.top,
-            cw = p.w - p.left - p.right,
-            ch = p.h - p.top - p.bottom,
-            t = esc(title),
-            id = p.id,
-            fc = if narrow { "narrow" } else { "wide" }
-        );
+        let (w, h, l, tp) = (p.w, p.h, p.left, p.top);
+        let (cw, ch) = (p.w - p.left - p.right, p.h - p.top - p.bottom);
+        W(&mut p.back)
+            .s(r#"<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 "#)
+            .n(w)
+            .s(" ")
+            .n(h)
+            .s(r#"" role="img" aria-label=""#)
+            .e(title)
+            .s(r#"" class="plot "#)
+            .s(if narrow { "narrow" } else { "wide" })
+            .s(r#"" id="svg-"#)
+            .s(&p.id)
+            .s(r#""><title>"#)
+            .e(title)
+            .s(r#"</title><defs><clipPath id="clip-"#)
+            .s(&p.id)
+            .s(r#""><rect x=""#)
+            .n(l)
+            .s(r#"" y=""#)
+            .n(tp)
+            .s(r#"" width=""#)
+            .n(cw)
+            .s(r#"" height=""#)
+            .n(ch)
+            .s(r#""/></clipPath><pattern id="nodata-"#)
+            .s(&p.id)
+            .s(r##"" width="8" height="8" patternUnits="userSpaceOnUse" patternTransform="rotate(45)"><rect width="8" height="8" fill="#f4f4f4"/><line x1="0" y1="0" x2="0" y2="8" stroke="#c8c8c8" stroke-width="2"/></pattern></defs><rect x="0" y="0" width=""##)
+            .n(w)
+            .s(r#"" height=""#)
+            .n(h)
+            .s(r#"" fill="white"/>"#);
         p.axes(y_label, x_label);
         p
     }
@@ -254,25 +364,76 @@ impl Plot {
         let (ticks, dec) = nice_ticks(&self.y, if self.h < 200.0 { 3 } else { 5 });
         for tv in ticks {
             let yv = self.py(tv);
-            let y = C(yv);
-            let _ = write!(
-                self.svg,
-                r#"<line x1="{x0}" y1="{y}" x2="{x1}" y2="{y}" stroke="{GRID}"/><text x="{}" y="{}" font-size="12" text-anchor="end" fill="{INK}">{}</text>"#,
-                C(x0 - 6.0),
-                C(yv + 4.0),
-                fmt_num(tv, dec)
-            );
+            W(&mut self.svg)
+                .s(r#"<line x1=""#)
+                .n(x0)
+                .s(r#"" y1=""#)
+                .c(yv)
+                .s(r#"" x2=""#)
+                .n(x1)
+                .s(r#"" y2=""#)
+                .c(yv)
+                .s(r#"" stroke=""#)
+                .s(GRID)
+                .s(r#""/><text x=""#)
+                .c(x0 - 6.0)
+                .s(r#"" y=""#)
+                .c(yv + 4.0)
+                .s(r#"" font-size="12" text-anchor="end" fill=""#)
+                .s(INK)
+                .s(r#"">"#)
+                .s(&fmt_num(tv, dec))
+                .s("</text>");
         }
-        let _ = write!(
-            self.svg,
-            r#"<line x1="{x0}" y1="{y1}" x2="{x1}" y2="{y1}" stroke="{INK}"/><line x1="{x0}" y1="{y0}" x2="{x0}" y2="{y1}" stroke="{INK}"/><line x1="{x1}" y1="{y0}" x2="{x1}" y2="{y1}" stroke="{GRID}"/><text x="13" y="{}" font-size="12" fill="{INK}" transform="rotate(-90 13 {})" text-anchor="middle">{}</text><text x="{}" y="{}" font-size="12" fill="{INK}" text-anchor="middle">{}</text>"#,
-            C((y0 + y1) / 2.0),
-            C((y0 + y1) / 2.0),
-            esc(y_label),
-            C((x0 + x1) / 2.0),
-            C(self.h - 6.0),
-            esc(x_label)
-        );
+        let (ym, xm) = ((y0 + y1) / 2.0, (x0 + x1) / 2.0);
+        W(&mut self.svg)
+            .s(r#"<line x1=""#)
+            .n(x0)
+            .s(r#"" y1=""#)
+            .n(y1)
+            .s(r#"" x2=""#)
+            .n(x1)
+            .s(r#"" y2=""#)
+            .n(y1)
+            .s(r#"" stroke=""#)
+            .s(INK)
+            .s(r#""/><line x1=""#)
+            .n(x0)
+            .s(r#"" y1=""#)
+            .n(y0)
+            .s(r#"" x2=""#)
+            .n(x0)
+            .s(r#"" y2=""#)
+            .n(y1)
+            .s(r#"" stroke=""#)
+            .s(INK)
+            .s(r#""/><line x1=""#)
+            .n(x1)
+            .s(r#"" y1=""#)
+            .n(y0)
+            .s(r#"" x2=""#)
+            .n(x1)
+            .s(r#"" y2=""#)
+            .n(y1)
+            .s(r#"" stroke=""#)
+            .s(GRID)
+            .s(r#""/><text x="13" y=""#)
+            .c(ym)
+            .s(r#"" font-size="12" fill=""#)
+            .s(INK)
+            .s(r#"" transform="rotate(-90 13 "#)
+            .c(ym)
+            .s(r#")" text-anchor="middle">"#)
+            .e(y_label)
+            .s(r#"</text><text x=""#)
+            .c(xm)
+            .s(r#"" y=""#)
+            .c(self.h - 6.0)
+            .s(r#"" font-size="12" fill=""#)
+            .s(INK)
+            .s(r#"" text-anchor="middle">"#)
+            .e(x_label)
+            .s("</text>");
     }
 
     /// Lines are broken where successive x values are more than `gap` apart.
@@ -288,10 +449,6 @@ impl Plot {
         self.h - self.bottom - (v - self.y.lo) / (self.y.hi - self.y.lo) * (self.h - self.top - self.bottom)
     }
 
-    fn clip(&self) -> String {
-        format!(r#" clip-path="url(#clip-{})""#, self.id)
-    }
-
     /// Tick marks and labels on the x axis.
     pub(super) fn x_ticks(&mut self, ticks: &[(f64, String)]) {
         let y1 = self.h - self.bottom;
@@ -300,14 +457,26 @@ impl Plot {
                 continue;
             }
             let x = self.px(*v);
-            let _ = write!(
-                self.svg,
-                r#"<line x1="{x_c}" y1="{y1}" x2="{x_c}" y2="{}" stroke="{INK}"/><text x="{x_c}" y="{}" font-size="12" text-anchor="middle" fill="{INK}">{}</text>"#,
-                C(y1 + 4.0),
-                C(y1 + 17.0),
-                esc(label),
-                x_c = C(x)
-            );
+            W(&mut self.svg)
+                .s(r#"<line x1=""#)
+                .c(x)
+                .s(r#"" y1=""#)
+                .n(y1)
+                .s(r#"" x2=""#)
+                .c(x)
+                .s(r#"" y2=""#)
+                .c(y1 + 4.0)
+                .s(r#"" stroke=""#)
+                .s(INK)
+                .s(r#""/><text x=""#)
+                .c(x)
+                .s(r#"" y=""#)
+                .c(y1 + 17.0)
+                .s(r#"" font-size="12" text-anchor="middle" fill=""#)
+                .s(INK)
+                .s(r#"">"#)
+                .e(label)
+                .s("</text>");
         }
     }
 
@@ -317,15 +486,25 @@ impl Plot {
         if b <= a {
             return;
         }
-        let fill = if fill == "nodata" { format!("url(#nodata-{})", self.id) } else { fill.to_string() };
-        let _ = write!(
-            self.back,
-            r#"<rect class="shade {class}" x="{a_c}" y="{}" width="{}" height="{}" fill="{fill}"/>"#,
-            self.top,
-            C(b - a),
-            self.h - self.top - self.bottom,
-            a_c = C(a)
-        );
+        let (top, ch) = (self.top, self.h - self.top - self.bottom);
+        let mut w = W(&mut self.back);
+        w.s(r#"<rect class="shade "#)
+            .s(class)
+            .s(r#"" x=""#)
+            .c(a)
+            .s(r#"" y=""#)
+            .n(top)
+            .s(r#"" width=""#)
+            .c(b - a)
+            .s(r#"" height=""#)
+            .n(ch)
+            .s(r#"" fill=""#);
+        if fill == "nodata" {
+            w.s("url(#nodata-").s(&self.id).s(")");
+        } else {
+            w.s(fill);
+        }
+        w.s(r#""/>"#);
     }
 
     /// Polyline segments, broken at gaps (None, or a step longer than the gap).
@@ -337,54 +516,74 @@ impl Plot {
         dash: Option<&str>,
         name: &str,
     ) {
-        let mut seg: Vec<(f64, f64)> = Vec::with_capacity(pts.len());
-        let mut kept: Vec<(f64, f64)> = Vec::with_capacity(pts.len());
+        // What every segment of the line starts with, and its dots' attributes.
+        let mut head = String::with_capacity(160);
+        let mut w = W(&mut head);
+        w.s(r#"<polyline class="series" data-series=""#)
+            .e(name)
+            .s(r#"" fill="none" stroke=""#)
+            .s(color)
+            .s(r#"" stroke-width=""#)
+            .n(width)
+            .s("\"");
+        if let Some(d) = dash {
+            w.s(r#" stroke-dasharray=""#).s(d).s("\"");
+        }
+        w.s(&self.clip).s(r#" points=""#);
+        let mut dot = String::with_capacity(64);
+        W(&mut dot).s(r#"" r="1.8" fill=""#).s(color).s("\"").s(&self.clip).s("/>");
+        let mut seg = std::mem::take(&mut self.seg);
+        let mut kept = std::mem::take(&mut self.kept);
+        seg.clear();
         let mut last_x = f64::NEG_INFINITY;
-        let clip = self.clip();
-        let dash = dash.map_or(String::new(), |d| format!(r#" stroke-dasharray="{d}""#));
-        let name = esc(name);
-        let flush = |seg: &mut Vec<(f64, f64)>, kept: &mut Vec<(f64, f64)>, svg: &mut String| {
-            if seg.len() > 1 {
-                let _ = write!(
-                    svg,
-                    r#"<polyline class="series" data-series="{name}" fill="none" stroke="{color}" stroke-width="{width}"{dash}{clip} points=""#
-                );
-                simplify(seg, kept);
-                for (x, y) in kept.iter() {
-                    push_point(svg, *x, *y);
-                }
-                svg.pop();
-                svg.push_str("\"/>");
-            } else if let Some((x, y)) = seg.first() {
-                // A lone point between gaps is drawn as a dot.
-                let _ =
-                    write!(svg, r#"<circle cx="{}" cy="{}" r="1.8" fill="{color}"{clip}/>"#, C(*x), C(*y));
-            }
-            seg.clear();
-        };
         for (x, y) in pts {
             if x - last_x > self.max_gap {
-                flush(&mut seg, &mut kept, &mut self.svg);
+                self.flush_segment(&mut seg, &mut kept, &head, &dot);
             }
             last_x = *x;
             match y {
                 Some(y) if y.is_finite() => seg.push((self.px(*x), self.py(*y))),
-                _ => flush(&mut seg, &mut kept, &mut self.svg),
+                _ => self.flush_segment(&mut seg, &mut kept, &head, &dot),
             }
         }
-        flush(&mut seg, &mut kept, &mut self.svg);
+        self.flush_segment(&mut seg, &mut kept, &head, &dot);
+        self.seg = seg;
+        self.kept = kept;
+    }
+
+    /// Write a segment of a line (a lone point between gaps as a dot) and empty it.
+    fn flush_segment(
+        &mut self,
+        seg: &mut Vec<(f64, f64)>,
+        kept: &mut Vec<(f64, f64)>,
+        head: &str,
+        dot: &str,
+    ) {
+        if seg.len() > 1 {
+            self.svg.push_str(head);
+            simplify(seg, kept);
+            self.svg.reserve(kept.len() * 12);
+            for (x, y) in kept.iter() {
+                push_point(&mut self.svg, *x, *y);
+            }
+            self.svg.pop();
+            self.svg.push_str("\"/>");
+        } else if let Some((x, y)) = seg.first() {
+            // A lone point between gaps is drawn as a dot.
+            W(&mut self.svg).s(r#"<circle cx=""#).c(*x).s(r#"" cy=""#).c(*y).s(dot);
+        }
+        seg.clear();
     }
 
     /// Dots at the points.
     pub(super) fn dots(&mut self, pts: &[(f64, f64)], color: &str, r: f64, class: &str) {
-        let clip = self.clip();
+        let mut head = String::with_capacity(32);
+        W(&mut head).s(r#"<circle class=""#).s(class).s(r#"" cx=""#);
+        let mut tail = String::with_capacity(64);
+        W(&mut tail).s(r#"" r=""#).n(r).s(r#"" fill=""#).s(color).s("\"").s(&self.clip).s("/>");
         for (x, y) in pts {
-            let _ = write!(
-                self.svg,
-                r#"<circle class="{class}" cx="{}" cy="{}" r="{r}" fill="{color}"{clip}/>"#,
-                C(self.px(*x)),
-                C(self.py(*y))
-            );
+            let (px, py) = (self.px(*x), self.py(*y));
+            W(&mut self.svg).s(&head).c(px).s(r#"" cy=""#).c(py).s(&tail);
         }
     }
 
@@ -403,19 +602,30 @@ impl Plot {
         if pts.len() < 2 {
             return;
         }
-        let lo: Vec<(f64, f64)> = pts.iter().map(|(x, lo, _)| (self.px(*x), self.py(*lo))).collect();
-        let hi: Vec<(f64, f64)> = pts.iter().rev().map(|(x, _, hi)| (self.px(*x), self.py(*hi))).collect();
-        let clip = self.clip();
-        let _ = write!(self.svg, r#"<polygon class="band" fill="{BAND}" stroke="none"{clip} points=""#);
-        let mut kept = Vec::with_capacity(pts.len());
-        for edge in [&lo, &hi] {
-            simplify(edge, &mut kept);
+        let mut edge = std::mem::take(&mut self.seg);
+        let mut kept = std::mem::take(&mut self.kept);
+        W(&mut self.svg)
+            .s(r#"<polygon class="band" fill=""#)
+            .s(BAND)
+            .s(r#"" stroke="none""#)
+            .s(&self.clip)
+            .s(r#" points=""#);
+        for upper in [false, true] {
+            edge.clear();
+            if upper {
+                edge.extend(pts.iter().rev().map(|(x, _, hi)| (self.px(*x), self.py(*hi))));
+            } else {
+                edge.extend(pts.iter().map(|(x, lo, _)| (self.px(*x), self.py(*lo))));
+            }
+            simplify(&edge, &mut kept);
             for (x, y) in &kept {
                 push_point(&mut self.svg, *x, *y);
             }
         }
         self.svg.pop();
         self.svg.push_str("\"/>");
+        self.seg = edge;
+        self.kept = kept;
     }
 
     /// A horizontal limit line across the frame, labelled in the right margin.
@@ -424,13 +634,24 @@ impl Plot {
         if !(self.top - 0.5..=self.h - self.bottom + 0.5).contains(&yy) {
             return;
         }
-        let _ = write!(
-            self.svg,
-            r#"<line class="limit {class}" data-value="{y}" x1="{}" y1="{yy_c}" x2="{}" y2="{yy_c}" stroke="{color}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
-            self.left,
-            self.w - self.right,
-            yy_c = C(yy)
-        );
+        W(&mut self.svg)
+            .s(r#"<line class="limit "#)
+            .s(class)
+            .s(r#"" data-value=""#)
+            .n(y)
+            .s(r#"" x1=""#)
+            .n(self.left)
+            .s(r#"" y1=""#)
+            .c(yy)
+            .s(r#"" x2=""#)
+            .n(self.w - self.right)
+            .s(r#"" y2=""#)
+            .c(yy)
+            .s(r#"" stroke=""#)
+            .s(color)
+            .s(r#"" stroke-width="1.3" stroke-dasharray=""#)
+            .s(dash)
+            .s(r#""/>"#);
         self.labels.push((yy, color.to_string(), label.to_string()));
     }
 
@@ -440,26 +661,40 @@ impl Plot {
         if xx < self.left - 0.5 || xx > self.w - self.right + 0.5 {
             return;
         }
-        let _ = write!(
-            self.svg,
-            r#"<line class="{class}" x1="{xx_c}" y1="{}" x2="{xx_c}" y2="{}" stroke="{color}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
-            self.top,
-            self.h - self.bottom,
-            xx_c = C(xx)
-        );
+        W(&mut self.svg)
+            .s(r#"<line class=""#)
+            .s(class)
+            .s(r#"" x1=""#)
+            .c(xx)
+            .s(r#"" y1=""#)
+            .n(self.top)
+            .s(r#"" x2=""#)
+            .c(xx)
+            .s(r#"" y2=""#)
+            .n(self.h - self.bottom)
+            .s(r#"" stroke=""#)
+            .s(color)
+            .s(r#"" stroke-width="1.3" stroke-dasharray=""#)
+            .s(dash)
+            .s(r#""/>"#);
     }
 
     /// A thick translucent bar from x0 to x1 at y (a range).
     pub(super) fn hspan(&mut self, x0: f64, x1: f64, y: f64, color: &str, class: &str) {
         let (a, b) = (self.px(x0).max(self.left), self.px(x1).min(self.w - self.right));
         let yy = self.py(y);
-        let _ = write!(
-            self.svg,
-            r#"<rect class="{class}" x="{a_c}" y="{}" width="{}" height="8" fill="{color}" fill-opacity="0.35"/>"#,
-            C(yy - 4.0),
-            C((b - a).max(2.0)),
-            a_c = C(a)
-        );
+        W(&mut self.svg)
+            .s(r#"<rect class=""#)
+            .s(class)
+            .s(r#"" x=""#)
+            .c(a)
+            .s(r#"" y=""#)
+            .c(yy - 4.0)
+            .s(r#"" width=""#)
+            .c((b - a).max(2.0))
+            .s(r#"" height="8" fill=""#)
+            .s(color)
+            .s(r#"" fill-opacity="0.35"/>"#);
     }
 
     /// Text written on the plot (with a white halo), anchored at (x, y) in data units; kept
@@ -482,15 +717,21 @@ impl Plot {
         let above = 15.0 * lines.len().saturating_sub(1) as f64;
         let yy = (self.py(y) - above)
             .clamp(self.top + 14.0, (self.h - self.bottom - 6.0 - above).max(self.top + 14.0));
-        let _ = write!(
-            self.svg,
-            r#"<text class="note {class}" x="{xx_c}" y="{yy_c}" font-size="12.5" font-weight="600" text-anchor="{anchor}" fill="{INK}" stroke="white" stroke-width="4" paint-order="stroke">"#,
-            xx_c = C(xx),
-            yy_c = C(yy)
-        );
+        W(&mut self.svg)
+            .s(r#"<text class="note "#)
+            .s(class)
+            .s(r#"" x=""#)
+            .c(xx)
+            .s(r#"" y=""#)
+            .c(yy)
+            .s(r#"" font-size="12.5" font-weight="600" text-anchor=""#)
+            .s(anchor)
+            .s(r#"" fill=""#)
+            .s(INK)
+            .s(r#"" stroke="white" stroke-width="4" paint-order="stroke">"#);
         for (i, line) in lines.iter().enumerate() {
             let dy = if i == 0 { "0" } else { "15" };
-            let _ = write!(self.svg, r#"<tspan x="{}" dy="{dy}">{}</tspan>"#, C(xx), esc(line));
+            W(&mut self.svg).s(r#"<tspan x=""#).c(xx).s(r#"" dy=""#).s(dy).s(r#"">"#).e(line).s("</tspan>");
         }
         self.svg.push_str("</text>");
     }
@@ -501,26 +742,55 @@ impl Plot {
         if xx < self.left || xx > self.w - self.right {
             return;
         }
-        let _ = write!(
-            self.svg,
-            r#"<g class="alert-marker"><line x1="{xx_c}" y1="{}" x2="{xx_c}" y2="{}" stroke="{MARK}" stroke-width="1.5" stroke-dasharray="2 3"/><polygon points="{},{} {},{} {xx_c},{}" fill="{MARK}"/><text x="{}" y="{}" font-size="11" fill="{MARK}">{}</text><title>{}</title></g>"#,
-            self.top,
-            self.h - self.bottom,
-            C(xx - 5.0),
-            self.top,
-            C(xx + 5.0),
-            self.top,
-            self.top + 8.0,
-            C(xx + 6.0),
-            self.top + 10.0,
-            esc(label),
-            esc(tooltip),
-            xx_c = C(xx)
-        );
+        let (top, y1) = (self.top, self.h - self.bottom);
+        W(&mut self.svg)
+            .s(r#"<g class="alert-marker"><line x1=""#)
+            .c(xx)
+            .s(r#"" y1=""#)
+            .n(top)
+            .s(r#"" x2=""#)
+            .c(xx)
+            .s(r#"" y2=""#)
+            .n(y1)
+            .s(r#"" stroke=""#)
+            .s(MARK)
+            .s(r#"" stroke-width="1.5" stroke-dasharray="2 3"/><polygon points=""#)
+            .c(xx - 5.0)
+            .s(",")
+            .n(top)
+            .s(" ")
+            .c(xx + 5.0)
+            .s(",")
+            .n(top)
+            .s(" ")
+            .c(xx)
+            .s(",")
+            .n(top + 8.0)
+            .s(r#"" fill=""#)
+            .s(MARK)
+            .s(r#""/><text x=""#)
+            .c(xx + 6.0)
+            .s(r#"" y=""#)
+            .n(top + 10.0)
+            .s(r#"" font-size="11" fill=""#)
+            .s(MARK)
+            .s(r#"">"#)
+            .e(label)
+            .s("</text><title>")
+            .e(tooltip)
+            .s("</title></g>");
     }
 
     /// The finished SVG: the labels of the limit lines in the right margin, moved apart.
-    pub(super) fn finish(mut self) -> String {
+    #[cfg(test)]
+    pub(super) fn finish(self) -> String {
+        let mut out = String::new();
+        self.finish_into(&mut out);
+        out
+    }
+
+    /// [`Plot::finish`], appended to `out`.
+    pub(super) fn finish_into(mut self, out: &mut String) {
         self.labels.sort_by(|a, b| a.0.total_cmp(&b.0));
         let gap = 13.0;
         let mut ys: Vec<f64> = self.labels.iter().map(|l| l.0 + 4.0).collect();
@@ -540,17 +810,21 @@ impl Plot {
         }
         let x = self.w - self.right + 6.0;
         for ((_, color, text), y) in self.labels.iter().zip(&ys) {
-            let _ = write!(
-                self.svg,
-                r#"<text class="limit-label" x="{x_c}" y="{y_c}" font-size="11.5" fill="{color}">{}</text>"#,
-                esc(text),
-                x_c = C(x),
-                y_c = C(*y)
-            );
+            W(&mut self.svg)
+                .s(r#"<text class="limit-label" x=""#)
+                .c(x)
+                .s(r#"" y=""#)
+                .c(*y)
+                .s(r#"" font-size="11.5" fill=""#)
+                .s(color)
+                .s(r#"">"#)
+                .e(text)
+                .s("</text>");
         }
-        self.back.push_str(&self.svg);
-        self.back.push_str("</svg>");
-        self.back
+        out.reserve(self.back.len() + self.svg.len() + 6);
+        out.push_str(&self.back);
+        out.push_str(&self.svg);
+        out.push_str("</svg>");
     }
 }
 
