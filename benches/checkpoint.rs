@@ -10,7 +10,8 @@
 //! block): these are the steady-state figures at day 14.
 //!
 //! Run: `cargo bench --bench checkpoint` (about two minutes); options after `--`:
-//! `--units 50,200`, `--days 14`, `--live 30` (live passes).
+//! `--units 50,200`, `--days 14`, `--live 30` (live passes), `--keep DIR` (keep the exports and
+//! the state directory in `DIR/<units>-units` to look at).
 
 #![allow(missing_docs, clippy::unwrap_used)]
 
@@ -28,10 +29,12 @@ struct Options {
     units: Vec<usize>,
     days: i64,
     live: usize,
+    /// Keep the exports and the state here instead of a temporary directory.
+    keep: Option<PathBuf>,
 }
 
 fn options() -> Options {
-    let mut o = Options { units: vec![50, 200], days: 14, live: 30 };
+    let mut o = Options { units: vec![50, 200], days: 14, live: 30, keep: None };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < args.len() {
@@ -40,6 +43,7 @@ fn options() -> Options {
             "--units" => o.units = next.split(',').map(|v| v.parse().unwrap()).collect(),
             "--days" => o.days = next.parse().unwrap(),
             "--live" => o.live = next.parse().unwrap(),
+            "--keep" => o.keep = Some(PathBuf::from(next)),
             _ => {
                 i += 1;
                 continue;
@@ -109,14 +113,17 @@ fn wall_ms() -> i64 {
     jiff::Timestamp::now().as_millisecond()
 }
 
-fn run(units: usize, days: i64, live: usize) {
-    let dir = tempfile::tempdir().unwrap();
-    let exports = dir.path().join("exports");
+fn run(units: usize, days: i64, live: usize, keep: Option<&Path>) {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = keep.map_or_else(|| tmp.path().to_path_buf(), |k| k.join(format!("{units}-units")));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let exports = dir.join("exports");
     let mut noise = Rng::new(0x9e37_79b9_7f4a_7c15);
     let end = wall_ms() / 60_000 * 60 - 60;
     let mut next = generate(&exports, end, days, &mut noise);
     let blocks: String = (0..units).map(|u| unit_block(&format!("U-{u:03}"), "exports", "1m")).collect();
-    let cfg = dir.path().join("site.toml");
+    let cfg = dir.join("site.toml");
     std::fs::write(
         &cfg,
         format!(
@@ -174,7 +181,7 @@ fn run(units: usize, days: i64, live: usize) {
         live_ms.push(ms(t0.elapsed()));
     }
     let history: usize = p.units.iter().map(|u| u.monitor().history.len()).sum::<usize>() / units.max(1);
-    let state = dir.path().join("state");
+    let state = dir.join("state");
     let ck = std::fs::metadata(state.join("state.json")).map(|m| m.len()).unwrap_or(0);
     let journal = dir_bytes(&state.join("history"));
     println!(
@@ -203,6 +210,6 @@ fn run(units: usize, days: i64, live: usize) {
 fn main() {
     let o = options();
     for &u in &o.units {
-        run(u, o.days, o.live);
+        run(u, o.days, o.live, o.keep.as_deref());
     }
 }

@@ -271,7 +271,8 @@ impl Pipeline {
             let syncing = s.spawn(move || set.finish());
             let prepared = dir.map(|dir| {
                 let units = units.iter().map(|u| (u.cfg.spec.name.as_str(), u.state())).collect();
-                StateDir::prepare(&dir, &StoredRef::new(units))
+                let text = StoredRef::new(units).to_json().map_err(io::Error::other)?;
+                StateDir::prepare_payload(&dir, &text)
             });
             let synced = syncing
                 .join()

@@ -133,7 +133,70 @@ impl<'a> StoredRef<'a> {
     pub fn new(units: BTreeMap<&'a str, UnitStateRef<'a>>) -> StoredRef<'a> {
         StoredRef { format: FORMAT_1, units }
     }
+
+    /// The checkpoint's JSON text: the same bytes as `serde_json::to_vec(self)`, with the
+    /// units serialized on several threads (at 200 units the text is about 3 MB, most of it
+    /// numbers to format, and the thread that syncs the outputs meanwhile only waits on the disk).
+    ///
+    /// # Errors
+    /// When a unit's state cannot be serialized.
+    pub fn to_json(&self) -> serde_json::Result<Vec<u8>> {
+        let units: Vec<(&str, &UnitStateRef<'a>)> = self.units.iter().map(|(k, v)| (*k, v)).collect();
+        let threads = std::thread::available_parallelism().map_or(1, usize::from).clamp(1, ENCODE_THREADS);
+        let chunk = units.len().div_ceil(threads).max(MIN_UNITS_PER_THREAD);
+        let encode = |part: &[(&str, &UnitStateRef<'a>)]| -> serde_json::Result<Vec<u8>> {
+            let mut out = Vec::with_capacity(part.len() * 16 * 1024);
+            for (name, unit) in part {
+                if !out.is_empty() {
+                    out.push(b',');
+                }
+                serde_json::to_writer(&mut out, name)?;
+                out.push(b':');
+                serde_json::to_writer(&mut out, unit)?;
+            }
+            Ok(out)
+        };
+        let parts: Vec<serde_json::Result<Vec<u8>>> = if units.len() <= chunk {
+            vec![encode(&units)]
+        } else {
+            std::thread::scope(|s| {
+                let handles: Vec<_> = units.chunks(chunk).map(|part| s.spawn(move || encode(part))).collect();
+                handles
+                    .into_iter()
+                    .map(|h| {
+                        h.join().unwrap_or_else(|_| {
+                            Err(serde::ser::Error::custom("a checkpoint encoding thread panicked"))
+                        })
+                    })
+                    .collect()
+            })
+        };
+        let mut text = Vec::with_capacity(parts.iter().flatten().map(Vec::len).sum::<usize>() + 64);
+        text.extend_from_slice(br#"{"format":"#);
+        serde_json::to_writer(&mut text, self.format)?;
+        text.extend_from_slice(br#","units":{"#);
+        let mut first = true;
+        for part in parts {
+            let part = part?;
+            if part.is_empty() {
+                continue;
+            }
+            if !first {
+                text.push(b',');
+            }
+            first = false;
+            text.extend_from_slice(&part);
+        }
+        text.extend_from_slice(b"}}");
+        Ok(text)
+    }
 }
+
+/// At most this many threads encode a checkpoint.
+const ENCODE_THREADS: usize = 4;
+
+/// Fewer units than this are not worth a thread of their own.
+const MIN_UNITS_PER_THREAD: usize = 16;
 
 #[cfg(test)]
 #[allow(clippy::unwrap_used)]
@@ -179,12 +242,48 @@ mod tests {
             header_overrides: overrides.clone(),
             history: Some(Span { first_end_ms: 600_000, last_end_ms: 1_200_000, count: 2 }),
         };
-        let text = serde_json::to_string(&StoredRef::new(BTreeMap::from([("U", r)]))).unwrap();
+        let stored = StoredRef::new(BTreeMap::from([("U", r)]));
+        let text = serde_json::to_string(&stored).unwrap();
+        assert_eq!(stored.to_json().unwrap(), text.as_bytes());
         assert!(text.starts_with(r#"{"format":"efftemp-units-1","units":"#), "{text}");
         let back = serde_json::from_str::<Stored>(&text).unwrap().into_units();
         assert_eq!(back["U"].last_end_ms, Some(5));
         assert_eq!(back["U"].monitor.as_ref(), Some(&m));
         assert_eq!(back["U"].header_overrides, overrides);
         assert_eq!(back["U"].history.map(|s| s.count), Some(2));
+    }
+
+    #[test]
+    fn the_threaded_encoding_is_the_serde_encoding() {
+        let a = Assembler::new(60_000, 180_000, 60_000, Vec::new());
+        let m = Monitor::new(&crate::core::monitor::settings::MonitorConfig::default(), 60_000);
+        let s = UnitState::default();
+        let names: Vec<String> = (0..70).map(|i| format!("U-{i:03} \"quoted\"")).collect();
+        for n in [0, 1, 15, 16, 17, 70] {
+            let units = names[..n]
+                .iter()
+                .enumerate()
+                .map(|(i, name)| {
+                    let r = UnitStateRef {
+                        tail: s.tail.clone(),
+                        assembler: &a,
+                        alerts: &s.alerts,
+                        monitor: &m,
+                        ingest: &s.ingest,
+                        last_end_ms: Some(i as i64),
+                        header_overrides: BTreeMap::new(),
+                        history: (i % 2 == 0).then_some(Span { first_end_ms: 0, last_end_ms: 9, count: 10 }),
+                    };
+                    (name.as_str(), r)
+                })
+                .collect();
+            let stored = StoredRef::new(units);
+            let want = serde_json::to_vec(&stored).unwrap();
+            assert_eq!(
+                String::from_utf8(stored.to_json().unwrap()).unwrap(),
+                String::from_utf8(want).unwrap(),
+                "{n} units"
+            );
+        }
     }
 }

@@ -151,11 +151,19 @@ impl StateDir {
     /// # Errors
     /// When it cannot be serialized or written.
     pub fn prepare<T: Serialize>(dir: &Path, value: &T) -> io::Result<Prepared> {
-        let payload = serde_json::to_string(value).map_err(io::Error::other)?;
+        let payload = serde_json::to_vec(value).map_err(io::Error::other)?;
+        Self::prepare_payload(dir, &payload)
+    }
+
+    /// [`StateDir::prepare`] for a payload already serialized (JSON text).
+    ///
+    /// # Errors
+    /// When it cannot be written.
+    pub fn prepare_payload(dir: &Path, payload: &[u8]) -> io::Result<Prepared> {
         let path = dir.join(PENDING);
         let mut f = File::create(&path)?;
-        writeln!(f, "efftemp-state {VERSION} {:016x}", fnv1a64(payload.as_bytes()))?;
-        f.write_all(payload.as_bytes())?;
+        writeln!(f, "efftemp-state {VERSION} {:016x}", fnv1a64(payload))?;
+        f.write_all(payload)?;
         f.sync_all()?;
         Ok(Prepared { path })
     }

@@ -283,12 +283,28 @@ impl System {
         target: f64,
         guess: f64,
     ) -> Result<(f64, Method), SolveError> {
+        self.solve_temperature_from(out_flows, target, guess, None)
+    }
+
+    /// [`System::solve_temperature`] with the components' enthalpies at one temperature already
+    /// known (`known`, the guess when it is a feed's temperature): the iteration uses them
+    /// where it evaluates at that temperature (the same numbers, one evaluation less).
+    fn solve_temperature_from(
+        &self,
+        out_flows: &[f64],
+        target: f64,
+        guess: f64,
+        known: Option<&Enthalpies>,
+    ) -> Result<(f64, Method), SolveError> {
         let (lo, hi) = self.bounds;
         // Residual tolerance: the enthalpy change of 1e-10 K, at least.
         let tol = Tolerance { xtol: 1e-10, ftol: 0.0, ..Tolerance::default() };
         let root = newton_brent(
             |t| {
-                let (h, c) = self.stream_h_cp(out_flows, t);
+                let (h, c) = match known {
+                    Some(e) if e.t.to_bits() == t.to_bits() => e.stream_h_cp(out_flows),
+                    _ => self.stream_h_cp(out_flows, t),
+                };
                 (h - target, c)
             },
             guess,
@@ -866,12 +882,32 @@ impl System {
 
     /// Inlet enthalpy flow, W.
     fn inlet_enthalpy(&self, inputs: &Inputs, streams: &Streams) -> f64 {
+        self.inlet_enthalpy_with(inputs, streams, None)
+    }
+
+    /// [`System::inlet_enthalpy`], taking the enthalpies of the feeds at the temperature of
+    /// `known` from it (the same numbers as evaluating them).
+    fn inlet_enthalpy_with(&self, inputs: &Inputs, streams: &Streams, known: Option<&Enthalpies>) -> f64 {
         inputs
             .feeds
             .iter()
             .zip(&streams.feed_flows)
-            .map(|(f, flows)| self.stream_h(flows, f.temperature))
+            .map(|(f, flows)| match known {
+                Some(e) if e.t.to_bits() == f.temperature.to_bits() => e.stream_h_cp(flows).0,
+                _ => self.stream_h(flows, f.temperature),
+            })
             .sum()
+    }
+
+    /// Where solving for the temperature starts: the flow-weighted feed temperature.
+    fn temperature_guess(inputs: &Inputs, streams: &Streams) -> f64 {
+        let (mut wt, mut w) = (0.0, 0.0);
+        for (f, flows) in inputs.feeds.iter().zip(&streams.feed_flows) {
+            let n: f64 = flows.iter().sum();
+            wt += n * f.temperature;
+            w += n;
+        }
+        if w > 0.0 { wt / w } else { T_REF }
     }
 
     /// The balance residual `H_out(T) − H_in − Q + Q_loss` (W) with every quantity taken from
@@ -1048,12 +1084,21 @@ impl System {
         if streams.feed_flows.iter().flatten().any(|n| !n.is_finite()) {
             return Err(SolveError::NotFinite("feed flow (in mol/s)"));
         }
-        let h_in = self.inlet_enthalpy(inputs, &streams);
+        // Solving for the temperature starts at the flow-weighted feed temperature, which with
+        // one feed (or feeds at one temperature) is a feed's temperature: the components'
+        // enthalpies there serve both the inlet and the first step.
+        let guess = Self::temperature_guess(inputs, &streams);
+        let known = (unknown == Unknown::Temperature
+            && inputs.feeds.iter().any(|f| f.temperature.to_bits() == guess.to_bits()))
+        .then(|| self.enthalpies_at(guess));
+        let h_in = self.inlet_enthalpy_with(inputs, &streams, known.as_ref());
         if !h_in.is_finite() {
             return Err(SolveError::NotFinite("feed enthalpy flow"));
         }
         let solution = match unknown {
-            Unknown::Temperature => self.solve_for_temperature(inputs, &streams, h_in)?,
+            Unknown::Temperature => {
+                self.solve_for_temperature(inputs, &streams, h_in, guess, known.as_ref())?
+            }
             Unknown::Duty => self.solve_for_duty(inputs, &streams, h_in)?,
             Unknown::Conversion(r) => self.solve_for_conversion(inputs, &mut streams, h_in, r)?,
         };
@@ -1067,20 +1112,14 @@ impl System {
         inputs: &Inputs,
         streams: &Streams,
         h_in: f64,
+        guess: f64,
+        known: Option<&Enthalpies>,
     ) -> Result<(f64, f64, Option<Method>), SolveError> {
         let duty = inputs.duty.ok_or_else(|| {
             SolveError::MissingInput("solving for the temperature needs the heater duty".into())
         })?;
         let target = h_in + duty - inputs.heat_loss;
-        // Start from the flow-weighted feed temperature.
-        let (mut wt, mut w) = (0.0, 0.0);
-        for (f, flows) in inputs.feeds.iter().zip(&streams.feed_flows) {
-            let n: f64 = flows.iter().sum();
-            wt += n * f.temperature;
-            w += n;
-        }
-        let guess = if w > 0.0 { wt / w } else { T_REF };
-        let (t, method) = self.solve_temperature(&streams.out_flows, target, guess)?;
+        let (t, method) = self.solve_temperature_from(&streams.out_flows, target, guess, known)?;
         Ok((t, duty, Some(method)))
     }
 
@@ -1232,7 +1271,8 @@ impl System {
     }
 
     fn validity(&self, inputs: &Inputs, outcome: &mut Outcome, memo: &mut BubbleMemo) {
-        let mut flags: Vec<Flag> = Vec::new();
+        // Pushed after the element balance's flags, in this order.
+        let mut flags = std::mem::take(&mut outcome.flags);
         // Lowest and highest temperature each component is present at (feeds and effluent).
         let empty = (f64::INFINITY, f64::NEG_INFINITY);
         let mut held = [empty; HELD];
@@ -1333,7 +1373,7 @@ impl System {
                 });
             }
         }
-        outcome.flags.extend(flags);
+        outcome.flags = flags;
     }
 }
 
