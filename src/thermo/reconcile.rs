@@ -402,6 +402,13 @@ pub(crate) mod tests {
         nf.iter().zip(&m).map(|(n, m)| Some((m * n / s + sd * rng.normal(), sd.max(1e-4)))).collect()
     }
 
+    /// Mean and sample standard deviation.
+    fn mean_sd(xs: &[f64]) -> (f64, f64) {
+        let mean = xs.iter().sum::<f64>() / xs.len() as f64;
+        let sd = (xs.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (xs.len() - 1) as f64).sqrt();
+        (mean, sd)
+    }
+
     #[test]
     fn an_exact_analysis_gives_back_the_conversion_in_either_basis() {
         let sys = system();
@@ -449,8 +456,7 @@ pub(crate) mod tests {
                 over += 1;
             }
         }
-        let mean = xs.iter().sum::<f64>() / xs.len() as f64;
-        let sd = (xs.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (xs.len() - 1) as f64).sqrt();
+        let (mean, sd) = mean_sd(&xs);
         let u = us.iter().sum::<f64>() / us.len() as f64;
         assert!((mean - 0.5).abs() < 3.0 * sd / (xs.len() as f64).sqrt() + 1e-4, "mean {mean}");
         assert!((u / sd - 1.0).abs() < 0.15, "stated {u}, scatter {sd}");
@@ -519,8 +525,7 @@ pub(crate) mod tests {
                 over += 1;
             }
         }
-        let mean = xs.iter().sum::<f64>() / xs.len() as f64;
-        let sd = (xs.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (xs.len() - 1) as f64).sqrt();
+        let (mean, sd) = mean_sd(&xs);
         let u = us.iter().sum::<f64>() / us.len() as f64;
         assert!(mean.abs() < 4.0 * sd / (xs.len() as f64).sqrt() + 1e-4, "bias {mean}");
         assert!((u / sd - 1.0).abs() < 0.2, "stated {u}, scatter {sd}");

@@ -359,9 +359,9 @@ impl StepWindow {
         }
         let step_ms = self.0[20].0;
         let wait = METER_WAIT_MS.max(2 * (cfg.dead_time_ms + cfg.lag_ms));
-        // An input that moved shortly before the step (outside the step's windows) may still
-        // be working through the plant.
-        let recent_move = inputs_moved_ms.is_some_and(|t| t <= step_ms && step_ms - t < wait);
+        // An input that moved shortly before the step (outside the step's windows), or is
+        // still moving, may still be working through the plant.
+        let recent_move = inputs_moved_ms.is_some_and(|t| t > step_ms - wait);
         if frozen != Some(tag_idx) && (tag_idx != unit.effluent_temperature || input_moved || recent_move) {
             // An input meter moved and the plant temperature has not followed yet: the plant may
             // only be slow. Judged again once it has had time to answer. The same for a
