@@ -301,7 +301,6 @@ impl StepWindow {
         baseline: Option<&Baseline>,
         lag: f64,
         x: &Reading<'_>,
-        inputs_moved_ms: Option<i64>,
         pending: &mut Option<PendingMeter>,
         active: &mut Held,
     ) {
@@ -358,15 +357,12 @@ impl StepWindow {
             return;
         }
         let step_ms = self.0[20].0;
-        let wait = METER_WAIT_MS.max(2 * (cfg.dead_time_ms + cfg.lag_ms));
-        // An input that moved shortly before the step (outside the step's windows), or is
-        // still moving, may still be working through the plant.
-        let recent_move = inputs_moved_ms.is_some_and(|t| t > step_ms - wait);
-        if frozen != Some(tag_idx) && (tag_idx != unit.effluent_temperature || input_moved || recent_move) {
+        if frozen != Some(tag_idx) && (tag_idx != unit.effluent_temperature || input_moved) {
             // An input meter moved and the plant temperature has not followed yet: the plant may
             // only be slow. Judged again once it has had time to answer. The same for a
             // thermometer step that came with an input move: the measurement may be the
             // plant's own answer to the move, faster or slower than the compensation.
+            let wait = METER_WAIT_MS.max(2 * (cfg.dead_time_ms + cfg.lag_ms));
             *pending = Some(PendingMeter { tag: tag_idx, why, step, step_ms, due_ms: step_ms + wait });
             return;
         }
@@ -600,8 +596,6 @@ mod tests {
         instruments: Instruments,
         steps: StepWindow,
         pending: Option<PendingMeter>,
-        /// When an input last moved (as the monitor's steady-state test would say).
-        inputs_moved_ms: Option<i64>,
         active: Held,
         /// (interval, flag) of every flag.
         flags: Vec<(i64, Flag)>,
@@ -621,7 +615,6 @@ mod tests {
                 instruments: Instruments::default(),
                 steps: StepWindow::default(),
                 pending: None,
-                inputs_moved_ms: None,
                 active: Held::default(),
                 flags: Vec::new(),
                 log: Vec::new(),
@@ -642,16 +635,7 @@ mod tests {
             let mut flags = Vec::new();
             let b = self.baseline.as_ref();
             self.instruments.check(&self.cfg, &self.unit, b, &x, &mut self.active, &mut flags);
-            self.steps.check(
-                &self.cfg,
-                &self.unit,
-                b,
-                0.0,
-                &x,
-                self.inputs_moved_ms,
-                &mut self.pending,
-                &mut self.active,
-            );
+            self.steps.check(&self.cfg, &self.unit, b, 0.0, &x, &mut self.pending, &mut self.active);
             self.flags.extend(flags.into_iter().map(|f| (self.k, f)));
             self.log.push(self.held());
             self.k += 1;
@@ -830,28 +814,6 @@ mod tests {
         let first = checks.log.iter().position(|h| !h.is_empty()).expect("raised");
         assert!(first <= 24 + 60, "raised at interval {first}");
         assert_eq!(checks.held(), vec![(Cause::InstrumentFault, "TI-109".to_string())]);
-    }
-
-    #[test]
-    fn a_residual_jump_soon_after_an_input_move_waits_for_the_plant_to_settle() {
-        // An input moved 10 min before (outside the step test's windows; the monitor's
-        // steady-state test saw it) and the plant is still working through it: the residual
-        // jumps by 1 K and dies out over 15 min. Not blamed on the thermometer at once; judged
-        // after the wait, when nothing stands any more.
-        let run = |moved: Option<i64>| {
-            let mut rng = Rng::new(11);
-            let mut checks = Checks { inputs_moved_ms: moved, ..Checks::new() };
-            checks.intervals(&mut rng, 120, |k, p| {
-                if k >= 20 {
-                    p.meas += (-((k - 20) as f64) / 15.0).exp();
-                }
-            });
-            checks.log.iter().position(|h| !h.is_empty())
-        };
-        assert_eq!(run(Some(T0 + 10 * MIN)), None);
-        // The same data with no input move on record: the thermometer is suspected at once.
-        let first = run(None).expect("raised");
-        assert!(first < 35, "raised at interval {first}");
     }
 
     #[test]

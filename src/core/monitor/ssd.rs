@@ -144,19 +144,6 @@ impl SteadyState {
         self.step_floored(xs, &[], s)
     }
 
-    /// Whether signal `i` was beyond its unsteady threshold at the last step.
-    pub fn moving(&self, i: usize, s: &SsdSettings) -> bool {
-        match (self.filters.get(i), self.r.get(i).copied().flatten()) {
-            (Some(f), Some(v)) => v > s.r_hi * f.scale(),
-            _ => false,
-        }
-    }
-
-    /// The number of signals.
-    pub fn signals(&self) -> usize {
-        self.filters.len()
-    }
-
     /// As [`SteadyState::step`], with a noise floor per signal (missing floors are zero).
     pub fn step_floored(&mut self, xs: &[Option<f64>], floors: &[Floor], s: &SsdSettings) -> bool {
         if self.filters.len() != xs.len() {

@@ -184,10 +184,6 @@ pub struct Monitor {
     /// A meter step waiting for the plant's answer.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pending_meter: Option<PendingMeter>,
-    /// End of the last interval in which an input (a feed flow or temperature, the duty) was
-    /// moving, ms: a thermometer step soon after is judged once the plant has settled.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
-    inputs_moved_ms: Option<i64>,
 }
 
 /// What the monitor produced for one interval.
@@ -225,7 +221,6 @@ impl Monitor {
             analyzers: Analyzers::default(),
             extent_estimate: None,
             pending_meter: None,
-            inputs_moved_ms: None,
         }
     }
 
@@ -301,7 +296,6 @@ impl Monitor {
             baseline,
             self.fopdt.a,
             &reading,
-            self.inputs_moved_ms,
             &mut self.pending_meter,
             &mut self.active,
         );
@@ -313,13 +307,7 @@ impl Monitor {
             &mut self.active,
         );
 
-        let steady = self.steady(cfg, e, meas, r);
-        // The inputs among the steady-state signals: all but the measurement (0) and the
-        // residual (3).
-        if (0..self.ssd.signals()).filter(|i| *i != 0 && *i != 3).any(|i| self.ssd.moving(i, &cfg.ssd)) {
-            self.inputs_moved_ms = Some(e.end_ms);
-        }
-        if !steady {
+        if !self.steady(cfg, e, meas, r) {
             // Statistics freeze; a partial block is kept (the residual of a good model is
             // stationary across operating changes) and completes with later steady intervals.
             self.state = MonitorState::Unsteady;
@@ -669,7 +657,7 @@ mod tests {
     fn a_checkpoint_of_the_build_before_the_split_loads_and_is_written_the_same() {
         let fixture = FIXTURE.trim_end();
         // The same intervals give a monitor with the same fields in the same order, plus the
-        // ones added since at the end (the gap clock, the last input move). The values may differ: the attribution
+        // ones added since at the end (the gap clock). The values may differ: the attribution
         // has changed since (ranked causes).
         let keys = |v: &serde_json::Value| -> Vec<String> {
             v.as_object().map(|o| o.keys().cloned().collect()).unwrap_or_default()
@@ -684,7 +672,7 @@ mod tests {
         let then: serde_json::Value = drop_history(serde_json::from_str(fixture).unwrap());
         let (now_keys, then_keys) = (keys(&now), keys(&then));
         assert_eq!(now_keys[..then_keys.len()], then_keys[..]);
-        assert_eq!(now_keys[then_keys.len()..], ["last_end_ms".to_string(), "inputs_moved_ms".to_string()]);
+        assert_eq!(now_keys[then_keys.len()..], ["last_end_ms".to_string()]);
         // What that build wrote loads, and is written back with the same fields in the same
         // order (compared through serde_json's own reading of the numbers, which is not exact
         // to the last bit for every decimal).
